@@ -1,0 +1,3 @@
+from drift.cli import main
+
+main()

@@ -1,0 +1,45 @@
+"""Command line: parses options and calls the library. One module per command group.
+
+Every command module registers its commands on :data:`drift.cli.app.app`. ``main`` turns a
+:class:`~drift.errors.DriftError` into one plain sentence on stderr and exit code 2, and any other
+exception into exit code 1 (set ``DRIFT_DEBUG=1`` to see the traceback).
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+
+from drift.cli import (  # noqa: F401  (imported for their commands)
+    cmd_chart,
+    cmd_pipeline,
+    cmd_rank,
+    cmd_slice,
+    cmd_train,
+)
+from drift.cli.app import app
+from drift.errors import DriftError
+
+EXIT_UNEXPECTED = 1
+EXIT_BAD_INPUT = 2
+
+
+def main(argv: list[str] | None = None) -> None:
+    """Entry point of the ``drift`` console script."""
+    try:
+        app(args=argv, prog_name="drift", standalone_mode=True)
+    except DriftError as exc:
+        print(f"drift: {exc}", file=sys.stderr)
+        sys.exit(EXIT_BAD_INPUT)
+    except KeyboardInterrupt:
+        print("drift: interrupted; finished stages are kept and a rerun resumes.", file=sys.stderr)
+        sys.exit(130)
+    except Exception as exc:  # noqa: BLE001 - the last line of defence for the user
+        if os.environ.get("DRIFT_DEBUG"):
+            raise
+        print(
+            f"drift: unexpected failure ({exc.__class__.__name__}: {exc}); "
+            "rerun with DRIFT_DEBUG=1 for details and report it.",
+            file=sys.stderr,
+        )
+        sys.exit(EXIT_UNEXPECTED)

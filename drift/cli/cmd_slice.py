@@ -1,0 +1,3 @@
+"""Commands of the slice stage (filled in as the stage is built)."""
+
+from drift.cli.app import app  # noqa: F401
