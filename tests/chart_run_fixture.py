@@ -1,0 +1,294 @@
+"""A small run folder written directly per the run-folder contract (DEVELOPERS.md), for chart tests.
+
+Real text: gensim's bundled Lee background corpus (gensim/test/test_data/lee_background.cor, 300
+news documents) cut into three consecutive slices. Tiny gensim Word2Vec models per slice and
+seed. The rank-stage files (scores, timeline, terms) hold values computed plainly here (Procrustes
+from SciPy, Jaccard turnover, a per-frequency-bin null); they are plausible inputs for the charts,
+not a reimplementation of the ranking stage under test.
+
+Hostile tokens (markup, a path) are added to every slice so the pages can be tested with words
+that are data from strangers.
+"""
+
+from __future__ import annotations
+
+import atexit
+import re
+import shutil
+import tempfile
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from gensim.models import Word2Vec
+from gensim.test.utils import datapath
+from scipy import stats
+from scipy.linalg import orthogonal_procrustes
+
+from drift import runfolder
+
+LABELS = ("2001", "2002", "2003")
+SEEDS = 2
+K = 10
+
+#: Tokens that must show as text and never run or become a path.
+HOSTILE_WORDS = (
+    "<script>alert(1)</script>",
+    "<script>document.body.dataset.pwned=1</script>",
+    '"><img/src=x/onerror=document.body.dataset.pwned=2>',
+    "../../etc/passwd",
+    "<b>bold</b>&amp;",
+)
+
+_TOKEN_RE = re.compile(r"\w+")
+
+
+def _slice_lines() -> dict[str, list[str]]:
+    """The Lee corpus documents, lower-cased word tokens, in three consecutive slices."""
+    with open(datapath("lee_background.cor"), encoding="utf-8") as handle:
+        docs = [" ".join(_TOKEN_RE.findall(line.lower())) for line in handle if line.strip()]
+    per = len(docs) // len(LABELS)
+    slices = {label: docs[i * per : (i + 1) * per] for i, label in enumerate(LABELS)}
+    # The hostile tokens get ordinary contexts so that every model learns them; in the last
+    # slice the contexts change, so they shift and reach the top of the ranking.
+    for label, lines in slices.items():
+        extra = []
+        for i in range(12):
+            for word in HOSTILE_WORDS:
+                if label == LABELS[-1]:
+                    extra.append(f"{word} cricket team won the match at the ground in over {i}")
+                else:
+                    extra.append(f"the {word} was reported by police in sydney on day {i}")
+        slices[label] = lines + extra
+    return slices
+
+
+def _unit_centred(matrix: np.ndarray) -> np.ndarray:
+    matrix = matrix / np.linalg.norm(matrix, axis=1, keepdims=True)
+    matrix = matrix - matrix.mean(axis=0)
+    return matrix / np.linalg.norm(matrix, axis=1, keepdims=True)
+
+
+def _top_k(kv, word: str, k: int = K) -> set[str]:
+    return {w for w, _ in kv.most_similar(word, topn=k)}
+
+
+def build_fixture_run(root: Path) -> Path:
+    """Write slices, models and rank files for a three-slice run under ``root``; return it."""
+    paths = runfolder.prepare_run_folder(root)
+    slices = _slice_lines()
+
+    # --- slice stage: slices/*.txt, summary.csv, counts.parquet
+    summary_rows, counters = [], {}
+    for i, (label, lines) in enumerate(slices.items()):
+        paths.slices_dir.mkdir(parents=True, exist_ok=True)
+        paths.slice_file(label).write_text("\n".join(lines) + "\n", encoding="utf-8")
+        tokens = [t for line in lines for t in line.split(" ")]
+        counts = pd.Series(tokens).value_counts()
+        counters[label] = counts
+        year = 2001 + i
+        summary_rows.append(
+            {
+                "label": label,
+                "start": f"{year}-01-01",
+                "end": f"{year}-12-31",
+                "documents": len(lines),
+                "tokens": len(tokens),
+                "types": len(counts),
+                "dropped": 0,
+            }
+        )
+    pd.DataFrame(summary_rows).to_csv(paths.slice_summary, index=False)
+    counts = pd.DataFrame(counters).fillna(0).astype("int64")
+    counts = counts.loc[counts.sum(axis=1).sort_values(ascending=False, kind="stable").index]
+    counts.index.name = "word"
+    counts.reset_index().to_parquet(paths.counts, index=False)
+    runfolder.record_stage(root, "slice", {"by": "year"}, "fixture", 0.0, {"labels": list(LABELS)})
+
+    # --- train stage: tiny models per slice and seed
+    models: dict[str, list] = {}
+    for label in LABELS:
+        models[label] = []
+        for seed in range(SEEDS):
+            model = Word2Vec(
+                corpus_file=str(paths.slice_file(label)),
+                vector_size=16,
+                window=5,
+                min_count=5,
+                sg=1,
+                negative=5,
+                epochs=3,
+                workers=1,
+                seed=1 + seed,
+            )
+            target = paths.model_file(label, seed)
+            target.parent.mkdir(parents=True, exist_ok=True)
+            model.wv.save(str(target))
+            models[label].append(model.wv)
+    runfolder.record_stage(
+        root, "train", {"dim": 16, "window": 5, "epochs": 3, "seeds": SEEDS}, "fixture", 0.0,
+        {"control": None},
+    )
+
+    # --- rank stage: timeline, scores, terms
+    reference, last = LABELS[0], LABELS[-1]
+    shared = sorted(set.intersection(*(set(models[lb][0].index_to_key) for lb in LABELS)))
+    totals = {label: int(counters[label].sum()) for label in LABELS}
+    distances = {}  # label -> (n_words, seeds)
+    for label in LABELS:
+        per_seed = []
+        for seed in range(SEEDS):
+            ref = _unit_centred(models[reference][seed][shared])
+            other = _unit_centred(models[label][seed][shared])
+            rotation, _ = orthogonal_procrustes(other, ref)
+            aligned = other @ rotation
+            cosine = np.sum(aligned * ref, axis=1) / (
+                np.linalg.norm(aligned, axis=1) * np.linalg.norm(ref, axis=1)
+            )
+            per_seed.append(1.0 - cosine)
+        distances[label] = np.stack(per_seed, axis=1)
+    ref_sets = {w: _top_k(models[reference][0], w) for w in shared}
+    rows = []
+    for label in LABELS:
+        fpm = np.array([counters[label].get(w, 0) for w in shared]) * 1e6 / totals[label]
+        log_f = np.log10(np.maximum(fpm, 1e-9))
+        bins = pd.qcut(log_f, 4, labels=False, duplicates="drop")
+        dist = distances[label].mean(axis=1)
+        p95 = pd.Series(dist).groupby(bins).transform(lambda s: s.quantile(0.95)).to_numpy()
+        for i, word in enumerate(shared):
+            other_set = _top_k(models[label][0], word)
+            turnover = 1 - len(ref_sets[word] & other_set) / len(ref_sets[word] | other_set)
+            rows.append(
+                {
+                    "word": word,
+                    "slice": label,
+                    "distance": float(dist[i]),
+                    "distance_sd": float(distances[label][i].std(ddof=1)),
+                    "turnover": float(turnover),
+                    "count": int(counters[label].get(word, 0)),
+                    "fpm": float(fpm[i]),
+                    "null_p95": float(p95[i]),
+                }
+            )
+    timeline = pd.DataFrame(rows)
+    timeline.to_parquet(paths.timeline_parquet, index=False)
+
+    final = timeline[timeline.slice == last].set_index("word").loc[shared]
+    count_from = np.array([counters[reference].get(w, 0) for w in shared])
+    count_to = final["count"].to_numpy()
+    fpm_from = count_from * 1e6 / totals[reference]
+    fpm_to = final["fpm"].to_numpy()
+    log_f = np.log10((fpm_from + fpm_to) / 2)
+    bins = pd.qcut(log_f, 4, labels=False, duplicates="drop")
+    disp = final["distance"].to_numpy()
+    grouped = pd.Series(disp).groupby(bins)
+    centre = grouped.transform("median").to_numpy()
+    spread = grouped.transform("std").to_numpy()
+    z = (disp - centre) / spread
+    p = stats.norm.sf(z)
+    q = stats.false_discovery_control(p)
+    change_rows = timeline.pivot(index="word", columns="slice", values="distance").loc[shared]
+    change_point, change_step = [], []
+    for word in shared:
+        values = change_rows.loc[word, list(LABELS)].to_numpy()
+        steps = [values[i:].mean() - values[:i].mean() for i in range(1, len(values))]
+        best = int(np.argmax(np.abs(steps)))
+        change_point.append(LABELS[best + 1])
+        change_step.append(float(steps[best]))
+    gained, lost = [], []
+    for word in shared:
+        new = [w for w, _ in models[last][0].most_similar(word, topn=K)]
+        old = [w for w, _ in models[reference][0].most_similar(word, topn=K)]
+        gained.append(" ".join(w for w in new if w not in old))
+        lost.append(" ".join(w for w in old if w not in new))
+    scores = pd.DataFrame(
+        {
+            "word": shared,
+            "score": z,
+            "displacement": disp,
+            "displacement_sd": final["distance_sd"].to_numpy(),
+            "turnover": final["turnover"].to_numpy(),
+            "turnover_sd": 0.0,
+            "local": disp / 2,
+            "local_sd": 0.0,
+            "count_from": count_from.astype("int64"),
+            "count_to": count_to.astype("int64"),
+            "fpm_from": fpm_from,
+            "fpm_to": fpm_to,
+            "log_freq_ratio": np.log2(fpm_to / fpm_from),
+            "null_centre": centre,
+            "null_spread": spread,
+            "z": z,
+            "p": p,
+            "q": q,
+            "significant": q < 0.05,
+            "change_point": change_point,
+            "change_step": change_step,
+            "gained": gained,
+            "lost": lost,
+        }
+    )
+    scores = scores.sort_values("score", ascending=False, kind="stable").reset_index(drop=True)
+    scores.insert(1, "rank", np.arange(1, len(scores) + 1))
+    scores.to_parquet(paths.scores_parquet, index=False)
+    scores.to_csv(paths.scores_csv, index=False)
+
+    fpm_table = counts.div(pd.Series(totals)) * 1e6
+    emerging = counts.index[(counts[reference] == 0) & (counts[last] >= 3)]
+    fading = counts.index[(counts[reference] >= 3) & (counts[last] == 0)]
+    term_rows = []
+    for kind, words in (("emerging", emerging), ("fading", fading)):
+        for word in words[:15]:
+            row = {
+                "word": word,
+                "kind": kind,
+                "count_from": int(counts.at[word, reference]),
+                "count_to": int(counts.at[word, last]),
+                "fpm_from": float(fpm_table.at[word, reference]),
+                "fpm_to": float(fpm_table.at[word, last]),
+            }
+            row.update({f"fpm:{label}": float(fpm_table.at[word, label]) for label in LABELS})
+            term_rows.append(row)
+    # Hostile tokens also appear as a term so the report's tables meet them.
+    hostile = HOSTILE_WORDS[0]
+    term_rows.append(
+        {
+            "word": hostile,
+            "kind": "emerging",
+            "count_from": int(counts.at[hostile, reference]),
+            "count_to": int(counts.at[hostile, last]),
+            "fpm_from": float(fpm_table.at[hostile, reference]),
+            "fpm_to": float(fpm_table.at[hostile, last]),
+            **{f"fpm:{label}": float(fpm_table.at[hostile, label]) for label in LABELS},
+        }
+    )
+    pd.DataFrame(term_rows).to_parquet(paths.terms_parquet, index=False)
+    runfolder.record_stage(
+        root,
+        "rank",
+        {
+            "between": [reference, last],
+            "reference": reference,
+            "measure": "displacement",
+            "k": K,
+            "alpha": 0.05,
+            "anchors": None,
+        },
+        "fixture",
+        0.0,
+        {"control_flagged": 3},
+    )
+    return Path(root)
+
+
+_BUILT: dict[str, Path] = {}
+
+
+def fixture_run_copy(dest: Path) -> Path:
+    """A copy of the fixture run at ``dest``; the run is built once per test session."""
+    if "run" not in _BUILT:
+        scratch = Path(tempfile.mkdtemp(prefix="drift-chart-fixture-"))
+        atexit.register(shutil.rmtree, scratch, ignore_errors=True)
+        _BUILT["run"] = build_fixture_run(scratch / "run")
+    shutil.copytree(_BUILT["run"], dest)
+    return Path(dest)
