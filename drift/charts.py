@@ -1,0 +1,493 @@
+"""Plotly figures for one word and for the overview: data in, ``plotly.graph_objects.Figure`` out.
+
+The functions here read no files; :mod:`drift.report` gathers the data from the run folder. Every
+trace carries a ``meta`` string naming its role (``"distance"``, ``"seed-band"``, ...), so tests
+and callers can find it without relying on legend wording.
+
+Colours come from the Okabe-Ito palette (Okabe and Ito 2008, "Color Universal Design"), which
+stays distinguishable under the common colour-vision deficiencies; the heatmap uses the
+ColorBrewer YlOrBr sequential scheme, recommended for colour-blind readers by Paul Tol's notes.
+Words are data from strangers: every word that reaches a figure goes through :func:`plot_text`,
+because plotly renders a subset of HTML tags in labels and hover text.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+
+import numpy as np
+import pandas as pd
+import plotly.graph_objects as go
+from plotly.subplots import make_subplots
+
+#: Okabe-Ito colours by name (hex values as published by Okabe and Ito, 2008).
+OKABE_ITO = {
+    "black": "#000000",
+    "orange": "#E69F00",
+    "sky_blue": "#56B4E9",
+    "bluish_green": "#009E73",
+    "yellow": "#F0E442",
+    "blue": "#0072B2",
+    "vermillion": "#D55E00",
+    "reddish_purple": "#CC79A7",
+}
+#: Line colours in order; yellow is left out because it is hard to see on white paper.
+LINE_COLOURS = [
+    OKABE_ITO[name]
+    for name in (
+        "blue", "vermillion", "bluish_green", "reddish_purple", "orange", "sky_blue", "black"
+    )
+]
+#: ColorBrewer YlOrBr (9 classes), light = low similarity, dark = high.
+YLORBR = ["#FFFFE5", "#FFF7BC", "#FEE391", "#FEC44F", "#FB9A29", "#EC7014", "#CC4C02", "#993404",
+          "#662506"]
+GREY = "#BBBBBB"
+LIGHT_GREY = "#EEEEEE"
+INK = "#222222"
+FONT = "system-ui, -apple-system, 'Segoe UI', Roboto, 'Helvetica Neue', Arial, sans-serif"
+
+
+def plot_text(text: object) -> str:
+    """Text made safe for plotly labels and hover: markup characters become entities.
+
+    Plotly draws ``<b>``, ``<a href>``, ``<br>`` and similar tags found in text; it decodes
+    ``&lt;``, ``&gt;`` and ``&amp;`` back to characters, so an escaped word shows as written.
+    """
+    return str(text).replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+
+
+def _base_layout(title: str, x_title: str, y_title: str, height: int = 380) -> dict:
+    return {
+        "template": "simple_white",
+        "title": {"text": title, "x": 0, "xanchor": "left", "font": {"size": 15}},
+        "font": {"family": FONT, "size": 13, "color": INK},
+        "height": height,
+        "margin": {"l": 70, "r": 30, "t": 56, "b": 60},
+        "xaxis": {"title": {"text": x_title}, "showgrid": False},
+        "yaxis": {"title": {"text": y_title}, "showgrid": True, "gridcolor": LIGHT_GREY},
+        "hoverlabel": {"font": {"family": FONT}},
+        "legend": {"orientation": "h", "x": 0, "y": -0.22, "xanchor": "left", "yanchor": "top"},
+        "paper_bgcolor": "white",
+        "plot_bgcolor": "white",
+    }
+
+
+def _fmt(value: object, digits: int = 3) -> str:
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return "n/a"
+    if isinstance(value, (int, np.integer)):
+        return f"{int(value):,}"
+    return f"{float(value):.{digits}g}"
+
+
+def _word_rows(timeline: pd.DataFrame, slices: Sequence[str]) -> pd.DataFrame:
+    """One row per slice (time order) from a word's timeline rows; missing slices are NaN."""
+    columns = ["distance", "distance_sd", "turnover", "count", "fpm", "null_p95"]
+    rows = timeline.drop_duplicates("slice").set_index("slice").reindex(list(slices))
+    for column in columns:
+        if column not in rows:
+            rows[column] = np.nan
+    return rows[columns].astype(float)
+
+
+# ---------------------------------------------------------------------------- one word
+
+
+def timeline_figure(
+    timeline: pd.DataFrame,
+    *,
+    word: str,
+    slices: Sequence[str],
+    reference: str | None = None,
+    change_point: str | None = None,
+) -> go.Figure:
+    """The word's cosine distance from the reference slice per slice.
+
+    ``timeline`` holds the word's rows of timeline.parquet (``slice, distance, distance_sd,
+    turnover, count, fpm, null_p95``). Drawn: the seed spread (distance ± 1 sd) as a band, the
+    control's 95th percentile at the word's frequency as a grey band from zero, the turnover
+    (hidden until picked in the legend) and the change point as a dashed line before its slice.
+    """
+    rows = _word_rows(timeline, slices)
+    x = list(slices)
+    distance = rows["distance"].to_numpy()
+    spread = np.nan_to_num(rows["distance_sd"].to_numpy())
+    ref_text = plot_text(reference) if reference else "the reference slice"
+    fig = go.Figure()
+    null = rows["null_p95"].to_numpy()
+    if np.isfinite(null).any():
+        fig.add_trace(
+            go.Scatter(
+                x=x + x[::-1],
+                y=list(np.nan_to_num(null)) + [0.0] * len(x),
+                fill="toself",
+                mode="lines",
+                fillcolor="rgba(150,150,150,0.22)",
+                line={"width": 0},
+                hoverinfo="skip",
+                name="control: 95% of words this frequent stay below",
+                meta="null-band",
+            )
+        )
+    fig.add_trace(
+        go.Scatter(
+            x=x + x[::-1],
+            y=list(distance + spread) + list((distance - spread)[::-1]),
+            fill="toself",
+            mode="lines",
+            fillcolor="rgba(0,114,178,0.18)",
+            line={"width": 0},
+            hoverinfo="skip",
+            name="seed spread (± 1 sd)",
+            meta="seed-band",
+        )
+    )
+    hover = [
+        f"{s}<br>distance {_fmt(d)} ± {_fmt(sd)}<br>control 95%: {_fmt(n)}"
+        for s, d, sd, n in zip(x, distance, rows["distance_sd"], null, strict=True)
+    ]
+    fig.add_trace(
+        go.Scatter(
+            x=x,
+            y=distance,
+            mode="lines+markers",
+            line={"color": OKABE_ITO["blue"], "width": 2.5},
+            marker={"size": 8},
+            name=f"cosine distance from {ref_text}",
+            text=hover,
+            hovertemplate="%{text}<extra></extra>",
+            meta="distance",
+        )
+    )
+    fig.add_trace(
+        go.Scatter(
+            x=x,
+            y=rows["turnover"].to_numpy(),
+            mode="lines+markers",
+            line={"color": OKABE_ITO["vermillion"], "width": 1.5, "dash": "dot"},
+            marker={"size": 6, "symbol": "square"},
+            name="neighbour turnover (Jaccard distance)",
+            hovertemplate="%{x}<br>turnover %{y:.3f}<extra></extra>",
+            visible="legendonly",
+            meta="turnover",
+        )
+    )
+    layout = _base_layout(
+        f"How far “{plot_text(word)}” moved from {ref_text}",
+        "time slice",
+        f"cosine distance from {ref_text}",
+    )
+    fig.update_layout(**layout)
+    fig.update_xaxes(type="category", categoryorder="array", categoryarray=x)
+    fig.update_yaxes(rangemode="tozero")
+    if change_point in x and x.index(change_point) > 0:
+        at = x.index(change_point) - 0.5
+        fig.add_vline(x=at, line={"color": INK, "dash": "dash", "width": 1.5})
+        fig.add_annotation(
+            x=at, y=1, yref="paper", yanchor="bottom", showarrow=False, xanchor="left",
+            text=f" change point: from {plot_text(change_point)}", font={"size": 12},
+        )
+    return fig
+
+
+def neighbour_heatmap(
+    neighbours: pd.DataFrame,
+    *,
+    word: str,
+    slices: Sequence[str],
+    k: int | None = None,
+) -> go.Figure:
+    """The union of the word's top neighbours (rows) against the slices (columns).
+
+    ``neighbours`` has columns ``slice, rank, neighbour, similarity``. A cell holds the cosine
+    similarity where the neighbour is among the word's top ``k`` in that slice and is left empty
+    (grey) where it is not, so neighbours that arrive and leave stand out. Rows are ordered by the
+    slice where the neighbour first appears, then by its best rank.
+    """
+    x = list(slices)
+    table = neighbours[neighbours["slice"].isin(x)]
+    order = {label: i for i, label in enumerate(x)}
+    if table.empty:
+        names: list[str] = []
+    else:
+        first = table.assign(at=table["slice"].map(order)).groupby("neighbour").agg(
+            first=("at", "min"), best=("rank", "min"), mean_sim=("similarity", "mean")
+        )
+        first = first.sort_values(["first", "best", "mean_sim"], ascending=[True, True, False])
+        names = list(first.index)
+    sim = table.pivot_table(index="neighbour", columns="slice", values="similarity", aggfunc="max")
+    rank = table.pivot_table(index="neighbour", columns="slice", values="rank", aggfunc="min")
+    sim = sim.reindex(index=names, columns=x)
+    rank = rank.reindex(index=names, columns=x)
+    k_text = f"top {k}" if k else "top neighbours"
+    hover = [
+        [
+            (
+                f"{plot_text(name)} in {plot_text(label)}<br>similarity {sim.at[name, label]:.3f}"
+                f"<br>rank {int(rank.at[name, label])}"
+            )
+            if pd.notna(sim.at[name, label])
+            else f"{plot_text(name)} in {plot_text(label)}<br>not in the {k_text}"
+            for label in x
+        ]
+        for name in names
+    ]
+    colourscale = [[i / (len(YLORBR) - 1), c] for i, c in enumerate(YLORBR)]
+    fig = go.Figure(
+        go.Heatmap(
+            z=sim.to_numpy(dtype=float),
+            x=x,
+            y=[plot_text(n) for n in names],
+            text=hover,
+            hovertemplate="%{text}<extra></extra>",
+            hoverongaps=True,
+            colorscale=colourscale,
+            colorbar={"title": {"text": "cosine<br>similarity", "side": "top"}, "thickness": 14},
+            xgap=2,
+            ygap=2,
+            meta="neighbours",
+        )
+    )
+    height = max(260, 120 + 24 * len(names))
+    layout = _base_layout(
+        f"Nearest neighbours of “{plot_text(word)}” per slice ({k_text}; grey = not among them)",
+        "time slice",
+        "neighbour",
+        height=height,
+    )
+    layout["margin"] = {"l": 150, "r": 30, "t": 56, "b": 60}
+    layout["plot_bgcolor"] = LIGHT_GREY
+    fig.update_layout(**layout)
+    fig.update_xaxes(type="category", side="top", title={"standoff": 4}, showline=False, ticks="")
+    fig.update_yaxes(
+        autorange="reversed", type="category", showgrid=False, showline=False, ticks="", dtick=1
+    )
+    fig.update_xaxes(title_text="")
+    return fig
+
+
+def frequency_figure(timeline: pd.DataFrame, *, word: str, slices: Sequence[str]) -> go.Figure:
+    """The word's frequency per million tokens in each slice (bars), with raw counts on hover."""
+    rows = _word_rows(timeline, slices)
+    counts = [_fmt(int(c)) if pd.notna(c) else "n/a" for c in rows["count"]]
+    fig = go.Figure(
+        go.Bar(
+            x=list(slices),
+            y=rows["fpm"].to_numpy(),
+            marker={"color": OKABE_ITO["bluish_green"]},
+            text=counts,
+            customdata=counts,
+            textposition="none",
+            hovertemplate=(
+                "%{x}<br>%{y:.1f} per million<br>%{customdata} occurrences<extra></extra>"
+            ),
+            name="frequency per million tokens",
+            meta="frequency",
+        )
+    )
+    fig.update_layout(
+        **_base_layout(
+            f"How often “{plot_text(word)}” occurs",
+            "time slice",
+            "per million tokens",
+            height=300,
+        ),
+        showlegend=False,
+    )
+    fig.update_xaxes(type="category")
+    return fig
+
+
+def word_figures(
+    timeline: pd.DataFrame,
+    neighbours: pd.DataFrame,
+    *,
+    word: str,
+    slices: Sequence[str],
+    reference: str | None = None,
+    change_point: str | None = None,
+    k: int | None = None,
+) -> dict[str, go.Figure]:
+    """The three figures of a word page: ``timeline``, ``neighbours`` and ``frequency``."""
+    return {
+        "timeline": timeline_figure(
+            timeline, word=word, slices=slices, reference=reference, change_point=change_point
+        ),
+        "neighbours": neighbour_heatmap(neighbours, word=word, slices=slices, k=k),
+        "frequency": frequency_figure(timeline, word=word, slices=slices),
+    }
+
+
+# ---------------------------------------------------------------------------- overview
+
+
+def rarer_count(scores: pd.DataFrame) -> pd.Series:
+    """Each word's count in the rarer of the two compared slices (at least 1).
+
+    This is the frequency the calibration judges a word by (drift.calibration: a vector is only
+    as stable as its less frequent side), so the null centre is a curve along this axis.
+    """
+    rarer = np.minimum(scores["count_from"].astype(float), scores["count_to"].astype(float))
+    return np.maximum(rarer, 1.0)
+
+
+def measure_column(scores: pd.DataFrame, measure: str | None) -> str:
+    """The scores column holding the calibrated measure: the measure's own column or ``score``."""
+    return measure if measure in ("displacement", "turnover", "local") and measure in scores else (
+        "score"
+    )
+
+
+def plotted_words(
+    scores: pd.DataFrame, max_points: int = 5000, keep_top: int = 500
+) -> pd.DataFrame:
+    """The rows to draw in the overview scatter: all of them, or the best ``keep_top`` by rank
+    plus a seeded random sample of the rest when there are more than ``max_points``."""
+    if len(scores) <= max_points:
+        return scores
+    ordered = scores.sort_values("rank", kind="stable")
+    rest = ordered.iloc[keep_top:].sample(n=max_points - keep_top, random_state=0)
+    return pd.concat([ordered.iloc[:keep_top], rest])
+
+
+MEASURE_TITLES = {
+    "displacement": "cosine displacement",
+    "turnover": "neighbour turnover (Jaccard)",
+    "local": "local neighbourhood change",
+}
+
+
+def change_vs_frequency_figure(
+    scores: pd.DataFrame,
+    *,
+    measure: str | None = "displacement",
+    links: dict[str, str] | None = None,
+    alpha: float | None = None,
+    max_points: int = 5000,
+) -> go.Figure:
+    """The ranked measure of every scored word against its frequency (log scale), word on hover.
+
+    x is the word's count in the rarer of the two compared slices, the frequency the null is a
+    function of; y is the measure the ranking calibrated (``measure`` names it). The control's
+    null centre (column ``null_centre``) is drawn as a line, so the frequency confound (rare words
+    move more) is visible. Significant words are filled vermillion diamonds, the rest hollow grey
+    circles: they differ by shape as well as colour. ``links`` maps words to page addresses that
+    a click on the point opens (see drift.report).
+    """
+    rows = plotted_words(scores, max_points=max_points)
+    links = links or {}
+    column = measure_column(rows, measure)
+    fig = go.Figure()
+    if "null_centre" in rows and rows["null_centre"].notna().any():
+        line = pd.DataFrame({"x": rarer_count(rows), "y": rows["null_centre"].astype(float)})
+        line = line.dropna().sort_values("x", kind="stable").drop_duplicates("x")
+        fig.add_trace(
+            go.Scatter(
+                x=line["x"],
+                y=line["y"],
+                mode="lines",
+                line={"color": INK, "width": 1.5},
+                name="control null centre at this frequency",
+                hoverinfo="skip",
+                meta="null-centre",
+            )
+        )
+    if "significant" in rows:
+        significant = rows["significant"].fillna(False).astype(bool)
+    else:
+        significant = pd.Series(False, index=rows.index)
+    alpha_text = f" (q ≤ {alpha:g})" if alpha else ""
+    styles = (
+        (False, "not significant", {"color": GREY, "symbol": "circle-open", "size": 7}, "words"),
+        (True, f"significant{alpha_text}",
+         {"color": OKABE_ITO["vermillion"], "symbol": "diamond", "size": 9}, "significant"),
+    )
+    for flag, name, marker, role in styles:
+        part = rows[significant == flag]
+        if part.empty and flag:
+            continue
+        custom = np.array(
+            [
+                [plot_text(w), _fmt(int(r)), _fmt(z), _fmt(q), f"{int(cf):,} → {int(ct):,}",
+                 links.get(w, "")]
+                for w, r, z, q, cf, ct in zip(
+                    part["word"], part["rank"], part["z"], part["q"], part["count_from"],
+                    part["count_to"], strict=True
+                )
+            ],
+            dtype=object,
+        ).reshape(-1, 6)
+        fig.add_trace(
+            go.Scatter(
+                x=rarer_count(part),
+                y=part[column].astype(float),
+                mode="markers",
+                marker=marker,
+                name=name,
+                customdata=custom,
+                hovertemplate=(
+                    "<b>%{customdata[0]}</b> (rank %{customdata[1]})<br>"
+                    f"{column} %{{y:.3f}}<br>"
+                    "z %{customdata[2]}, q %{customdata[3]}<br>"
+                    "count %{customdata[4]}<extra></extra>"
+                ),
+                meta=role,
+            )
+        )
+    note = "" if len(rows) == len(scores) else f" ({len(rows):,} of {len(scores):,} words drawn)"
+    fig.update_layout(
+        **_base_layout(
+            f"Change against frequency{note}",
+            "occurrences in the rarer of the two compared slices (log scale)",
+            MEASURE_TITLES.get(column, f"score ({plot_text(measure or 'score')})"),
+            height=460,
+        )
+    )
+    fig.update_xaxes(type="log")
+    return fig
+
+
+def terms_figure(terms: pd.DataFrame, *, slices: Sequence[str], per_kind: int = 6) -> go.Figure:
+    """Frequency curves (per million) of the strongest emerging and fading terms, side by side.
+
+    ``terms`` has columns ``word, kind, count_from, count_to, fpm_from, fpm_to`` and one
+    ``fpm:<label>`` column per slice.
+    """
+    x = list(slices)
+    fig = make_subplots(rows=1, cols=2, subplot_titles=("emerging", "fading"), shared_yaxes=False)
+    for col, kind in enumerate(("emerging", "fading"), start=1):
+        part = terms[terms["kind"] == kind]
+        growth = (part["fpm_to"] - part["fpm_from"]).abs()
+        part = part.loc[growth.sort_values(ascending=False, kind="stable").index].head(per_kind)
+        for i, (_, row) in enumerate(part.iterrows()):
+            values = [float(row.get(f"fpm:{label}", np.nan)) for label in x]
+            fig.add_trace(
+                go.Scatter(
+                    x=x,
+                    y=values,
+                    mode="lines+markers",
+                    name=plot_text(row["word"]),
+                    legendgroup=kind,
+                    legendgrouptitle={"text": kind},
+                    line={"color": LINE_COLOURS[i % len(LINE_COLOURS)],
+                          "dash": ["solid", "dash", "dot"][i // len(LINE_COLOURS) % 3]},
+                    hovertemplate=f"{plot_text(row['word'])}<br>%{{x}}: %{{y:.1f}} per million"
+                    "<extra></extra>",
+                    meta=kind,
+                ),
+                row=1,
+                col=col,
+            )
+    layout = _base_layout(
+        "Emerging and fading terms", "time slice", "per million tokens", height=440
+    )
+    layout.pop("xaxis")
+    layout.pop("yaxis")
+    layout["legend"] = {"orientation": "v", "x": 1.02, "y": 1, "groupclick": "toggleitem"}
+    fig.update_layout(**layout)
+    fig.update_xaxes(type="category", title_text="time slice")
+    fig.update_yaxes(title_text="per million tokens", col=1, gridcolor=LIGHT_GREY,
+                     showgrid=True)
+    fig.update_yaxes(gridcolor=LIGHT_GREY, showgrid=True, col=2)
+    return fig
