@@ -201,8 +201,8 @@ def neighbour_heatmap(
     """The union of the word's top neighbours (rows) against the slices (columns).
 
     ``neighbours`` has columns ``slice, rank, neighbour, similarity``. A cell holds the cosine
-    similarity where the neighbour is among the word's top ``k`` in that slice and is left empty
-    (grey) where it is not, so neighbours that arrive and leave stand out. Rows are ordered by the
+    similarity where the neighbour is among the word's top ``k`` in that slice and is left
+    (empty) where it is not, so neighbours that arrive and leave stand out. Rows are ordered by the
     slice where the neighbour first appears, then by its best rank.
     """
     x = list(slices)
@@ -233,7 +233,9 @@ def neighbour_heatmap(
         ]
         for name in names
     ]
-    colourscale = [[i / (len(YLORBR) - 1), c] for i, c in enumerate(YLORBR)]
+    # The palest classes are left out so a low similarity never looks like an empty cell.
+    colours = YLORBR[2:]
+    colourscale = [[i / (len(colours) - 1), c] for i, c in enumerate(colours)]
     fig = go.Figure(
         go.Heatmap(
             z=sim.to_numpy(dtype=float),
@@ -251,13 +253,12 @@ def neighbour_heatmap(
     )
     height = max(260, 120 + 24 * len(names))
     layout = _base_layout(
-        f"Nearest neighbours of “{plot_text(word)}” per slice ({k_text}; grey = not among them)",
+        f"Nearest neighbours of “{plot_text(word)}” per slice ({k_text}; empty = not among them)",
         "time slice",
         "neighbour",
         height=height,
     )
     layout["margin"] = {"l": 150, "r": 30, "t": 56, "b": 60}
-    layout["plot_bgcolor"] = LIGHT_GREY
     fig.update_layout(**layout)
     fig.update_xaxes(type="category", side="top", title={"standoff": 4}, showline=False, ticks="")
     fig.update_yaxes(

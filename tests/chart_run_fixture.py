@@ -13,6 +13,7 @@ that are data from strangers.
 from __future__ import annotations
 
 import atexit
+import random
 import re
 import shutil
 import tempfile
@@ -73,6 +74,60 @@ def _top_k(kv, word: str, k: int = K) -> set[str]:
     return {w for w, _ in kv.most_similar(word, topn=k)}
 
 
+def _train(corpus: Path, target: Path, seed: int):
+    """A tiny skip-gram model of one text file, saved as KeyedVectors at ``target``."""
+    model = Word2Vec(
+        corpus_file=str(corpus), vector_size=16, window=5, min_count=5, sg=1, negative=5,
+        epochs=3, workers=1, seed=1 + seed,
+    )
+    target.parent.mkdir(parents=True, exist_ok=True)
+    model.wv.save(str(target))
+    return model.wv
+
+
+def _displacement(kvs_from: list, kvs_to: list, words: list[str]) -> np.ndarray:
+    """Cosine distance per word and seed after orthogonal Procrustes (SciPy) of "to" onto "from"."""
+    per_seed = []
+    for kv_from, kv_to in zip(kvs_from, kvs_to, strict=True):
+        ref = _unit_centred(kv_from[words])
+        other = _unit_centred(kv_to[words])
+        rotation, _ = orthogonal_procrustes(other, ref)
+        aligned = other @ rotation
+        cosine = np.sum(aligned * ref, axis=1) / (
+            np.linalg.norm(aligned, axis=1) * np.linalg.norm(ref, axis=1)
+        )
+        per_seed.append(1.0 - cosine)
+    return np.stack(per_seed, axis=1)
+
+
+class _BinnedNull:
+    """Control displacements in four bins of log count (of the rarer side): median, sd, 95th."""
+
+    def __init__(self, values: np.ndarray, counts: np.ndarray):
+        self.values, self.counts = values, counts
+        edges = np.quantile(np.log(counts), [0.25, 0.5, 0.75])
+        self.edges = edges
+        which = np.digitize(np.log(counts), edges)
+        self.stats = [
+            (np.median(values[which == b]), values[which == b].std(ddof=1),
+             np.quantile(values[which == b], 0.95))
+            for b in range(4)
+        ]
+
+    def _column(self, counts: np.ndarray, i: int) -> np.ndarray:
+        which = np.digitize(np.log(np.maximum(counts, 1)), self.edges)
+        return np.array([self.stats[b][i] for b in which])
+
+    def p95(self, counts: np.ndarray) -> np.ndarray:
+        return self._column(counts, 2)
+
+    def score(self, values: np.ndarray, counts: np.ndarray):
+        centre, spread = self._column(counts, 0), self._column(counts, 1)
+        z = (values - centre) / spread
+        p = stats.norm.sf(z)
+        return centre, spread, z, p, stats.false_discovery_control(p)
+
+
 def build_fixture_run(root: Path) -> Path:
     """Write slices, models and rank files for a three-slice run under ``root``; return it."""
     paths = runfolder.prepare_run_folder(root)
@@ -105,56 +160,52 @@ def build_fixture_run(root: Path) -> Path:
     counts.reset_index().to_parquet(paths.counts, index=False)
     runfolder.record_stage(root, "slice", {"by": "year"}, "fixture", 0.0, {"labels": list(LABELS)})
 
-    # --- train stage: tiny models per slice and seed
-    models: dict[str, list] = {}
-    for label in LABELS:
-        models[label] = []
-        for seed in range(SEEDS):
-            model = Word2Vec(
-                corpus_file=str(paths.slice_file(label)),
-                vector_size=16,
-                window=5,
-                min_count=5,
-                sg=1,
-                negative=5,
-                epochs=3,
-                workers=1,
-                seed=1 + seed,
-            )
-            target = paths.model_file(label, seed)
-            target.parent.mkdir(parents=True, exist_ok=True)
-            model.wv.save(str(target))
-            models[label].append(model.wv)
+    # --- train stage: tiny models per slice and seed, and the time-shuffled control pair
+    reference, last = LABELS[0], LABELS[-1]
+    models = {
+        label: [_train(paths.slice_file(label), paths.model_file(label, seed), seed)
+                for seed in range(SEEDS)]
+        for label in LABELS
+    }
+    pooled = slices[reference] + slices[last]
+    random.Random(0).shuffle(pooled)
+    halves = {"control-a": pooled[: len(slices[reference])],
+              "control-b": pooled[len(slices[reference]) :]}
+    control = {}
+    for name, lines in halves.items():
+        text = paths.control_dir / "slices" / f"{name}.txt"
+        text.parent.mkdir(parents=True, exist_ok=True)
+        text.write_text("\n".join(lines) + "\n", encoding="utf-8")
+        control[name] = [_train(text, paths.control_model_file(name, seed), seed)
+                         for seed in range(SEEDS)]
     runfolder.record_stage(
         root, "train", {"dim": 16, "window": 5, "epochs": 3, "seeds": SEEDS}, "fixture", 0.0,
-        {"control": None},
+        {"control": {"between": [reference, last], "shuffle_seed": 0}},
     )
 
     # --- rank stage: timeline, scores, terms
-    reference, last = LABELS[0], LABELS[-1]
     shared = sorted(set.intersection(*(set(models[lb][0].index_to_key) for lb in LABELS)))
     totals = {label: int(counters[label].sum()) for label in LABELS}
-    distances = {}  # label -> (n_words, seeds)
-    for label in LABELS:
-        per_seed = []
-        for seed in range(SEEDS):
-            ref = _unit_centred(models[reference][seed][shared])
-            other = _unit_centred(models[label][seed][shared])
-            rotation, _ = orthogonal_procrustes(other, ref)
-            aligned = other @ rotation
-            cosine = np.sum(aligned * ref, axis=1) / (
-                np.linalg.norm(aligned, axis=1) * np.linalg.norm(ref, axis=1)
-            )
-            per_seed.append(1.0 - cosine)
-        distances[label] = np.stack(per_seed, axis=1)
+    control_words = sorted(
+        set(control["control-a"][0].index_to_key) & set(control["control-b"][0].index_to_key)
+    )
+    control_disp = _displacement(control["control-a"], control["control-b"], control_words)
+    control_counts = [
+        np.array([kv[0].get_vecattr(w, "count") for w in control_words])
+        for kv in control.values()
+    ]
+    null = _BinnedNull(control_disp.mean(axis=1), np.minimum(*control_counts))
+    distances = {
+        label: _displacement(models[reference], models[label], shared) for label in LABELS
+    }
+    ref_counts = np.array([counters[reference].get(w, 0) for w in shared])
     ref_sets = {w: _top_k(models[reference][0], w) for w in shared}
     rows = []
     for label in LABELS:
-        fpm = np.array([counters[label].get(w, 0) for w in shared]) * 1e6 / totals[label]
-        log_f = np.log10(np.maximum(fpm, 1e-9))
-        bins = pd.qcut(log_f, 4, labels=False, duplicates="drop")
+        counts_here = np.array([counters[label].get(w, 0) for w in shared])
+        fpm = counts_here * 1e6 / totals[label]
         dist = distances[label].mean(axis=1)
-        p95 = pd.Series(dist).groupby(bins).transform(lambda s: s.quantile(0.95)).to_numpy()
+        p95 = null.p95(np.minimum(ref_counts, counts_here))
         for i, word in enumerate(shared):
             other_set = _top_k(models[label][0], word)
             turnover = 1 - len(ref_sets[word] & other_set) / len(ref_sets[word] | other_set)
@@ -165,7 +216,7 @@ def build_fixture_run(root: Path) -> Path:
                     "distance": float(dist[i]),
                     "distance_sd": float(distances[label][i].std(ddof=1)),
                     "turnover": float(turnover),
-                    "count": int(counters[label].get(word, 0)),
+                    "count": int(counts_here[i]),
                     "fpm": float(fpm[i]),
                     "null_p95": float(p95[i]),
                 }
@@ -174,19 +225,14 @@ def build_fixture_run(root: Path) -> Path:
     timeline.to_parquet(paths.timeline_parquet, index=False)
 
     final = timeline[timeline.slice == last].set_index("word").loc[shared]
-    count_from = np.array([counters[reference].get(w, 0) for w in shared])
+    count_from = ref_counts
     count_to = final["count"].to_numpy()
     fpm_from = count_from * 1e6 / totals[reference]
     fpm_to = final["fpm"].to_numpy()
-    log_f = np.log10((fpm_from + fpm_to) / 2)
-    bins = pd.qcut(log_f, 4, labels=False, duplicates="drop")
     disp = final["distance"].to_numpy()
-    grouped = pd.Series(disp).groupby(bins)
-    centre = grouped.transform("median").to_numpy()
-    spread = grouped.transform("std").to_numpy()
-    z = (disp - centre) / spread
-    p = stats.norm.sf(z)
-    q = stats.false_discovery_control(p)
+    centre, spread, z, p, q = null.score(disp, np.minimum(count_from, count_to))
+    control_q = null.score(null.values, null.counts)[4]
+    control_flagged = int((control_q <= 0.05).sum())
     change_rows = timeline.pivot(index="word", columns="slice", values="distance").loc[shared]
     change_point, change_step = [], []
     for word in shared:
@@ -238,7 +284,7 @@ def build_fixture_run(root: Path) -> Path:
     fading = counts.index[(counts[reference] >= 3) & (counts[last] == 0)]
     term_rows = []
     for kind, words in (("emerging", emerging), ("fading", fading)):
-        for word in words[:15]:
+        for word in words[:8]:
             row = {
                 "word": word,
                 "kind": kind,
@@ -276,7 +322,7 @@ def build_fixture_run(root: Path) -> Path:
         },
         "fixture",
         0.0,
-        {"control_flagged": 3},
+        {"control_flagged": control_flagged},
     )
     return Path(root)
 
