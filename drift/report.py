@@ -20,7 +20,7 @@ import os
 import re
 import time
 from collections.abc import Iterable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, NamedTuple
 
@@ -74,7 +74,6 @@ class RunData:
     scores: pd.DataFrame
     timeline: pd.DataFrame
     terms: pd.DataFrame
-    _timeline_by_word: dict[str, pd.DataFrame] | None = field(default=None, repr=False)
 
     @property
     def rank_params(self) -> dict[str, Any]:
@@ -101,10 +100,7 @@ class RunData:
         return set(self.scores["word"]) | set(self.timeline["word"])
 
     def word_timeline(self, word: str) -> pd.DataFrame:
-        if self._timeline_by_word is None:
-            self._timeline_by_word = {w: t for w, t in self.timeline.groupby("word", sort=False)}
-        empty = self.timeline.iloc[0:0]
-        return self._timeline_by_word.get(word, empty)
+        return self.timeline[self.timeline["word"] == word]
 
     def score_row(self, word: str) -> pd.Series | None:
         hits = self.scores[self.scores["word"] == word]
@@ -677,10 +673,20 @@ def word_page_path(run: Path, word: str) -> Path:
 
 
 def _check_word(data: RunData, word: str) -> None:
-    if word not in data.known_words():
-        raise unknown_word_error(
-            word, data.known_words(), where=f"the measured words of {data.root}"
+    known = data.known_words()
+    if word in known:
+        return
+    term = data.terms[data.terms["word"] == word]
+    if not term.empty:
+        kind = str(term["kind"].iloc[0])
+        a, b = data.between
+        raise DriftError(
+            f"'{word}' was not measured: it is {'an' if kind[0] in 'aeiou' else 'a'} {kind} term "
+            f"(too rare in "
+            f"{a if kind == 'emerging' else b} to compare); see its frequencies in the report's "
+            f"emerging and fading terms ('drift report {data.root}')."
         )
+    raise unknown_word_error(word, known, where=f"the measured words of {data.root}")
 
 
 def _write_word_pages(

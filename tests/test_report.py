@@ -202,6 +202,17 @@ def test_unknown_word_suggests_close_words(run):
         report.chart_word(run, "goverment")
 
 
+def test_emerging_term_is_explained_not_just_unknown(run):
+    import pandas as pd
+
+    terms = pd.read_parquet(RunPaths(run).terms_parquet)
+    scored = set(pd.read_parquet(RunPaths(run).scores_parquet)["word"])
+    for kind in ("emerging", "fading"):
+        word = next(w for w in terms.loc[terms["kind"] == kind, "word"] if w not in scored)
+        with pytest.raises(DriftError, match=f"'{word}' was not measured: it is an? {kind} term"):
+            report.chart_word(run, word)
+
+
 def test_run_without_scores_is_a_clear_error(tmp_path):
     run = fixture_run_copy(tmp_path / "run")
     RunPaths(run).scores_parquet.unlink()
