@@ -1,0 +1,938 @@
+"""STAGE rank: align, measure, calibrate and rank every word; the timeline; emerging/fading terms.
+
+Reads the trained models (``models/<label>/seed-<k>.kv``), the control pair when there is one,
+``counts.parquet`` and ``slices/summary.csv``; writes ``scores.parquet``, ``scores.csv``,
+``timeline.parquet`` and ``terms.parquet`` (schemas in DEVELOPERS.md).
+
+How a run is scored (per seed, then averaged over seeds with the spread kept in ``*_sd``):
+
+1. Every slice's vectors are prepared (unit length, centred, unit length) and rotated onto the
+   reference slice by orthogonal Procrustes over the anchors (the timeline); the "to" slice of
+   the compared pair is also rotated directly onto the "from" slice (the pair's displacement).
+2. Each slice's top-k neighbour lists are computed once, in blocks, and reused for the pair's
+   turnover and local change and for the timeline's turnover. Neighbours are drawn from the
+   *candidate words*: the words every slice's models know, so a neighbour never drops out of a
+   list merely because it is missing from the other slice.
+3. The control pair (control-a vs control-b, the compared slices pooled and split at random) is
+   measured exactly like the compared pair; its measures, as a function of frequency, are the
+   null for z, p and q (:mod:`drift.calibration`).
+4. The combined measure is the mean of displacement and turnover, per seed: both are distances
+   between 0 and 1 for almost every word, and a word must move and change company to score high.
+
+``gained`` and ``lost`` come from consensus neighbour lists: the k best candidates by similarity
+averaged over seeds, searched in the union of the seeds' own lists.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from drift import runfolder
+from drift.alignment import AnchorSpec, SliceVectors, align_onto, parse_anchors, prepare_vectors
+from drift.changepoint import change_points
+from drift.errors import DriftError, unknown_word_error
+from drift.measures import (
+    Neighbours,
+    consensus_neighbours,
+    cosine_distance_rows,
+    jaccard_distance_rows,
+    local_change_rows,
+    mean_and_spread,
+    top_k_neighbours,
+)
+from drift.progress import progress_bars, stderr_console
+
+#: Neighbours per word for turnover and local change (provisional until the injection benchmark
+#: measures it; Hamilton, Leskovec and Jurafsky 2016 used 25 for the local measure, from memory).
+DEFAULT_K = 25
+#: The measure that ranks words by default (provisional until the injection benchmark).
+DEFAULT_MEASURE = "displacement"
+MEASURES = ("displacement", "turnover", "local", "combined")
+CONTROL_NAMES = ("control-a", "control-b")
+
+SCORE_COLUMNS = [
+    "word", "rank", "score", "displacement", "displacement_sd", "turnover", "turnover_sd",
+    "local", "local_sd", "count_from", "count_to", "fpm_from", "fpm_to", "log_freq_ratio",
+    "null_centre", "null_spread", "z", "p", "q", "significant", "change_point", "change_step",
+    "gained", "lost",
+]
+TIMELINE_COLUMNS = [
+    "word", "slice", "distance", "distance_sd", "turnover", "count", "fpm", "null_p95",
+]
+
+
+# ---------------------------------------------------------------------------- reading a run
+
+
+@dataclass(frozen=True)
+class RunInputs:
+    """What the rank stage reads from a run folder before touching any vectors."""
+
+    paths: runfolder.RunPaths
+    labels: list[str]
+    seeds: list[int]
+    control: dict[str, Any] | None
+    counts: pd.DataFrame  # index word, one int64 column per slice label
+    tokens: dict[str, int]
+    manifest: dict[str, Any] = field(repr=False)
+
+
+def _slice_labels(paths: runfolder.RunPaths, manifest: dict[str, Any]) -> list[str]:
+    labels = manifest.get("stages", {}).get("slice", {}).get("labels")
+    if labels:
+        return [str(label) for label in labels]
+    return [str(label) for label in pd.read_csv(paths.slice_summary, dtype={"label": str})["label"]]
+
+
+def _trained_seeds(paths: runfolder.RunPaths, labels: Sequence[str]) -> list[int]:
+    """Seeds trained for every slice (the seed-<k>.kv files present in each models/<label>/)."""
+    common: set[int] | None = None
+    for label in labels:
+        folder = paths.models_dir / label
+        found = {
+            int(p.stem.split("-", 1)[1])
+            for p in folder.glob("seed-*.kv")
+            if p.stem.split("-", 1)[1].isdigit()
+        }
+        if not found:
+            raise DriftError(
+                f"Slice {label} has no trained model in {folder}; train it with "
+                f"'drift train {paths.root}'."
+            )
+        common = found if common is None else common & found
+    if not common:
+        raise DriftError(
+            f"No seed was trained for every slice in {paths.models_dir}; "
+            f"retrain with 'drift train {paths.root}'."
+        )
+    return sorted(common)
+
+
+def read_run_inputs(run: str | Path) -> RunInputs:
+    """Open a trained run folder and read its labels, seeds, control info, counts and sizes."""
+    paths = runfolder.existing_run(Path(run), needs="models")
+    manifest = runfolder.read_manifest(paths.root)
+    if not paths.slice_summary.exists():
+        raise DriftError(f"{paths.root} has no slices/summary.csv; rerun 'drift slice'.")
+    labels = _slice_labels(paths, manifest)
+    if len(labels) < 2:
+        raise DriftError(
+            f"{paths.root} has {len(labels)} slice; ranking needs at least two, so slice the "
+            "archive into more periods."
+        )
+    seeds = _trained_seeds(paths, labels)
+    control = manifest.get("stages", {}).get("train", {}).get("control")
+    if control:
+        for name in CONTROL_NAMES:
+            for seed in seeds:
+                if not paths.control_model_file(name, seed).exists():
+                    raise DriftError(
+                        f"The control model {paths.control_model_file(name, seed)} is missing; "
+                        f"retrain with 'drift train {paths.root}'."
+                    )
+    summary = pd.read_csv(paths.slice_summary, dtype={"label": str})
+    tokens = {str(r.label): int(r.tokens) for r in summary.itertuples()}
+    if not paths.counts.exists():
+        raise DriftError(f"{paths.root} has no counts.parquet; rerun 'drift slice'.")
+    counts = pd.read_parquet(paths.counts).set_index("word")
+    return RunInputs(paths, labels, seeds, control or None, counts, tokens, manifest)
+
+
+def _load_keyed_vectors(paths: runfolder.RunPaths, label: str, seed: int, control: bool):
+    """One saved model's KeyedVectors (private stand-in for drift.training.load_vectors)."""
+    from gensim.models import KeyedVectors
+
+    path = paths.control_model_file(label, seed) if control else paths.model_file(label, seed)
+    if not path.exists():
+        raise DriftError(f"The model {path} is missing; train it with 'drift train {paths.root}'.")
+    return KeyedVectors.load(str(path), mmap=None)
+
+
+def load_slice_vectors(
+    paths: runfolder.RunPaths, label: str, seed: int, control: bool = False
+) -> SliceVectors:
+    """A slice's (or control model's) words, prepared vectors and counts for one seed."""
+    kv = _load_keyed_vectors(paths, label, seed, control)
+    words = list(kv.index_to_key)
+    if "count" in kv.expandos:
+        counts = np.asarray(kv.expandos["count"], dtype=np.int64)
+    else:
+        counts = np.zeros(len(words), dtype=np.int64)
+    return SliceVectors(label, words, prepare_vectors(kv.vectors), counts)
+
+
+def candidate_words(slices: Sequence[SliceVectors]) -> list[str]:
+    """Words every given model knows, in the first model's order (the neighbour candidates)."""
+    first, rest = slices[0], slices[1:]
+    return [w for w in first.words if all(w in s.index for s in rest)]
+
+
+# ---------------------------------------------------------------------------- options
+
+
+def resolve_slices(
+    labels: Sequence[str], between: Sequence[str] | None, reference: str | None
+) -> tuple[str, str, str]:
+    """The compared pair (first and last slice by default) and the reference (first slice)."""
+
+    def known(label: str, option: str) -> str:
+        label = str(label)
+        if label not in labels:
+            raise DriftError(
+                f"{option} {label} is not a slice of this run; its slices are {', '.join(labels)}."
+            )
+        return label
+
+    if between is None or len(between) == 0:
+        slice_from, slice_to = labels[0], labels[-1]
+    else:
+        if len(between) != 2:
+            raise DriftError("--between takes two slice labels, e.g. --between 1990 2000.")
+        slice_from, slice_to = known(between[0], "--between"), known(between[1], "--between")
+        if slice_from == slice_to:
+            raise DriftError(
+                f"--between names slice {slice_from} twice; give two different slices."
+            )
+    ref = labels[0] if reference is None else known(reference, "--reference")
+    return slice_from, slice_to, ref
+
+
+def _check_options(measure: str, k: int, alpha: float) -> None:
+    if measure not in MEASURES:
+        raise DriftError(f"--measure {measure} is unknown; choose one of {', '.join(MEASURES)}.")
+    if isinstance(k, bool) or not isinstance(k, int | np.integer) or k < 1:
+        raise DriftError(f"--k must be a whole number of at least 1 (got {k}).")
+    if not 0.0 < float(alpha) < 1.0:
+        raise DriftError(f"--alpha must lie strictly between 0 and 1 (got {alpha}); use e.g. 0.05.")
+
+
+def _anchor_record(raw: Any, spec: AnchorSpec) -> Any:
+    """How the anchors appear in run.json: a number, a file path, or the word list itself."""
+    if spec is None or isinstance(spec, int):
+        return spec
+    if isinstance(raw, str | Path):
+        return str(raw)
+    return list(spec)
+
+
+# ---------------------------------------------------------------------------- one seed
+
+
+def slice_neighbours(
+    vectors: SliceVectors,
+    words: Sequence[str],
+    candidates: np.ndarray,
+    candidate_index: dict[str, int],
+    k: int,
+) -> Neighbours:
+    """Top-k candidate neighbours of ``words`` in one slice; -1 rows for words it lacks."""
+    present = np.fromiter((w in vectors.index for w in words), dtype=bool, count=len(words))
+    present_words = [w for w, p in zip(words, present, strict=True) if p]
+    exclude = np.array([candidate_index.get(w, -1) for w in present_words], dtype=np.int64)
+    found = top_k_neighbours(vectors.vectors[vectors.rows(present_words)], candidates, k, exclude)
+    indices = np.full((len(words), k), -1, dtype=np.int32)
+    similarities = np.full((len(words), k), np.nan, dtype=np.float32)
+    indices[present] = found.indices
+    similarities[present] = found.similarities
+    return Neighbours(indices, similarities)
+
+
+def _rows_or_missing(vectors: SliceVectors, words: Sequence[str]) -> tuple[np.ndarray, np.ndarray]:
+    """Row numbers of ``words`` in a slice (0 where missing) and the mask of present words."""
+    rows = np.fromiter((vectors.index.get(w, -1) for w in words), dtype=np.int64, count=len(words))
+    return np.maximum(rows, 0), rows >= 0
+
+
+def displacement_rows(
+    moved: SliceVectors, fixed: SliceVectors, rotation: np.ndarray, words: Sequence[str]
+) -> np.ndarray:
+    """Cosine distance of each word between ``moved`` (rotated) and ``fixed``; NaN if missing."""
+    rows_m, in_m = _rows_or_missing(moved, words)
+    rows_f, in_f = _rows_or_missing(fixed, words)
+    out = cosine_distance_rows(moved.vectors[rows_m] @ rotation, fixed.vectors[rows_f])
+    out[~(in_m & in_f)] = np.nan
+    return out
+
+
+@dataclass
+class PairMeasures:
+    """One seed's measures of the words of a compared pair, plus what gained/lost needs."""
+
+    words: list[str]
+    displacement: np.ndarray
+    turnover: np.ndarray
+    local: np.ndarray
+    counts_from: np.ndarray
+    counts_to: np.ndarray
+    vectors_from: np.ndarray
+    vectors_to: np.ndarray
+    candidates_from: np.ndarray
+    candidates_to: np.ndarray
+    neighbours_from: Neighbours
+    neighbours_to: Neighbours
+
+    def value(self, measure: str) -> np.ndarray:
+        if measure == "combined":
+            return (self.displacement + self.turnover) / 2.0
+        return getattr(self, measure)
+
+
+def measure_pair(
+    slice_from: SliceVectors,
+    slice_to: SliceVectors,
+    words: Sequence[str],
+    candidate_index: dict[str, int],
+    candidates_from: np.ndarray,
+    candidates_to: np.ndarray,
+    neighbours_from: Neighbours,
+    neighbours_to: Neighbours,
+    rotation_to_onto_from: np.ndarray,
+) -> PairMeasures:
+    """Displacement, turnover and local change of ``words`` (known to both slices)."""
+    rows_from, rows_to = slice_from.rows(words), slice_to.rows(words)
+    vectors_from = slice_from.vectors[rows_from]
+    vectors_to = slice_to.vectors[rows_to]
+    displacement = cosine_distance_rows(vectors_to @ rotation_to_onto_from, vectors_from)
+    turnover = jaccard_distance_rows(neighbours_from.indices, neighbours_to.indices)
+    local = local_change_rows(
+        vectors_from, candidates_from, neighbours_from.indices,
+        vectors_to, candidates_to, neighbours_to.indices,
+    )
+    return PairMeasures(
+        list(words), displacement, turnover, local,
+        slice_from.counts[rows_from], slice_to.counts[rows_to],
+        vectors_from, vectors_to, candidates_from, candidates_to, neighbours_from, neighbours_to,
+    )
+
+
+def _check_k(k: int, n_candidates: int, what: str) -> None:
+    if n_candidates <= k:
+        raise DriftError(
+            f"Only {n_candidates} words are known to {what}, too few for --k {k} neighbours; "
+            "use a smaller --k or more text per slice."
+        )
+
+
+@dataclass
+class SeedResult:
+    """Everything measured with one seed."""
+
+    pair: PairMeasures
+    distance: np.ndarray  # words x slices, against the reference
+    turnover: np.ndarray  # words x slices, against the reference
+    control: PairMeasures | None
+
+
+def measure_seed(
+    inputs: RunInputs,
+    seed: int,
+    words: list[str],
+    pair: tuple[str, str],
+    reference: str,
+    k: int,
+    anchors: AnchorSpec,
+    advance: Any = None,
+) -> tuple[SeedResult, list[str]]:
+    """Load one seed's models, align, measure the pair, the timeline and the control pair."""
+    labels = inputs.labels
+    slices = {label: load_slice_vectors(inputs.paths, label, seed) for label in labels}
+    cand_words = candidate_words([slices[label] for label in labels])
+    _check_k(k, len(cand_words), "every slice")
+    cand_index = {w: i for i, w in enumerate(cand_words)}
+    candidates = {label: s.vectors[s.rows(cand_words)] for label, s in slices.items()}
+    neighbours = {}
+    for label in labels:
+        neighbours[label] = slice_neighbours(slices[label], words, candidates[label], cand_index, k)
+        if advance:
+            advance()
+
+    ref = slices[reference]
+    rotations = {
+        label: align_onto(slices[label], ref, anchors) for label in labels if label != reference
+    }
+    rotations[reference] = np.eye(ref.vectors.shape[1])
+    distance = np.column_stack(
+        [displacement_rows(slices[label], ref, rotations[label], words) for label in labels]
+    )
+    at_reference = labels.index(reference)
+    distance[:, at_reference] = np.where(np.isfinite(distance[:, at_reference]), 0.0, np.nan)
+    turnover = np.column_stack(
+        [
+            jaccard_distance_rows(neighbours[label].indices, neighbours[reference].indices)
+            for label in labels
+        ]
+    )
+    slice_from, slice_to = pair
+    if slice_from == reference:
+        rotation = rotations[slice_to]
+    else:
+        rotation = align_onto(slices[slice_to], slices[slice_from], anchors)
+    pair_result = measure_pair(
+        slices[slice_from], slices[slice_to], words, cand_index,
+        candidates[slice_from], candidates[slice_to],
+        neighbours[slice_from], neighbours[slice_to], rotation,
+    )
+    del slices, candidates, neighbours
+
+    control = None
+    if inputs.control:
+        control = measure_control(inputs, seed, cand_words, k, anchors, advance)
+    return SeedResult(pair_result, distance, turnover, control), cand_words
+
+
+def measure_control(
+    inputs: RunInputs,
+    seed: int,
+    cand_words: Sequence[str],
+    k: int,
+    anchors: AnchorSpec,
+    advance: Any = None,
+) -> PairMeasures:
+    """The control pair (control-a vs control-b) measured exactly like the compared pair."""
+    first, second = (
+        load_slice_vectors(inputs.paths, name, seed, control=True) for name in CONTROL_NAMES
+    )
+    words = [w for w in first.words if w in second.index]
+    ctrl_cands = [w for w in cand_words if w in first.index and w in second.index]
+    _check_k(k, len(ctrl_cands), "both control models and every slice")
+    cand_index = {w: i for i, w in enumerate(ctrl_cands)}
+    cands_first = first.vectors[first.rows(ctrl_cands)]
+    cands_second = second.vectors[second.rows(ctrl_cands)]
+    near_first = slice_neighbours(first, words, cands_first, cand_index, k)
+    if advance:
+        advance()
+    near_second = slice_neighbours(second, words, cands_second, cand_index, k)
+    if advance:
+        advance()
+    rotation = align_onto(second, first, anchors)
+    return measure_pair(
+        first, second, words, cand_index, cands_first, cands_second,
+        near_first, near_second, rotation,
+    )
+
+
+# ---------------------------------------------------------------------------- assembling
+
+
+def _counts_for(inputs: RunInputs, words: Sequence[str], label: str, fallback: np.ndarray | None):
+    """Counts of ``words`` in slice ``label`` from counts.parquet (``fallback`` where absent)."""
+    if label in inputs.counts.columns:
+        found = inputs.counts[label].reindex(list(words)).to_numpy(dtype=np.float64)
+    else:
+        found = np.full(len(words), np.nan)
+    missing = ~np.isfinite(found)
+    if fallback is not None:
+        found[missing] = fallback[missing]
+    else:
+        found[missing] = 0
+    return found.astype(np.int64)
+
+
+def _per_million(counts: np.ndarray, tokens: int | None) -> np.ndarray:
+    if not tokens:
+        return np.full(len(counts), np.nan)
+    return counts.astype(np.float64) * 1e6 / tokens
+
+
+def _row_members(values: np.ndarray, within: np.ndarray) -> np.ndarray:
+    """``out[i, j]`` is True when ``values[i, j]`` occurs in row ``within[i]``."""
+    return (values[:, :, None] == within[:, None, :]).any(axis=2)
+
+
+def gained_and_lost(
+    results: Sequence[SeedResult], cand_words: Sequence[str], k: int
+) -> tuple[list[str], list[str]]:
+    """Neighbours gained (new in "to") and lost (gone from "from"), space separated, strongest
+    first, from the seed-averaged consensus lists."""
+    pairs = [r.pair for r in results]
+    before = consensus_neighbours(
+        [p.vectors_from for p in pairs], [p.candidates_from for p in pairs],
+        [p.neighbours_from.indices for p in pairs], k,
+    )
+    after = consensus_neighbours(
+        [p.vectors_to for p in pairs], [p.candidates_to for p in pairs],
+        [p.neighbours_to.indices for p in pairs], k,
+    )
+    new = ~_row_members(after.indices, before.indices) & (after.indices >= 0)
+    gone = ~_row_members(before.indices, after.indices) & (before.indices >= 0)
+    vocab = np.asarray(cand_words, dtype=object)
+    gained = [" ".join(vocab[row[keep]]) for row, keep in zip(after.indices, new, strict=True)]
+    lost = [" ".join(vocab[row[keep]]) for row, keep in zip(before.indices, gone, strict=True)]
+    return gained, lost
+
+
+def emerging_and_fading(
+    inputs: RunInputs, vocab_from: SliceVectors, vocab_to: SliceVectors
+) -> pd.DataFrame:
+    """Words known to one compared slice's model and not the other's (below its min count)."""
+    emerging = [w for w in vocab_to.words if w not in vocab_from.index]
+    fading = [w for w in vocab_from.words if w not in vocab_to.index]
+    frames = []
+    for kind, words, present, absent_label in (
+        ("emerging", emerging, vocab_to, vocab_from.label),
+        ("fading", fading, vocab_from, vocab_to.label),
+    ):
+        model_counts = present.counts[present.rows(words)] if words else np.zeros(0, np.int64)
+        count_present = _counts_for(inputs, words, present.label, model_counts)
+        count_absent = _counts_for(inputs, words, absent_label, None)
+        count_from, count_to = (
+            (count_absent, count_present) if kind == "emerging" else (count_present, count_absent)
+        )
+        frame = pd.DataFrame(
+            {
+                "word": pd.Series(words, dtype=object),
+                "kind": kind,
+                "count_from": count_from,
+                "count_to": count_to,
+                "fpm_from": _per_million(count_from, inputs.tokens.get(vocab_from.label)),
+                "fpm_to": _per_million(count_to, inputs.tokens.get(vocab_to.label)),
+            }
+        )
+        for label in inputs.labels:
+            frame[f"fpm:{label}"] = _per_million(
+                _counts_for(inputs, words, label, None), inputs.tokens.get(label)
+            )
+        order = "count_to" if kind == "emerging" else "count_from"
+        frames.append(frame.sort_values([order, "word"], ascending=[False, True], kind="stable"))
+    return pd.concat(frames, ignore_index=True)
+
+
+def _calibration(
+    values: np.ndarray,
+    count_from: np.ndarray,
+    count_to: np.ndarray,
+    control: list[PairMeasures],
+    measure: str,
+    alpha: float,
+):
+    """(calibration columns, the displacement null or None, control_flagged) for the scores."""
+    from drift.calibration import CALIBRATION_COLUMNS, fit_null
+
+    if not control:
+        empty = pd.DataFrame({c: np.full(len(values), np.nan) for c in CALIBRATION_COLUMNS})
+        empty["significant"] = False
+        return empty, None, None
+    first = control[0]
+    control_values, _ = mean_and_spread([c.value(measure) for c in control])
+    null = fit_null(control_values, first.counts_from, first.counts_to, alpha=alpha)
+    columns = null.score(values, count_from, count_to, alpha)
+    if measure == "displacement":
+        displacement_null = null
+    else:
+        control_disp, _ = mean_and_spread([c.displacement for c in control])
+        displacement_null = fit_null(control_disp, first.counts_from, first.counts_to, alpha=alpha)
+    return columns, displacement_null, int(null.control_flagged)
+
+
+def _note(message: str, quiet: bool) -> None:
+    if not quiet:
+        stderr_console.print(f"note: {message}", markup=False, highlight=False)
+
+
+def _inputs_fingerprint(inputs: RunInputs, anchor_words_list: list[str] | None) -> str:
+    stages = inputs.manifest.get("stages", {})
+    parts = {
+        "slice": stages.get("slice", {}).get("fingerprint"),
+        "train": stages.get("train", {}).get("fingerprint"),
+        "models": runfolder.fingerprint_path(inputs.paths.models_dir),
+        "counts": runfolder.fingerprint_file(inputs.paths.counts),
+        "summary": runfolder.fingerprint_file(inputs.paths.slice_summary),
+        "anchors": anchor_words_list,
+    }
+    if inputs.control and inputs.paths.control_dir.is_dir():
+        parts["control"] = runfolder.fingerprint_path(inputs.paths.control_dir)
+    return runfolder.fingerprint_params(parts)
+
+
+def rank_run(
+    run: str | Path,
+    *,
+    between: Sequence[str] | None = None,
+    reference: str | None = None,
+    measure: str = DEFAULT_MEASURE,
+    k: int = DEFAULT_K,
+    alpha: float = 0.05,
+    anchors: str | int | Sequence[str] | None = None,
+    quiet: bool = False,
+) -> pd.DataFrame:
+    """Score every word of the compared pair; write scores, timeline and terms; return scores.
+
+    ``between``: the two compared slices (first and last by default); ``reference``: the slice
+    the timeline is measured against (the first by default); ``anchors``: a number N (the N most
+    frequent shared words), a word-list file path, or a list of words (all shared words by
+    default). Reuses the files of an earlier run with the same inputs and parameters.
+    """
+    started = time.perf_counter()
+    _check_options(measure, k, alpha)
+    inputs = read_run_inputs(run)
+    root = inputs.paths.root
+    slice_from, slice_to, ref = resolve_slices(inputs.labels, between, reference)
+    anchor_spec = parse_anchors(anchors)
+    params = {
+        "between": [slice_from, slice_to],
+        "reference": ref,
+        "measure": measure,
+        "k": int(k),
+        "alpha": float(alpha),
+        "anchors": _anchor_record(anchors, anchor_spec),
+    }
+    fingerprint = _inputs_fingerprint(
+        inputs, list(anchor_spec) if isinstance(anchor_spec, list) else None
+    )
+    paths = inputs.paths
+    outputs = (paths.scores_parquet, paths.timeline_parquet, paths.terms_parquet)
+    if runfolder.stage_is_current(root, "rank", params, fingerprint) and all(
+        p.exists() for p in outputs
+    ):
+        _note(f"scores in {root} are current; reusing them.", quiet)
+        return read_scores(root)
+
+    with runfolder.run_lock(root):
+        scores, timeline, terms, extra = compute_scores(
+            inputs, (slice_from, slice_to), ref, measure, int(k), float(alpha), anchor_spec, quiet
+        )
+        with runfolder.atomic_path(inputs.paths.scores_parquet) as tmp:
+            scores.to_parquet(tmp, index=False)
+        with runfolder.atomic_path(inputs.paths.scores_csv) as tmp:
+            scores.to_csv(tmp, index=False)
+        with runfolder.atomic_path(inputs.paths.timeline_parquet) as tmp:
+            timeline.to_parquet(tmp, index=False)
+        with runfolder.atomic_path(inputs.paths.terms_parquet) as tmp:
+            terms.to_parquet(tmp, index=False)
+        runfolder.record_stage(
+            root, "rank", params, fingerprint, time.perf_counter() - started, extra=extra
+        )
+    return read_scores(root)  # the same types as a reused result
+
+
+def compute_scores(
+    inputs: RunInputs,
+    pair: tuple[str, str],
+    reference: str,
+    measure: str,
+    k: int,
+    alpha: float,
+    anchors: AnchorSpec,
+    quiet: bool = False,
+) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame, dict[str, Any]]:
+    """The rank stage's tables (scores, timeline, terms) and the extra run.json entries."""
+    slice_from, slice_to = pair
+    if inputs.control is None:
+        _note(
+            "this run has no control pair (trained with --no-control), so z, p and q are empty "
+            "and the ranking is descriptive; retrain without --no-control to calibrate it.",
+            quiet,
+        )
+    elif list(inputs.control.get("between", pair)) != [slice_from, slice_to]:
+        drawn = " and ".join(str(x) for x in inputs.control.get("between", []))
+        _note(
+            f"the control pair was drawn from slices {drawn}, not {slice_from} and {slice_to}; "
+            "its null fits slices of those sizes.",
+            quiet,
+        )
+
+    first_seed = inputs.seeds[0]
+    vocab_from = load_slice_vectors(inputs.paths, slice_from, first_seed)
+    vocab_to = load_slice_vectors(inputs.paths, slice_to, first_seed)
+    words = [w for w in vocab_from.words if w in vocab_to.index]
+    if not words:
+        raise DriftError(
+            f"Slices {slice_from} and {slice_to} share no words; check the slicing and min count."
+        )
+    steps = len(inputs.seeds) * (len(inputs.labels) + (2 if inputs.control else 0))
+    results: list[SeedResult] = []
+    cand_words: list[str] = []
+    with progress_bars(quiet) as progress:
+        task = progress.add_task("rank: neighbours", total=steps)
+
+        def advance() -> None:
+            progress.advance(task)
+
+        for seed in inputs.seeds:
+            result, seed_cands = measure_seed(
+                inputs, seed, words, pair, reference, k, anchors, advance
+            )
+            if cand_words and seed_cands != cand_words:
+                raise DriftError(
+                    "The seeds of this run have different vocabularies; retrain with "
+                    f"'drift train {inputs.paths.root}' so every seed uses the same slices."
+                )
+            cand_words = seed_cands
+            results.append(result)
+
+    scores = _scores_frame(inputs, results, words, pair, measure, vocab_from, vocab_to)
+    controls = [r.control for r in results if r.control is not None]
+    calibration, displacement_null, flagged = _calibration(
+        scores["score"].to_numpy(), scores["count_from"].to_numpy(),
+        scores["count_to"].to_numpy(), controls, measure, alpha,
+    )
+    for column in calibration.columns:
+        scores[column] = calibration[column].to_numpy()
+
+    distance, distance_sd = mean_and_spread([r.distance for r in results])
+    turnover, _ = mean_and_spread([r.turnover for r in results])
+    if len(inputs.labels) > 2:
+        position, step = change_points(distance)
+        labels = np.asarray(inputs.labels, dtype=object)
+        scores["change_point"] = pd.Series(
+            np.where(position >= 0, labels[np.maximum(position, 0)], None), dtype=object
+        )
+        scores["change_step"] = step
+    else:
+        scores["change_point"] = pd.Series([None] * len(words), dtype=object)
+        scores["change_step"] = np.nan
+    scores["gained"], scores["lost"] = gained_and_lost(results, cand_words, k)
+
+    timeline = _timeline_frame(inputs, words, distance, distance_sd, turnover, reference,
+                               displacement_null)
+    scores = scores.sort_values(
+        ["score", "word"], ascending=[False, True], na_position="last", kind="stable"
+    ).reset_index(drop=True)
+    scores["rank"] = np.arange(1, len(scores) + 1, dtype=np.int64)
+    scores = scores[SCORE_COLUMNS]
+    terms = emerging_and_fading(inputs, vocab_from, vocab_to)
+    extra = {
+        "control_flagged": flagged,
+        "seeds": list(inputs.seeds),
+        "words": len(words),
+        "candidates": len(cand_words),
+    }
+    return scores, timeline, terms, extra
+
+
+def _scores_frame(
+    inputs: RunInputs,
+    results: Sequence[SeedResult],
+    words: list[str],
+    pair: tuple[str, str],
+    measure: str,
+    vocab_from: SliceVectors,
+    vocab_to: SliceVectors,
+) -> pd.DataFrame:
+    """The measure columns of the scores table (calibration and change point come later)."""
+    slice_from, slice_to = pair
+    pairs = [r.pair for r in results]
+    columns: dict[str, Any] = {"word": pd.Series(words, dtype=object), "rank": 0}
+    columns["score"], _ = mean_and_spread([p.value(measure) for p in pairs])
+    for name in ("displacement", "turnover", "local"):
+        columns[name], columns[f"{name}_sd"] = mean_and_spread([getattr(p, name) for p in pairs])
+    count_from = _counts_for(inputs, words, slice_from, vocab_from.counts[vocab_from.rows(words)])
+    count_to = _counts_for(inputs, words, slice_to, vocab_to.counts[vocab_to.rows(words)])
+    fpm_from = _per_million(count_from, inputs.tokens.get(slice_from))
+    fpm_to = _per_million(count_to, inputs.tokens.get(slice_to))
+    columns.update(count_from=count_from, count_to=count_to, fpm_from=fpm_from, fpm_to=fpm_to)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        columns["log_freq_ratio"] = np.log2(fpm_to / fpm_from)
+    return pd.DataFrame(columns)
+
+
+def _timeline_frame(
+    inputs: RunInputs,
+    words: list[str],
+    distance: np.ndarray,
+    distance_sd: np.ndarray,
+    turnover: np.ndarray,
+    reference: str,
+    displacement_null: Any,
+) -> pd.DataFrame:
+    """One row per word and slice (word-major order)."""
+    labels = inputs.labels
+    counts = np.column_stack([_counts_for(inputs, words, label, None) for label in labels])
+    fpm = np.column_stack(
+        [_per_million(counts[:, i], inputs.tokens.get(label)) for i, label in enumerate(labels)]
+    )
+    null_p95 = np.full(distance.shape, np.nan)
+    if displacement_null is not None:
+        ref_counts = counts[:, labels.index(reference)][:, None]
+        rarer = np.minimum(ref_counts, counts)
+        measured = np.isfinite(distance)
+        null_p95[measured] = displacement_null.quantile(rarer[measured], 0.95)
+    n_words, n_slices = distance.shape
+    return pd.DataFrame(
+        {
+            "word": pd.Series(np.repeat(np.asarray(words, dtype=object), n_slices), dtype=object),
+            "slice": pd.Series(np.tile(np.asarray(labels, dtype=object), n_words), dtype=object),
+            "distance": distance.ravel(),
+            "distance_sd": distance_sd.ravel(),
+            "turnover": turnover.ravel(),
+            "count": counts.ravel(),
+            "fpm": fpm.ravel(),
+            "null_p95": null_p95.ravel(),
+        }
+    )[TIMELINE_COLUMNS]
+
+
+# ---------------------------------------------------------------------------- reading results
+
+
+def _read_table(run: str | Path, path_of: str, what: str) -> pd.DataFrame:
+    paths = runfolder.existing_run(Path(run), needs="scores")
+    path = getattr(paths, path_of)
+    if not path.exists():
+        raise DriftError(
+            f"{paths.root} has no {what} yet; compute it with 'drift rank {paths.root}'."
+        )
+    return pd.read_parquet(path)
+
+
+def read_scores(run: str | Path) -> pd.DataFrame:
+    """The scores table of a ranked run (scores.parquet), best first."""
+    return _read_table(run, "scores_parquet", "scores")
+
+
+def read_timeline(run: str | Path) -> pd.DataFrame:
+    """One row per word and slice: distance and turnover against the reference, counts, null_p95."""
+    return _read_table(run, "timeline_parquet", "timeline")
+
+
+def read_terms(run: str | Path) -> pd.DataFrame:
+    """Emerging and fading terms with their frequency per slice."""
+    return _read_table(run, "terms_parquet", "emerging and fading terms")
+
+
+def top_rows(
+    scores: pd.DataFrame, top: int = 30, all_rows: bool = False, min_count: int = 0
+) -> pd.DataFrame:
+    """The rows to show: best first, words seen at least ``min_count`` times in both slices."""
+    if top < 1 and not all_rows:
+        raise DriftError(f"--top must be at least 1 (got {top}); use --all to show every word.")
+    if min_count < 0:
+        raise DriftError(f"--min-count must be 0 or more (got {min_count}).")
+    shown = scores[(scores["count_from"] >= min_count) & (scores["count_to"] >= min_count)]
+    shown = shown.sort_values("rank", kind="stable")
+    return shown if all_rows else shown.head(top)
+
+
+def rows_as_json(rows: pd.DataFrame) -> str:
+    """A JSON array of row objects; NaN and missing values become null."""
+    records = json.loads(rows.to_json(orient="records", force_ascii=False, double_precision=15))
+    return json.dumps(records, ensure_ascii=False, indent=1)
+
+
+# ---------------------------------------------------------------------------- neighbours, export
+
+
+def neighbours_by_slice(run: str | Path, word: str, k: int = 10) -> pd.DataFrame:
+    """The ``k`` nearest candidate words of ``word`` in every slice that knows it.
+
+    Columns slice, rank, neighbour, similarity. The similarity is the cosine of the prepared
+    vectors averaged over seeds (every seed's similarity to every candidate, then the k best of
+    the average); the candidates are the words every slice knows, as in the rank stage.
+    """
+    if isinstance(k, bool) or not isinstance(k, int | np.integer) or k < 1:
+        raise DriftError(f"--k must be a whole number of at least 1 (got {k}).")
+    inputs = read_run_inputs(run)
+    per_seed = {
+        seed: {label: load_slice_vectors(inputs.paths, label, seed) for label in inputs.labels}
+        for seed in inputs.seeds
+    }
+    everything = [s for slices in per_seed.values() for s in slices.values()]
+    if not any(word in s.index for s in everything):
+        known = {w for s in everything for w in s.words}
+        raise unknown_word_error(word, known, where="any slice of this run")
+    cand_words = candidate_words(everything)
+    _check_k(k, len(cand_words), "every slice")
+    frames = []
+    for label in inputs.labels:
+        if word not in per_seed[inputs.seeds[0]][label].index:
+            continue
+        total = np.zeros(len(cand_words))
+        for slices in per_seed.values():
+            vectors = slices[label].vectors
+            rows = slices[label].rows(cand_words)
+            total += vectors[rows] @ vectors[slices[label].index[word]]
+        mean = total / len(per_seed)
+        if word in cand_words:
+            mean[cand_words.index(word)] = -np.inf
+        best = np.argsort(-mean, kind="stable")[:k]
+        frames.append(
+            pd.DataFrame(
+                {
+                    "slice": label,
+                    "rank": np.arange(1, len(best) + 1),
+                    "neighbour": pd.Series([cand_words[i] for i in best], dtype=object),
+                    "similarity": mean[best],
+                }
+            )
+        )
+    return pd.concat(frames, ignore_index=True)
+
+
+EXPORT_FORMATS = ("word2vec", "npz")
+
+
+def export_vectors(
+    run: str | Path,
+    out: str | Path,
+    fmt: str = "word2vec",
+    *,
+    reference: str | None = None,
+    anchors: str | int | Sequence[str] | None = None,
+) -> list[Path]:
+    """Write every slice's aligned vectors (seed 0) into ``out``; return the files written.
+
+    The vectors are the prepared ones (unit length, centred) of the first trained seed, rotated
+    onto the reference slice by orthogonal Procrustes: ``<label>.txt`` in word2vec text format
+    (gensim's ``save_word2vec_format``) or ``<label>.npz`` with arrays ``words``, ``vectors``,
+    ``counts``. ``reference`` and ``anchors`` default to those of the last ``drift rank``.
+    """
+    if fmt not in EXPORT_FORMATS:
+        raise DriftError(f"--format {fmt} is unknown for export; choose word2vec or npz.")
+    inputs = read_run_inputs(run)
+    recorded = inputs.manifest.get("stages", {}).get("rank", {}).get("params", {})
+    reference = reference if reference is not None else recorded.get("reference")
+    anchors = anchors if anchors is not None else recorded.get("anchors")
+    _, _, ref = resolve_slices(inputs.labels, None, reference)
+    anchor_spec = parse_anchors(anchors)
+    out = Path(out)
+    if out.exists() and not out.is_dir():
+        raise DriftError(f"--out {out} is a file; give a folder for the exported vectors.")
+    out.mkdir(parents=True, exist_ok=True)
+    seed = inputs.seeds[0]
+    target = load_slice_vectors(inputs.paths, ref, seed)
+    written = []
+    for label in inputs.labels:
+        vectors = target if label == ref else load_slice_vectors(inputs.paths, label, seed)
+        aligned = vectors.vectors
+        if label != ref:
+            rotation = align_onto(vectors, target, anchor_spec)
+            aligned = (vectors.vectors @ rotation).astype(np.float32)
+        written.append(_write_vectors(out, label, vectors, aligned, fmt))
+    return written
+
+
+def _write_vectors(
+    out: Path, label: str, vectors: SliceVectors, aligned: np.ndarray, fmt: str
+) -> Path:
+    if fmt == "npz":
+        path = out / f"{label}.npz"
+        with runfolder.atomic_path(path) as tmp, tmp.open("wb") as handle:
+            np.savez(
+                handle,
+                words=np.asarray(vectors.words, dtype=str),
+                vectors=aligned,
+                counts=vectors.counts,
+            )
+        return path
+    from gensim.models import KeyedVectors
+
+    keyed = KeyedVectors(vector_size=aligned.shape[1])
+    keyed.add_vectors(vectors.words, aligned)
+    path = out / f"{label}.txt"
+    with runfolder.atomic_path(path) as tmp:
+        keyed.save_word2vec_format(str(tmp), binary=False)
+    return path
+
+
+def is_finite_number(value: Any) -> bool:
+    """True for a real number that is not NaN (used when printing optional columns)."""
+    return isinstance(value, int | float | np.number) and math.isfinite(float(value))

@@ -1,0 +1,372 @@
+"""The rank stage: scores, timeline and terms from a trained run folder."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from gensim.models import KeyedVectors
+from rankrun_builder import lee_documents, write_array_run, write_text_run
+from scipy.stats import ortho_group, spearmanr
+
+from drift import runfolder
+from drift.errors import DriftError
+from drift.ranking import (
+    SCORE_COLUMNS,
+    TIMELINE_COLUMNS,
+    export_vectors,
+    neighbours_by_slice,
+    rank_run,
+    read_scores,
+    read_terms,
+    read_timeline,
+    top_rows,
+)
+
+LABELS = ("2001", "2002", "2003")
+MOVED = [f"moved{i}" for i in range(8)]
+FREQUENCY_ONLY = [f"rarer{i}" for i in range(8)]
+
+
+def _geometry_run(root, control=True, seeds=2):
+    """Three slices of one random geometry, each in its own random rotation, with noise that
+    shrinks with frequency. Eight words seen about 40 times get new vectors in 2003; eight words
+    seen about 120 times only become rare in 2003 (8 times: more noise, same meaning); one word
+    is new in 2003, one is gone. The control pair has the same geometry and counts, no change.
+    """
+    rng = np.random.default_rng(11)
+    dim = 16
+    stable = [f"w{i}" for i in range(380)]
+    words = stable[:20] + FREQUENCY_ONLY + stable[20:40] + MOVED + stable[40:]
+    counts = np.round(6000 / (1 + np.arange(len(words))) ** 1.3).astype(int) + 4  # Zipf-like
+    base = rng.standard_normal((len(words), dim)) + 1.5
+    new_places = rng.standard_normal((len(MOVED), dim)) + 1.5
+    moved_rows = [words.index(w) for w in MOVED]
+    rarer_rows = [words.index(w) for w in FREQUENCY_ONLY]
+
+    def noisy(points, counts_now):
+        sd = 2.0 / np.sqrt(counts_now)[:, None]
+        matrix = points + sd * rng.standard_normal(points.shape)
+        return matrix @ ortho_group.rvs(dim, random_state=int(rng.integers(1 << 30)))
+
+    slices = {}
+    for label in LABELS:
+        points, counts_now = base.copy(), counts.copy()
+        if label == LABELS[-1]:
+            points[moved_rows] = new_places
+            counts_now[rarer_rows] = 8
+        vocab = list(words)
+        extra = {LABELS[0]: ("oldword", 400), LABELS[-1]: ("newword", 300)}.get(label)
+        if extra:
+            vocab.append(extra[0])
+            points = np.vstack([points, rng.standard_normal((1, dim)) + 1.5])
+            counts_now = np.append(counts_now, extra[1])
+        slices[label] = (vocab, [noisy(points, counts_now) for _ in range(seeds)], counts_now)
+    pair = None
+    if control:
+        pair = {
+            name: (words, [noisy(base, counts) for _ in range(seeds)], counts)
+            for name in ("control-a", "control-b")
+        }
+    return write_array_run(root, slices, pair)
+
+
+@pytest.fixture(scope="module")
+def geometry_run(tmp_path_factory):
+    root = _geometry_run(tmp_path_factory.mktemp("geometry") / "run")
+    scores = rank_run(root, k=10, quiet=True)
+    return root, scores
+
+
+def test_scores_follow_the_contract(geometry_run):
+    root, scores = geometry_run
+    assert list(scores.columns) == SCORE_COLUMNS
+    assert scores["rank"].tolist() == list(range(1, len(scores) + 1))
+    assert scores["score"].is_monotonic_decreasing
+    np.testing.assert_array_equal(scores["score"], scores["displacement"])
+    assert len(scores) == 396  # the 380 + 8 + 8 words known to both compared slices
+    on_disk = read_scores(root)
+    pd.testing.assert_frame_equal(on_disk, scores)
+    from_csv = pd.read_csv(runfolder.RunPaths(root).scores_csv)
+    assert from_csv["word"].tolist() == scores["word"].tolist()
+    np.testing.assert_allclose(from_csv["z"], scores["z"])
+    params = runfolder.read_manifest(root)["stages"]["rank"]
+    assert params["params"] == {
+        "between": ["2001", "2003"], "reference": "2001", "measure": "displacement", "k": 10,
+        "alpha": 0.05, "anchors": None,
+    }
+    assert isinstance(params["control_flagged"], int)
+
+
+def test_moved_words_rank_first_and_are_significant(geometry_run):
+    _, scores = geometry_run
+    # Raw displacement is confounded by frequency (the rarest words are the noisiest), so the
+    # moved words lead among words seen at least 30 times, and lead the calibrated z overall.
+    assert set(top_rows(scores, top=len(MOVED), min_count=30)["word"]) == set(MOVED)
+    top = scores.sort_values("z", ascending=False).head(len(MOVED))
+    assert set(top["word"]) == set(MOVED)
+    assert top["significant"].all()
+    assert (top["change_point"] == "2003").all()
+    assert (top["change_step"] > 0.3).all()
+    # Turnover and local change see the same words: above nearly every stable word as frequent.
+    stable = top_rows(scores, all_rows=True, min_count=30)
+    stable = stable[stable["word"].str.startswith("w")]
+    for measure in ("turnover", "local"):
+        moved = scores.set_index("word").loc[MOVED, measure]
+        assert moved.median() > stable[measure].quantile(0.95)
+        assert moved.min() > stable[measure].median()
+
+
+def test_frequency_alone_is_not_significant(geometry_run):
+    _, scores = geometry_run
+    rarer = scores.set_index("word").loc[FREQUENCY_ONLY]
+    assert (rarer["count_to"] == 8).all()
+    assert (rarer["log_freq_ratio"] < -2).all()
+    assert not rarer["significant"].any()
+    # Stable words stay quiet too: at most a handful of false discoveries.
+    stable = scores[scores["word"].str.startswith("w")]
+    assert stable["significant"].sum() <= 5
+
+
+def test_timeline_rows_and_reference(geometry_run):
+    root, scores = geometry_run
+    timeline = read_timeline(root)
+    assert list(timeline.columns) == TIMELINE_COLUMNS
+    assert len(timeline) == len(scores) * len(LABELS)
+    reference = timeline[timeline["slice"] == "2001"]
+    np.testing.assert_array_equal(reference["distance"], 0.0)
+    np.testing.assert_array_equal(reference["turnover"], 0.0)
+    last = timeline[timeline["slice"] == "2003"].set_index("word")
+    by_word = scores.set_index("word")
+    # Reference = first slice: the timeline's last point is the compared pair's displacement.
+    np.testing.assert_allclose(
+        last.loc[by_word.index, "distance"], by_word["displacement"], atol=1e-9
+    )
+    assert (timeline["null_p95"] > 0).all()
+    # The null's band narrows as words get more frequent (frequency confound, Dubossarsky et al.).
+    middle = timeline[timeline["slice"] == "2002"]
+    band = middle.sort_values("count")["null_p95"]
+    assert band.iloc[0] > band.iloc[-1]
+    assert (timeline["fpm"] == timeline["count"]).all()  # every slice holds a million tokens
+
+
+def test_terms_list_emerging_and_fading(geometry_run):
+    root, _ = geometry_run
+    terms = read_terms(root)
+    expected = [["newword", "emerging"], ["oldword", "fading"]]
+    assert terms[["word", "kind"]].values.tolist() == expected
+    assert terms.columns.tolist() == [
+        "word", "kind", "count_from", "count_to", "fpm_from", "fpm_to",
+        "fpm:2001", "fpm:2002", "fpm:2003",
+    ]
+    new = terms.iloc[0]
+    assert (new["count_from"], new["count_to"], new["fpm:2003"]) == (0, 300, 300.0)
+
+
+def test_gained_and_lost_neighbours(geometry_run):
+    _, scores = geometry_run
+    row = scores.set_index("word").loc[MOVED[0]]
+    gained, lost = row["gained"].split(), row["lost"].split()
+    assert len(gained) >= 5 and len(lost) >= 5  # a new place: most of its 10 neighbours changed
+    assert not set(gained) & set(lost)
+    steady = scores.iloc[-1]
+    assert len(steady["gained"].split()) < len(gained)
+
+
+def test_rank_reuses_current_results_and_recomputes_on_change(geometry_run, tmp_path):
+    root, _ = geometry_run
+    paths = runfolder.RunPaths(root)
+    before = paths.scores_parquet.stat().st_mtime_ns
+    rank_run(root, k=10, quiet=True)
+    assert paths.scores_parquet.stat().st_mtime_ns == before
+    turnover = rank_run(root, k=10, measure="turnover", quiet=True)
+    assert paths.scores_parquet.stat().st_mtime_ns != before
+    np.testing.assert_array_equal(turnover["score"], turnover["turnover"])
+    combined = rank_run(root, k=10, measure="combined", quiet=True)
+    np.testing.assert_allclose(
+        combined["score"], (combined["displacement"] + combined["turnover"]) / 2, atol=1e-12
+    )
+    rank_run(root, k=10, quiet=True)  # back to the defaults of the module fixture
+
+
+def test_rank_without_control_is_descriptive(tmp_path, capsys):
+    root = _geometry_run(tmp_path / "run", control=False, seeds=1)
+    scores = rank_run(root, k=10)
+    assert scores[["z", "p", "q", "null_centre"]].isna().all().all()
+    assert not scores["significant"].any()
+    assert scores["displacement_sd"].isna().all()  # one seed: no spread
+    assert "no control pair" in capsys.readouterr().err
+    assert runfolder.read_manifest(root)["stages"]["rank"]["control_flagged"] is None
+    assert set(top_rows(scores, top=len(MOVED), min_count=30)["word"]) == set(MOVED)
+    assert read_timeline(root)["null_p95"].isna().all()
+
+
+def test_between_reference_and_anchors(geometry_run, tmp_path):
+    root, _ = geometry_run
+    other = tmp_path / "anchors.txt"
+    other.write_text("\n".join(f"w{i}" for i in range(100)), encoding="utf-8")
+    scores = rank_run(root, between=["2002", "2003"], reference="2002", k=10, anchors=str(other),
+                      quiet=True)
+    assert set(top_rows(scores, top=len(MOVED), min_count=30)["word"]) == set(MOVED)
+    stage = runfolder.read_manifest(root)["stages"]["rank"]["params"]
+    assert stage["between"] == ["2002", "2003"] and stage["anchors"] == str(other)
+    timeline = read_timeline(root)
+    np.testing.assert_array_equal(timeline[timeline["slice"] == "2002"]["distance"], 0.0)
+    few = rank_run(root, k=10, anchors=50, quiet=True)
+    assert set(top_rows(few, top=len(MOVED), min_count=30)["word"]) == set(MOVED)
+    rank_run(root, k=10, quiet=True)
+
+
+@pytest.mark.parametrize(
+    ("options", "message"),
+    [
+        ({"between": ["2001", "1999"]}, "1999 is not a slice of this run; its slices are 2001, 2"),
+        ({"between": ["2002", "2002"]}, "names slice 2002 twice"),
+        ({"between": ["2002"]}, "takes two slice labels"),
+        ({"reference": "1990"}, "--reference 1990 is not a slice"),
+        ({"measure": "speed"}, "--measure speed is unknown"),
+        ({"k": 0}, "--k must be a whole number"),
+        ({"k": 500}, "too few for --k 500"),
+        ({"alpha": 1.5}, "--alpha must lie strictly between 0 and 1"),
+        ({"anchors": "no-such-file.txt"}, "neither a number of words nor an existing"),
+    ],
+)
+def test_bad_options_are_plain_errors(geometry_run, options, message):
+    root, _ = geometry_run
+    with pytest.raises(DriftError, match=message):
+        rank_run(root, quiet=True, **{"k": 10, **options})
+
+
+def test_bad_run_folders_are_plain_errors(tmp_path, geometry_run):
+    with pytest.raises(DriftError, match="does not exist"):
+        rank_run(tmp_path / "nowhere", quiet=True)
+    empty = tmp_path / "empty"
+    runfolder.prepare_run_folder(empty)
+    with pytest.raises(DriftError, match="no trained models yet"):
+        rank_run(empty, quiet=True)
+    with pytest.raises(DriftError, match="no scores yet"):
+        read_scores(empty)
+    root = _geometry_run(tmp_path / "broken", control=True, seeds=1)
+    runfolder.RunPaths(root).model_file("2002", 0).unlink()
+    with pytest.raises(DriftError, match="Slice 2002 has no trained model"):
+        rank_run(root, k=10, quiet=True)
+    root = _geometry_run(tmp_path / "nocontrol", control=True, seeds=1)
+    runfolder.RunPaths(root).control_model_file("control-b", 0).unlink()
+    with pytest.raises(DriftError, match="control model .* is missing"):
+        rank_run(root, k=10, quiet=True)
+
+
+def test_neighbours_by_slice(geometry_run):
+    root, _ = geometry_run
+    table = neighbours_by_slice(root, "moved0", k=5)
+    assert table.columns.tolist() == ["slice", "rank", "neighbour", "similarity"]
+    assert table.groupby("slice").size().to_dict() == {label: 5 for label in LABELS}
+    for _, group in table.groupby("slice"):
+        assert group["similarity"].is_monotonic_decreasing
+        assert "moved0" not in set(group["neighbour"])
+    # Seed-averaged cosine of the prepared vectors, recomputed here with gensim's loader.
+    paths = runfolder.RunPaths(root)
+    from drift.alignment import prepare_vectors
+
+    sims = []
+    for seed in (0, 1):
+        kv = KeyedVectors.load(str(paths.model_file("2002", seed)))
+        prepared = prepare_vectors(kv.vectors)
+        first = table[table["slice"] == "2002"].iloc[0]
+        word, other = kv.key_to_index["moved0"], kv.key_to_index[first["neighbour"]]
+        sims.append(prepared[word] @ prepared[other])
+    assert first["similarity"] == pytest.approx(np.mean(sims), abs=1e-5)
+    only_new = neighbours_by_slice(root, "newword", k=3)
+    assert only_new["slice"].unique().tolist() == ["2003"]
+    with pytest.raises(DriftError, match="'moved00' is not in any slice of this run; did you mean"):
+        neighbours_by_slice(root, "moved00")
+
+
+def test_export_aligned_vectors(geometry_run, tmp_path):
+    root, scores = geometry_run
+    written = export_vectors(root, tmp_path / "w2v", "word2vec")
+    assert [p.name for p in written] == ["2001.txt", "2002.txt", "2003.txt"]
+    first = KeyedVectors.load_word2vec_format(str(written[0]), binary=False)
+    last = KeyedVectors.load_word2vec_format(str(written[2]), binary=False)
+    # Aligned: a stable, frequent word points the same way in both exported files.
+    assert first["w0"] @ last["w0"] > 0.95
+    assert first["moved0"] @ last["moved0"] < 0.7
+    npz = export_vectors(root, tmp_path / "npz", "npz")
+    with np.load(npz[2]) as data:
+        words = data["words"].tolist()
+        np.testing.assert_allclose(data["vectors"][words.index("w0")], last["w0"], atol=1e-6)
+        assert data["counts"][words.index("newword")] == 300
+    with pytest.raises(DriftError, match="unknown for export"):
+        export_vectors(root, tmp_path / "x", "glove")
+    (tmp_path / "file").write_text("x")
+    with pytest.raises(DriftError, match="is a file"):
+        export_vectors(root, tmp_path / "file", "npz")
+
+
+def test_top_rows_filters(geometry_run):
+    _, scores = geometry_run
+    assert len(top_rows(scores, top=5)) == 5
+    assert len(top_rows(scores, all_rows=True)) == len(scores)
+    frequent = top_rows(scores, all_rows=True, min_count=1000)
+    assert (frequent[["count_from", "count_to"]] >= 1000).all().all()
+    with pytest.raises(DriftError, match="--top must be at least 1"):
+        top_rows(scores, top=0)
+    with pytest.raises(DriftError, match="--min-count must be 0 or more"):
+        top_rows(scores, min_count=-1)
+
+
+# ---------------------------------------------------------------------------- real text
+
+
+@pytest.fixture(scope="module")
+def lee_run(tmp_path_factory):
+    """Three slices of gensim's Lee background corpus (real news text), each the whole corpus in
+    its own document order; in the last slice 'police' and 'fire' swap every occurrence, so
+    both words take over the other's contexts there and nothing else changes. One seed, tiny
+    models (24 dimensions, 10 epochs), the control pair drawn from the first and last slice."""
+    documents = lee_documents()
+    rng = np.random.default_rng(5)
+    swap = {"police": "fire", "fire": "police"}
+    slices = {}
+    for label in LABELS:
+        docs = [documents[i] for i in rng.permutation(len(documents))]
+        if label == LABELS[-1]:
+            docs = [[swap.get(t, t) for t in d] for d in docs]
+        slices[label] = docs
+    root = write_text_run(tmp_path_factory.mktemp("lee") / "run", slices, seeds=1, dim=24,
+                          epochs=10, min_count=5)
+    return root, rank_run(root, k=10, quiet=True)
+
+
+def test_real_text_swapped_words_stand_out(lee_run):
+    # Planted change (donor-style replacement on real text, in the spirit of Shoemark et al.
+    # 2019): among the ~430 words seen at least 20 times in both slices, the two swapped words
+    # are at the top by every measure and by the calibrated z (tiny models are noisy, so the
+    # check allows the top five).
+    _, scores = lee_run
+    frequent = top_rows(scores, all_rows=True, min_count=20)
+    assert len(frequent) > 300
+    for column in ("displacement", "turnover", "local", "z"):
+        leaders = frequent.sort_values(column, ascending=False).head(5)["word"]
+        assert {"police", "fire"} <= set(leaders), column
+    swapped = scores.set_index("word").loc[["police", "fire"]]
+    assert (swapped["change_point"] == "2003").all()
+    assert (swapped["gained"].str.len() > 0).all()
+
+
+def test_real_text_frequency_confound(lee_run):
+    # Published finding: rarer words look more shifted (Dubossarsky et al. 2017). Displacement
+    # falls with frequency on real text (rank correlation, scipy.stats.spearmanr).
+    _, scores = lee_run
+    rho, p = spearmanr(scores["count_from"], scores["displacement"])
+    assert rho < -0.1 and p < 1e-6
+
+
+def test_real_text_null_flags_few_control_words(lee_run):
+    root, scores = lee_run
+    stage = runfolder.read_manifest(root)["stages"]["rank"]
+    assert stage["control_flagged"] <= 0.05 * len(scores)
+    assert stage["seeds"] == [0]
+    json.dumps(stage)
