@@ -50,10 +50,14 @@ def test_each_slice_gives_min_of_per_slice_and_matching_lines(run):
 
 
 def test_all_matching_lines_when_per_slice_is_large(run):
-    table = evidence.example_sentences(run, "police", per_slice=10_000, seed=0)
-    for label in LABELS:
-        found = table.loc[table["slice"] == label, "line"].tolist()
-        assert found == _matching_line_numbers(RunPaths(run).slice_file(label), "police")
+    words = ["police", "fire", "government", "israeli", "tanks", HOSTILE_WORDS[2]]
+    for chosen in (words[:1], words):  # both ways of screening lines
+        table = evidence.examples_for_words(run, chosen, per_slice=10_000, seed=0)
+        for word in chosen:
+            for label in LABELS:
+                rows = table[(table["slice"] == label) & (table["word"] == word)]
+                expected = _matching_line_numbers(RunPaths(run).slice_file(label), word)
+                assert rows["line"].tolist() == expected
 
 
 def test_same_seed_same_examples_other_seed_other_examples(run):
@@ -64,9 +68,14 @@ def test_same_seed_same_examples_other_seed_other_examples(run):
     assert first["line"].tolist() != other["line"].tolist()
 
 
-def test_a_words_sample_does_not_depend_on_the_other_words_drawn(run):
+@pytest.mark.parametrize(
+    "others",
+    [["the", "fire"], ["the", "fire", "government", "israeli", "tanks", "sydney"]],
+    ids=["screened-by-substring", "split-and-intersect"],
+)
+def test_a_words_sample_does_not_depend_on_the_other_words_drawn(run, others):
     alone = evidence.example_sentences(run, "police", per_slice=2, seed=3)
-    together = evidence.examples_for_words(run, ["the", "police", "fire"], per_slice=2, seed=3)
+    together = evidence.examples_for_words(run, ["police", *others], per_slice=2, seed=3)
     together = together[together["word"] == "police"].drop(columns="word").reset_index(drop=True)
     pd.testing.assert_frame_equal(alone, together)
 
