@@ -93,28 +93,21 @@ def _slice_labels(paths: runfolder.RunPaths, manifest: dict[str, Any]) -> list[s
     return [str(label) for label in pd.read_csv(paths.slice_summary, dtype={"label": str})["label"]]
 
 
-def _trained_seeds(paths: runfolder.RunPaths, labels: Sequence[str]) -> list[int]:
-    """Seeds trained for every slice (the seed-<k>.kv files present in each models/<label>/)."""
-    common: set[int] | None = None
-    for label in labels:
-        folder = paths.models_dir / label
-        found = {
-            int(p.stem.split("-", 1)[1])
-            for p in folder.glob("seed-*.kv")
-            if p.stem.split("-", 1)[1].isdigit()
-        }
-        if not found:
-            raise DriftError(
-                f"Slice {label} has no trained model in {folder}; train it with "
-                f"'drift train {paths.root}'."
-            )
-        common = found if common is None else common & found
-    if not common:
-        raise DriftError(
-            f"No seed was trained for every slice in {paths.models_dir}; "
-            f"retrain with 'drift train {paths.root}'."
-        )
-    return sorted(common)
+def _check_models_exist(
+    paths: runfolder.RunPaths, labels: Sequence[str], seeds: Sequence[int], control: bool
+) -> None:
+    """Fail early, before any work, when a model file of the run is missing."""
+    wanted = [(label, False) for label in labels]
+    wanted += [(name, True) for name in CONTROL_NAMES] if control else []
+    for label, is_control in wanted:
+        for seed in seeds:
+            locate = paths.control_model_file if is_control else paths.model_file
+            path = locate(label, seed)
+            if not path.is_file():
+                what = "control model" if is_control else f"model of slice {label}"
+                raise DriftError(
+                    f"The {what} {path} is missing; retrain with 'drift train {paths.root}'."
+                )
 
 
 def read_run_inputs(run: str | Path) -> RunInputs:
@@ -129,16 +122,11 @@ def read_run_inputs(run: str | Path) -> RunInputs:
             f"{paths.root} has {len(labels)} slice; ranking needs at least two, so slice the "
             "archive into more periods."
         )
-    seeds = _trained_seeds(paths, labels)
-    control = manifest.get("stages", {}).get("train", {}).get("control")
-    if control:
-        for name in CONTROL_NAMES:
-            for seed in seeds:
-                if not paths.control_model_file(name, seed).exists():
-                    raise DriftError(
-                        f"The control model {paths.control_model_file(name, seed)} is missing; "
-                        f"retrain with 'drift train {paths.root}'."
-                    )
+    from drift.training import control_info, trained_seeds
+
+    seeds = trained_seeds(paths.root)
+    control = control_info(paths.root)
+    _check_models_exist(paths, labels, seeds, bool(control))
     summary = pd.read_csv(paths.slice_summary, dtype={"label": str})
     tokens = {str(r.label): int(r.tokens) for r in summary.itertuples()}
     if not paths.counts.exists():
@@ -147,21 +135,13 @@ def read_run_inputs(run: str | Path) -> RunInputs:
     return RunInputs(paths, labels, seeds, control or None, counts, tokens, manifest)
 
 
-def _load_keyed_vectors(paths: runfolder.RunPaths, label: str, seed: int, control: bool):
-    """One saved model's KeyedVectors (private stand-in for drift.training.load_vectors)."""
-    from gensim.models import KeyedVectors
-
-    path = paths.control_model_file(label, seed) if control else paths.model_file(label, seed)
-    if not path.exists():
-        raise DriftError(f"The model {path} is missing; train it with 'drift train {paths.root}'.")
-    return KeyedVectors.load(str(path), mmap=None)
-
-
 def load_slice_vectors(
     paths: runfolder.RunPaths, label: str, seed: int, control: bool = False
 ) -> SliceVectors:
     """A slice's (or control model's) words, prepared vectors and counts for one seed."""
-    kv = _load_keyed_vectors(paths, label, seed, control)
+    from drift.training import load_vectors
+
+    kv = load_vectors(paths.root, label, seed, control=control)
     words = list(kv.index_to_key)
     if "count" in kv.expandos:
         counts = np.asarray(kv.expandos["count"], dtype=np.int64)
@@ -797,6 +777,18 @@ def read_timeline(run: str | Path) -> pd.DataFrame:
 def read_terms(run: str | Path) -> pd.DataFrame:
     """Emerging and fading terms with their frequency per slice."""
     return _read_table(run, "terms_parquet", "emerging and fading terms")
+
+
+def rank_record(run: str | Path) -> dict[str, Any]:
+    """The rank stage's entry in run.json: params, control_flagged, seeds, words, ..."""
+    paths = runfolder.existing_run(Path(run), needs="scores")
+    return dict(runfolder.read_manifest(paths.root).get("stages", {}).get("rank", {}))
+
+
+def slice_labels(run: str | Path) -> list[str]:
+    """The run's slice labels in time order."""
+    paths = runfolder.existing_run(Path(run), needs="slices")
+    return _slice_labels(paths, runfolder.read_manifest(paths.root))
 
 
 def top_rows(

@@ -112,7 +112,8 @@ def write_text_run(
                 _save_model(paths.control_model_file(name, k), docs, 1 + k, dim, epochs, min_count)
         control_info = {"between": [first, last], "shuffle_seed": shuffle_seed}
     params = {"dim": dim, "epochs": epochs, "min_count": min_count, "seeds": seeds, "base_seed": 1}
-    runfolder.record_stage(root, "train", params, "test", 0.0, {"control": control_info})
+    extra = {"control": control_info, "labels": labels}
+    runfolder.record_stage(root, "train", params, "test", 0.0, extra)
     return root
 
 
@@ -170,8 +171,8 @@ def write_array_run(
                 target.parent.mkdir(parents=True, exist_ok=True)
                 keyed_vectors(words, matrix, counts).save(str(target))
         control_info = {"between": [labels[0], labels[-1]], "shuffle_seed": 0}
-    runfolder.record_stage(
-        root, "train", {"dim": int(next(iter(slices.values()))[1][0].shape[1]), "seeds": n_seeds,
-                        "min_count": 1}, "test", 0.0, {"control": control_info},
-    )
+    dim = int(next(iter(slices.values()))[1][0].shape[1])
+    params = {"dim": dim, "seeds": n_seeds, "min_count": 1}
+    extra = {"control": control_info, "labels": labels}
+    runfolder.record_stage(root, "train", params, "test", 0.0, extra)
     return root

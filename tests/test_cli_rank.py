@@ -1,0 +1,165 @@
+"""End to end: drift rank, drift neighbours and drift export on a run folder."""
+
+from __future__ import annotations
+
+import io
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from gensim.models import KeyedVectors
+from rankrun_builder import write_array_run
+from scipy.stats import ortho_group
+
+from drift.cli import main
+
+LABELS = ("2001", "2002", "2003")
+MOVED = ["harbour", "signal", "current"]
+
+
+@pytest.fixture(scope="module")
+def run(tmp_path_factory):
+    """Three rotated, noisy copies of one random geometry; three words move in 2003; a word
+    made of markup shows up in every slice. Two seeds and a control pair without change."""
+    rng = np.random.default_rng(21)
+    dim = 12
+    words = MOVED + ["[bold]x[/bold]"] + [f"w{i}" for i in range(300)]
+    counts = np.round(4000 / (1 + np.arange(len(words))) ** 1.1).astype(int) + 20
+    base = rng.standard_normal((len(words), dim)) + 1.0
+
+    def noisy(points):
+        matrix = points + (1.5 / np.sqrt(counts))[:, None] * rng.standard_normal(points.shape)
+        return matrix @ ortho_group.rvs(dim, random_state=int(rng.integers(1 << 30)))
+
+    slices = {}
+    for label in LABELS:
+        points = base.copy()
+        if label == LABELS[-1]:
+            points[: len(MOVED)] = rng.standard_normal((len(MOVED), dim)) + 1.0
+        slices[label] = (words, [noisy(points), noisy(points)], counts)
+    control = {name: (words, [noisy(base), noisy(base)], counts)
+               for name in ("control-a", "control-b")}
+    return write_array_run(tmp_path_factory.mktemp("cli") / "run", slices, control)
+
+
+def _drift(args, capsys):
+    """Run the drift command line in-process; return (exit code, stdout, stderr)."""
+    code = 0
+    try:
+        main([str(a) for a in args])
+    except SystemExit as exc:
+        code = exc.code if isinstance(exc.code, int) else 1
+    captured = capsys.readouterr()
+    return code, captured.out, captured.err
+
+
+def test_rank_json_rows(run, capsys):
+    args = ["rank", run, "--k", "8", "--format", "json", "--top", "5", "-q"]
+    code, out, err = _drift(args, capsys)
+    assert code == 0, err
+    rows = json.loads(out)
+    assert len(rows) == 5
+    needed = {"word", "rank", "score", "displacement", "turnover", "z", "p", "q", "count_from",
+              "count_to"}
+    assert needed <= set(rows[0])
+    assert {r["word"] for r in rows[:3]} == set(MOVED)
+    assert [r["rank"] for r in rows] == [1, 2, 3, 4, 5]
+    assert rows[0]["change_point"] == "2003"
+    assert err == ""
+
+
+def test_rank_json_nan_is_null(run, capsys, tmp_path):
+    code, out, _ = _drift(["rank", run, "--k", "8", "--format", "json", "--all", "-q"], capsys)
+    assert code == 0
+    rows = json.loads(out)  # NaN would not parse as strict JSON
+    assert len(rows) == 304
+    assert "NaN" not in out
+
+
+def test_rank_csv_and_min_count(run, capsys):
+    code, out, _ = _drift(
+        ["rank", run, "--k", "8", "--format", "csv", "--all", "--min-count", "100", "-q"], capsys
+    )
+    assert code == 0
+    table = pd.read_csv(io.StringIO(out))
+    assert len(table) > 0
+    assert (table[["count_from", "count_to"]] >= 100).all().all()
+    assert table["rank"].is_monotonic_increasing
+
+
+def test_rank_table_shows_words_as_typed(run, capsys):
+    code, out, _ = _drift(["rank", run, "--k", "8", "--all", "-q"], capsys)
+    assert code == 0
+    assert "Words that changed most from 2001 to 2003" in out
+    assert "harbour" in out and "2003 (+" in out
+    assert "[bold]x[/bold]" in out  # printed as text, not read as console markup
+
+
+def test_rank_options_between_reference_measure(run, capsys):
+    code, out, err = _drift(
+        ["rank", run, "--k", "8", "--between", "2002", "2003", "--reference", "2002",
+         "--measure", "turnover", "--anchors", "100", "--format", "json", "--top", "3", "-q"],
+        capsys,
+    )
+    assert code == 0, err
+    rows = json.loads(out)
+    assert all(r["score"] == r["turnover"] for r in rows)
+    manifest = json.loads((run / "run.json").read_text())
+    assert manifest["stages"]["rank"]["params"]["between"] == ["2002", "2003"]
+    assert manifest["stages"]["rank"]["params"]["anchors"] == 100
+
+
+@pytest.mark.parametrize(
+    ("args", "message"),
+    [
+        (["--between", "2001", "2009"], "--between 2009 is not a slice of this run"),
+        (["--measure", "speed"], "--measure speed is unknown"),
+        (["--format", "xml"], "--format xml is unknown"),
+        (["--anchors", "missing-file.txt"], "neither a number of words nor an existing"),
+        (["--alpha", "0"], "--alpha must lie strictly between 0 and 1"),
+        (["--top", "0"], "--top must be at least 1"),
+    ],
+)
+def test_rank_bad_input_exits_2(run, capsys, args, message):
+    code, out, err = _drift(["rank", run, "--k", "8", "-q", *args], capsys)
+    assert code == 2
+    assert message in err
+    assert "Traceback" not in err
+
+
+def test_rank_missing_run_exits_2(tmp_path, capsys):
+    code, _, err = _drift(["rank", tmp_path / "nothing"], capsys)
+    assert code == 2 and "does not exist" in err
+
+
+def test_neighbours_table_and_json(run, capsys):
+    code, out, _ = _drift(["neighbours", run, "harbour", "--k", "4"], capsys)
+    assert code == 0
+    assert "Nearest neighbours of 'harbour' per slice" in out
+    assert all(label in out for label in LABELS)
+    code, out, _ = _drift(["neighbours", run, "harbour", "--k", "4", "--format", "json"], capsys)
+    rows = json.loads(out)
+    assert len(rows) == 12 and {r["slice"] for r in rows} == set(LABELS)
+
+
+def test_neighbours_unknown_word_suggests_close_ones(run, capsys):
+    code, _, err = _drift(["neighbours", run, "harbor"], capsys)
+    assert code == 2
+    assert "'harbor' is not in any slice of this run; did you mean harbour" in err
+
+
+def test_export_word2vec_and_npz(run, capsys, tmp_path):
+    code, out, _ = _drift(["export", run, "--format", "word2vec", "--out", tmp_path / "w"], capsys)
+    assert code == 0
+    files = out.split()
+    assert [p.rsplit("/", 1)[-1] for p in files] == ["2001.txt", "2002.txt", "2003.txt"]
+    first = KeyedVectors.load_word2vec_format(files[0])
+    second = KeyedVectors.load_word2vec_format(files[1])
+    assert first["w0"] @ second["w0"] > 0.95  # aligned onto the reference slice
+    code, out, _ = _drift(["export", run, "--format", "npz", "--out", tmp_path / "n"], capsys)
+    assert code == 0
+    with np.load(out.split()[0]) as data:
+        assert data["vectors"].shape == (304, 12)
+    code, _, err = _drift(["export", run, "--format", "glove", "--out", tmp_path / "g"], capsys)
+    assert code == 2 and "unknown for export" in err
