@@ -14,20 +14,13 @@ from pathlib import Path
 
 import pandas as pd
 
+from drift import ranking
 from drift.errors import DriftError
 from drift.runfolder import RunPaths
 
 #: Tokens kept on each side of the word when a line (up to 10,000 tokens) is cut to a passage.
 CONTEXT_TOKENS = 20
 ELLIPSIS = "…"
-
-
-def slice_labels(run: Path) -> list[str]:
-    """The run's slice labels in time order, from slices/summary.csv."""
-    summary = RunPaths(Path(run)).slice_summary
-    if not summary.exists():
-        raise DriftError(f"{run} has no slices/summary.csv; make the slices with 'drift slice'.")
-    return [str(label) for label in pd.read_csv(summary, dtype={"label": str})["label"]]
 
 
 def passage(line: str, word: str, context: int = CONTEXT_TOKENS) -> str:
@@ -104,7 +97,7 @@ def examples_for_words(
     if per_slice < 0:
         raise DriftError(f"The number of examples per slice must be 0 or more, not {per_slice}.")
     rows = []
-    for label in slice_labels(run):
+    for label in ranking.slice_labels(run):
         path = RunPaths(run).slice_file(label)
         if not path.exists():
             raise DriftError(f"Slice file {path} is missing; rerun 'drift slice' for {run}.")

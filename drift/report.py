@@ -28,7 +28,7 @@ import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
 
-from drift import charts, evidence, runfolder
+from drift import charts, evidence, ranking, runfolder
 from drift.errors import DriftError, unknown_word_error
 from drift.runfolder import RunPaths
 
@@ -107,69 +107,26 @@ class RunData:
         return None if hits.empty else hits.iloc[0]
 
 
-def _read_table(path: Path, what: str, stage: str, run: Path) -> pd.DataFrame:
-    if not path.exists():
-        raise DriftError(
-            f"{run} has no {what} ({path.name}); compute it with 'drift {stage} {run}'."
-        )
-    return pd.read_parquet(path)
-
-
 def load_run(run: Path) -> RunData:
     """Read the slice summary, the manifest and the rank stage's tables of ``run``."""
     run = Path(run)
     paths = runfolder.existing_run(run, needs="scores")
     summary = pd.read_csv(paths.slice_summary, dtype={"label": str})
-    labels = list(summary["label"])
-    scores = _read_table(paths.scores_parquet, "scores", "rank", run)
-    timeline = _read_table(paths.timeline_parquet, "timeline", "rank", run)
-    terms = (
-        pd.read_parquet(paths.terms_parquet)
-        if paths.terms_parquet.exists()
-        else pd.DataFrame(columns=["word", "kind", "count_from", "count_to", "fpm_from", "fpm_to"])
-    )
+    scores = ranking.read_scores(run)
+    timeline = ranking.read_timeline(run)
+    terms = ranking.read_terms(run)
     for table in (scores, timeline, terms):
         table["word"] = table["word"].astype(str)
     timeline["slice"] = timeline["slice"].astype(str)
     return RunData(
         root=run,
-        labels=labels,
+        labels=ranking.slice_labels(run),
         summary=summary,
         manifest=runfolder.read_manifest(run),
         scores=scores,
         timeline=timeline,
         terms=terms,
     )
-
-
-class NeighbourSource:
-    """Nearest neighbours of words per slice, with the slice models loaded once per report."""
-
-    def __init__(self, run: Path, k: int = 10):
-        self.run = Path(run)
-        self.k = k
-        self._models: dict[str, Any] = {}
-
-    def _model(self, label: str):
-        if label not in self._models:
-            from gensim.models import KeyedVectors
-
-            path = RunPaths(self.run).model_file(label, 0)
-            self._models[label] = KeyedVectors.load(str(path)) if path.exists() else None
-        return self._models[label]
-
-    def table(self, word: str, labels: Sequence[str]) -> pd.DataFrame:
-        """DataFrame[slice, rank, neighbour, similarity] of ``word``'s top ``k`` per slice."""
-        rows = []
-        for label in labels:
-            model = self._model(label)
-            if model is None or word not in model.key_to_index:
-                continue
-            for rank, (other, similarity) in enumerate(model.most_similar(word, topn=self.k), 1):
-                rows.append(
-                    {"slice": label, "rank": rank, "neighbour": other, "similarity": similarity}
-                )
-        return pd.DataFrame(rows, columns=["slice", "rank", "neighbour", "similarity"])
 
 
 # ---------------------------------------------------------------------------- HTML pieces
@@ -698,14 +655,13 @@ def _write_word_pages(
     seed: int,
     report_link: bool,
 ) -> dict[str, Path]:
-    source = NeighbourSource(data.root, k=k)
     drawn = evidence.examples_for_words(data.root, words, per_slice=examples, seed=seed)
     written = {}
     for word in words:
         page = word_page(
             data,
             word,
-            source.table(word, data.labels),
+            ranking.neighbours_by_slice(data.root, word, k=k),
             drawn[drawn["word"] == word],
             report_link=report_link,
         )

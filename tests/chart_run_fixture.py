@@ -178,9 +178,27 @@ def build_fixture_run(root: Path) -> Path:
         text.write_text("\n".join(lines) + "\n", encoding="utf-8")
         control[name] = [_train(text, paths.control_model_file(name, seed), seed)
                          for seed in range(SEEDS)]
+    # recorded the way drift.training records it (params.seeds, labels, control)
     runfolder.record_stage(
-        root, "train", {"dim": 16, "window": 5, "epochs": 3, "seeds": SEEDS}, "fixture", 0.0,
-        {"control": {"between": [reference, last], "shuffle_seed": 0}},
+        root,
+        "train",
+        {"dim": 16, "window": 5, "epochs": 3, "seeds": SEEDS, "control": True,
+         "between": [reference, last]},
+        "fixture",
+        0.0,
+        {
+            "labels": list(LABELS),
+            "control": {
+                "between": [reference, last],
+                "shuffle_seed": 0,
+                "labels": list(halves),
+                "lines": {name: len(lines) for name, lines in halves.items()},
+                "tokens": {
+                    name: sum(len(line.split()) for line in lines)
+                    for name, lines in halves.items()
+                },
+            },
+        },
     )
 
     # --- rank stage: timeline, scores, terms

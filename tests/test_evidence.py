@@ -148,7 +148,7 @@ def test_missing_slice_file_is_a_clear_error(tmp_path):
 
 
 def test_run_without_slices_is_a_clear_error(tmp_path):
-    with pytest.raises(DriftError, match="no slices/summary.csv"):
+    with pytest.raises(DriftError, match="no slices yet"):
         evidence.example_sentences(tmp_path, "word")
 
 

@@ -69,6 +69,16 @@ def test_word_page_shows_the_scores_row(run):
         assert html.escape(neighbour) in page
 
 
+def test_word_page_draws_the_rank_stages_neighbours(run):
+    from drift.ranking import neighbours_by_slice
+
+    page = report.chart_word(run, WORD, k=7).read_text(encoding="utf-8")
+    table = neighbours_by_slice(run, WORD, k=7)
+    assert len(table) == 7 * len(LABELS)
+    for neighbour in table["neighbour"]:
+        assert f'"{neighbour}"' in page  # a category of the heatmap's y axis
+
+
 def test_word_page_examples_are_highlighted_per_slice(run):
     page = report.chart_word(run, WORD, examples=2, seed=5).read_text(encoding="utf-8")
     examples = page.split('id="examples"', 1)[1]
