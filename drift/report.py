@@ -151,7 +151,7 @@ def fmt(value: object, digits: int = 3) -> str:
         return esc(value)
     if math.isnan(number):
         return "n/a"
-    if number != 0 and (abs(number) < 1e-3 or abs(number) >= 1e5):
+    if number != 0 and (abs(number) < 1e-4 or abs(number) >= 1e6):
         return f"{number:.2e}"
     if abs(number) < 1:
         return f"{number:.{digits}g}"
@@ -222,6 +222,7 @@ th, td { text-align: left; padding: 0.25rem 0.7rem 0.25rem 0; border-bottom: 1px
   vertical-align: top; }
 th { font-weight: 600; border-bottom: 1.5px solid #999; }
 td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; padding-right: 1rem; }
+td.num { white-space: nowrap; }
 table.facts th { border-bottom: 1px solid var(--rule); font-weight: 600; width: 14rem; }
 .word { overflow-wrap: anywhere; }
 td.word { min-width: 7rem; }
@@ -361,7 +362,7 @@ def word_facts_html(data: RunData, row: pd.Series | None) -> str:
             ("neighbour turnover", f"{fmt(row.get('turnover'))} ± {fmt(row.get('turnover_sd'))}"),
             ("local neighbourhood change", f"{fmt(row.get('local'))} ± {fmt(row.get('local_sd'))}"),
             ("z against the control", fmt(row.get("z"))),
-            ("p (empirical)", fmt(row.get("p"))),
+            ("p against the control", fmt(row.get("p"))),
             ("q (Benjamini-Hochberg)", fmt(row.get("q"))),
             (f"significant at q ≤ {data.alpha:g}", fmt(bool(row.get("significant")))),
             (f"occurrences {a} → {b}",
@@ -369,9 +370,9 @@ def word_facts_html(data: RunData, row: pd.Series | None) -> str:
             ("per million tokens",
              f"{fmt(row.get('fpm_from'), 1)} → {fmt(row.get('fpm_to'), 1)}"),
             ("change point", change),
-            (f"neighbours gained by {b}",
+            (f"neighbours gained by {b} (top {data.k})",
              f'<span class="words">{_words_html(row.get("gained"))}</span>'),
-            (f"neighbours lost since {a}",
+            (f"neighbours lost since {a} (top {data.k})",
              f'<span class="words">{_words_html(row.get("lost"))}</span>'),
         ]
     )
@@ -401,9 +402,10 @@ def word_page(
     neighbours: pd.DataFrame,
     examples: pd.DataFrame,
     *,
+    k: int = 10,
     report_link: bool = False,
 ) -> str:
-    """The whole HTML page of one word."""
+    """The whole HTML page of one word; ``neighbours`` holds its top ``k`` per slice."""
     row = data.score_row(word)
     figures = charts.word_figures(
         data.word_timeline(word),
@@ -412,7 +414,7 @@ def word_page(
         slices=data.labels,
         reference=data.reference,
         change_point=None if row is None else row.get("change_point"),
-        k=data.k,
+        k=k,
     )
     parts = {name: figure_html(fig, f"fig-{name}") for name, fig in figures.items()}
     nav = '<nav><a href="../index.html">← overview report</a></nav>' if report_link else ""
@@ -430,7 +432,7 @@ would move them.</p>
 <div class="figure">{parts["timeline"].html}</div>
 <h2 id="neighbours">Its neighbours over time</h2>
 <p class="muted">Rows are the words closest to it in any slice; a dark cell is a close neighbour in
-that slice, an empty cell means the word was not among its {data.k} nearest there.</p>
+that slice, an empty cell means the word was not among its {k} nearest there.</p>
 <div class="figure">{parts["neighbours"].html}</div>
 <h2 id="frequency">How often it occurs</h2>
 <div class="figure">{parts["frequency"].html}</div>
@@ -500,10 +502,15 @@ def control_html(data: RunData) -> str:
     )
 
 
-def ranked_table_html(scores: pd.DataFrame, links: dict[str, str]) -> str:
+def ranked_table_html(
+    scores: pd.DataFrame, links: dict[str, str], measure: str | None = "displacement"
+) -> str:
+    """The ranked words; the score column is left out when it is the displacement itself."""
+    show_score = measure != "displacement"
     head = (
-        '<tr><th class="num">rank</th><th>word</th><th class="num">score</th>'
-        '<th class="num">displacement</th><th class="num">turnover</th><th class="num">z</th>'
+        '<tr><th class="num">rank</th><th>word</th>'
+        + (f'<th class="num">score ({esc(measure)})</th>' if show_score else "")
+        + '<th class="num">displacement</th><th class="num">turnover</th><th class="num">z</th>'
         '<th class="num">q</th><th>significant</th><th class="num">count from → to</th>'
         "<th>change point</th><th>neighbours gained</th></tr>"
     )
@@ -516,8 +523,8 @@ def ranked_table_html(scores: pd.DataFrame, links: dict[str, str]) -> str:
         gained = " ".join(str(getattr(row, "gained", "") or "").split()[:5])
         rows.append(
             f'<tr><td class="num">{fmt(row.rank)}</td><td class="word">{cell}</td>'
-            f'<td class="num">{fmt(row.score)}</td>'
-            f'<td class="num">{fmt(row.displacement)} ± {fmt(row.displacement_sd, 2)}</td>'
+            + (f'<td class="num">{fmt(row.score)}</td>' if show_score else "")
+            + f'<td class="num">{fmt(row.displacement)} ± {fmt(row.displacement_sd, 2)}</td>'
             f'<td class="num">{fmt(row.turnover)}</td><td class="num">{fmt(row.z)}</td>'
             f'<td class="num">{fmt(row.q)}</td>'
             f"<td>{'◆ yes' if bool(row.significant) else 'no'}</td>"
@@ -575,7 +582,7 @@ def report_page(data: RunData, links: dict[str, str], top: int) -> str:
 <h2 id="ranked">Most shifted words</h2>
 <p class="muted">The top {len(ranked)} by score; each word links to its page with timeline,
 neighbours and example sentences.</p>
-{ranked_table_html(ranked, links)}
+{ranked_table_html(ranked, links, data.rank_params.get("measure"))}
 <h2 id="scatter">Change against frequency</h2>
 <p class="muted">Rare words move more by chance. The line is the control's typical displacement at
 each frequency; words far above it moved more than their frequency explains. Hover for the word,
@@ -663,6 +670,7 @@ def _write_word_pages(
             word,
             ranking.neighbours_by_slice(data.root, word, k=k),
             drawn[drawn["word"] == word],
+            k=k,
             report_link=report_link,
         )
         target = word_page_path(data.root, word)

@@ -298,3 +298,34 @@ def test_cli_open_calls_the_browser(run, capsys, monkeypatch):
     code, out, _ = run_cli(["chart", str(run), WORD, "--open"], capsys)
     assert code == 0
     assert opened == [Path(out.strip()).resolve().as_uri()]
+
+
+# ---------------------------------------------------------------------------- small pieces
+
+
+def test_ranked_table_shows_the_score_only_when_it_is_not_the_displacement(run):
+    import pandas as pd
+
+    scores = pd.read_parquet(RunPaths(run).scores_parquet).head(3)
+    assert "score (" not in report.ranked_table_html(scores, {}, "displacement")
+    table = report.ranked_table_html(scores, {}, "combined")
+    assert "<th class=\"num\">score (combined)</th>" in table
+    assert table.count("<tr>") == 4
+
+
+@pytest.mark.parametrize(
+    "value, text",
+    [(1234567.0, "1.23e+06"), (0.000166, "0.000166"), (1.67e-05, "1.67e-05"),
+     (1044.776, "1,044.776"), (12, "12"), (float("nan"), "n/a"), (None, "n/a"), (True, "yes"),
+     (0.5, "0.5")],
+)
+def test_number_formatting(value, text):
+    assert report.fmt(value) == text
+
+
+def test_highlight_marks_whole_tokens_and_escapes():
+    sentence = "the fire and <b>fire</b> wildfire fire"
+    assert report.highlight_html(sentence, "fire") == (
+        "the <mark>fire</mark> and &lt;b&gt;fire&lt;/b&gt; wildfire <mark>fire</mark>"
+    )
+    assert report.highlight_html("a <b> c", "<b>") == "a <mark>&lt;b&gt;</mark> c"
