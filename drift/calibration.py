@@ -62,6 +62,10 @@ MAX_TAIL_SHARE = 0.5
 MIN_TAIL_POINTS = 20
 #: Scale that turns a median absolute deviation into a standard deviation for normal data.
 MAD_TO_SD = 1.4826
+#: The same for a mean absolute deviation (sqrt(pi / 2)).
+MEAN_AD_TO_SD = 1.2533
+#: No bin's spread may fall below this share of the spread of all control values.
+SPREAD_FLOOR = 0.05
 #: Points of the grid on which the smooth centre and spread curves are stored.
 GRID_POINTS = 256
 
@@ -109,6 +113,16 @@ def _frequency_bins(covariate: np.ndarray) -> list[np.ndarray]:
     if len(cuts) > 2 and cuts[-1] - cuts[-2] < target / 2:
         del cuts[-2]  # fold a small last bin into the one before
     return [order[a:b] for a, b in zip(cuts[:-1], cuts[1:], strict=True)]
+
+
+def robust_spread(values: np.ndarray) -> float:
+    """Scaled median absolute deviation; where over half the values tie (MAD 0, as happens with
+    neighbour turnover), the scaled mean absolute deviation from the median instead. Both
+    estimate the standard deviation of normal data (factors 1.4826 and sqrt(pi/2) = 1.2533)."""
+    mad = MAD_TO_SD * float(stats.median_abs_deviation(values))
+    if mad > 0:
+        return mad
+    return MEAN_AD_TO_SD * float(np.mean(np.abs(values - np.median(values))))
 
 
 def _smooth_curve(x: np.ndarray, y: np.ndarray, weight: np.ndarray, grid: np.ndarray) -> np.ndarray:
@@ -281,10 +295,8 @@ def fit_null(
     bin_x = np.array([np.median(covariate[b]) for b in bins])
     bin_centre = np.array([np.median(vals[b]) for b in bins])
     bin_size = np.array([len(b) for b in bins], dtype=float)
-    overall_spread = MAD_TO_SD * stats.median_abs_deviation(vals)
-    floor = max(0.05 * overall_spread, 1e-9)
-    bin_spread = np.array([MAD_TO_SD * stats.median_abs_deviation(vals[b]) for b in bins])
-    bin_spread = np.maximum(bin_spread, floor)
+    floor = max(SPREAD_FLOOR * robust_spread(vals), 1e-12)
+    bin_spread = np.maximum([robust_spread(vals[b]) for b in bins], floor)
 
     grid = np.linspace(bin_x[0], bin_x[-1], GRID_POINTS) if len(bins) > 1 else bin_x.copy()
     centre_on_grid = _smooth_curve(bin_x, bin_centre, bin_size, grid)

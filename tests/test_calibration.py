@@ -169,3 +169,24 @@ def test_constant_control_is_a_plain_error():
 def test_bad_quantile_is_a_plain_error(control):
     with pytest.raises(DriftError, match="0 < q < 1"):
         fit_null(*control).quantile(100, q=1.0)
+
+
+def test_tied_measure_gives_a_sane_null():
+    """Neighbour turnover is a Jaccard distance of top-k sets: few distinct values and most rare
+    words at exactly 1.0, so the median absolute deviation of a bin is often 0."""
+    rng = np.random.default_rng(3)
+    counts = np.round(np.exp(rng.uniform(np.log(20), np.log(3000), 3000)))
+    k = 10
+    stay = np.clip(0.12 * np.log(counts) - 0.35, 0.0, 0.9)  # chance a neighbour stays
+
+    def draw_turnover():
+        shared = rng.binomial(k, stay)
+        return 1.0 - shared / (2 * k - shared)
+
+    turnover = draw_turnover()
+    null = fit_null(turnover, counts, counts)
+    band = null.quantile(np.array([20.0, 200.0, 2000.0]), 0.5)
+    assert np.all((band >= 0.0) & (band <= 1.0))
+    assert np.all(np.isfinite(null.spread_on_grid)) and np.all(null.spread_on_grid > 1e-3)
+    fresh = draw_turnover()
+    assert calibrate(fresh, counts, counts, turnover, counts, counts)["significant"].mean() <= 0.05
