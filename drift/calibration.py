@@ -18,8 +18,8 @@ How the null is built (:func:`fit_null`):
    covariate; each bin gives a median and a scaled median absolute deviation (robust to the odd
    control word that moved). A smoothing spline (``scipy.interpolate.make_smoothing_spline``,
    smoothing chosen by generalised cross-validation) runs through the bin medians and through the
-   log of the bin spreads, so both vary smoothly with frequency; beyond the range of the control
-   the curves are held constant.
+   log of the bin spreads, so both vary smoothly with frequency; the curves never leave the range
+   of the bins' own statistics, and beyond the control's frequency range they are held constant.
 3. Tail: the standardised control residuals ``r = (value - centre) / spread`` give the null's
    shape. An empirical p from a few hundred control words cannot go below ``1/(n+1)``, which no
    Benjamini-Hochberg correction over thousands of words lets through, so above the 80th
@@ -299,9 +299,13 @@ def fit_null(
     bin_spread = np.maximum([robust_spread(vals[b]) for b in bins], floor)
 
     grid = np.linspace(bin_x[0], bin_x[-1], GRID_POINTS) if len(bins) > 1 else bin_x.copy()
-    centre_on_grid = _smooth_curve(bin_x, bin_centre, bin_size, grid)
-    log_spread_on_grid = _smooth_curve(bin_x, np.log(bin_spread), bin_size, grid)
-    spread_on_grid = np.maximum(np.exp(log_spread_on_grid), floor)
+    # The smooth curves may not overshoot the range of the bins' own statistics.
+    centre_on_grid = np.clip(
+        _smooth_curve(bin_x, bin_centre, bin_size, grid), bin_centre.min(), bin_centre.max()
+    )
+    log_spread = np.log(bin_spread)
+    log_spread_on_grid = _smooth_curve(bin_x, log_spread, bin_size, grid)
+    spread_on_grid = np.exp(np.clip(log_spread_on_grid, log_spread.min(), log_spread.max()))
 
     centre = np.interp(covariate, grid, centre_on_grid)
     residuals = np.sort((vals - centre) / np.interp(covariate, grid, spread_on_grid))
