@@ -1,0 +1,331 @@
+"""Where training tasks run: a local process pool, or a Dask cluster.
+
+A task is a small dict (paths and parameters); a task function turns it into a small result dict
+and may call ``report(completed, total)`` to show its progress. Both engines call the same
+function, so a model trained on a Dask worker is the same as one trained locally.
+
+The engines know nothing about Word2Vec: :mod:`drift.training` builds the tasks and the function.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import functools
+import logging
+import os
+import signal
+import threading
+import time
+from collections.abc import Callable, Iterable, Iterator
+from typing import Any, Protocol
+
+from drift.errors import DriftError
+
+#: ``report(completed, total)``: a task's progress in its own steps.
+Report = Callable[[int, int], None]
+#: A task function: task dict and an optional report callable in, small result dict out.
+TaskFunction = Callable[[dict[str, Any], "Report | None"], dict[str, Any]]
+#: ``on_event(task_key, completed, total)``: progress of one task, seen by the caller.
+EventHandler = Callable[[str, int, int], None]
+
+ENGINES = ("local", "dask")
+#: Seconds to wait for a Dask scheduler before giving up (kept short: a typo should fail fast).
+CONNECT_TIMEOUT_S = 5.0
+#: Topic of the progress events that Dask workers send to the client.
+DASK_EVENT_TOPIC = "drift-task-progress"
+#: How often a pool worker checks that the process that started it is still alive.
+ORPHAN_POLL_S = 0.5
+
+
+class Engine(Protocol):
+    """Runs task functions and yields their results in the order they finish."""
+
+    description: str
+
+    def run(self, function: TaskFunction, tasks: list[dict[str, Any]]) -> Iterator[dict[str, Any]]:
+        ...
+
+
+def available_cores() -> int:
+    """Cores this process may use (its CPU affinity where the system tells it)."""
+    if hasattr(os, "sched_getaffinity"):
+        return max(1, len(os.sched_getaffinity(0)))
+    return max(1, os.cpu_count() or 1)
+
+
+def plan_workers(n_tasks: int, workers: int) -> tuple[int, int]:
+    """Split ``workers`` cores into (processes, threads per model) for ``n_tasks`` tasks.
+
+    One process per task while there are more cores than running tasks would leave cores idle,
+    so the spare cores become gensim threads: 8 cores and 2 tasks give 2 processes of 4 threads,
+    2 cores and 10 tasks give 2 processes of 1 thread.
+    """
+    processes = max(1, min(workers, n_tasks))
+    threads = max(1, workers // processes)
+    return processes, threads
+
+
+# ---------------------------------------------------------------------------- local engine
+
+_worker_events: Any = None  # the progress queue, set in each pool worker by _init_pool_worker
+
+
+def _exit_when_orphaned(parent_pid: int) -> None:
+    """Stop this pool worker once the process that started it is gone (even after SIGKILL)."""
+    while True:
+        if os.getppid() != parent_pid:
+            os._exit(1)
+        time.sleep(ORPHAN_POLL_S)
+
+
+def _init_pool_worker(events: Any, parent_pid: int) -> None:
+    """Set up one pool worker: progress queue, no Ctrl-C tracebacks, exit with the parent."""
+    global _worker_events
+    _worker_events = events
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C and stops the pool
+    threading.Thread(target=_exit_when_orphaned, args=(parent_pid,), daemon=True).start()
+
+
+def _queue_report(key: str) -> Report | None:
+    if _worker_events is None:
+        return None
+    events = _worker_events
+
+    def report(completed: int, total: int) -> None:
+        events.put((key, completed, total))
+
+    return report
+
+
+def _call_in_pool_worker(function: TaskFunction, task: dict[str, Any]) -> dict[str, Any]:
+    return function(task, _queue_report(task["key"]))
+
+
+def _drain_events(events: Any, on_event: EventHandler) -> None:
+    """Pass progress events from the pool workers to ``on_event`` until a None arrives."""
+    while True:
+        item = events.get()
+        if item is None:
+            return
+        on_event(*item)
+
+
+class LocalEngine:
+    """Tasks in ``processes`` worker processes on this machine (in this process when 1)."""
+
+    def __init__(self, processes: int, on_event: EventHandler | None = None) -> None:
+        self.processes = max(1, processes)
+        self.on_event = on_event
+        self.description = f"local, {self.processes} process{'es' if self.processes > 1 else ''}"
+
+    def run(self, function: TaskFunction, tasks: list[dict[str, Any]]) -> Iterator[dict[str, Any]]:
+        if not tasks:
+            return
+        if self.processes == 1:
+            yield from self._run_here(function, tasks)
+        else:
+            yield from self._run_in_pool(function, tasks)
+
+    def _run_here(self, function: TaskFunction, tasks: list[dict[str, Any]]) -> Iterator[dict]:
+        for task in tasks:
+            report = None
+            if self.on_event is not None:
+                report = functools.partial(self.on_event, task["key"])
+            yield function(task, report)
+
+    def _run_in_pool(self, function: TaskFunction, tasks: list[dict[str, Any]]) -> Iterator[dict]:
+        import multiprocessing
+        from concurrent.futures import ProcessPoolExecutor, as_completed
+        from concurrent.futures.process import BrokenProcessPool
+
+        # spawn, not fork: this process may hold threads (progress bars, gensim) that fork copies
+        # in a broken state; spawned workers start clean on every platform.
+        context = multiprocessing.get_context("spawn")
+        events = context.Queue() if self.on_event is not None else None
+        drain = None
+        if events is not None:
+            drain = threading.Thread(
+                target=_drain_events, args=(events, self.on_event), daemon=True
+            )
+            drain.start()
+        executor = ProcessPoolExecutor(
+            max_workers=min(self.processes, len(tasks)),
+            mp_context=context,
+            initializer=_init_pool_worker,
+            initargs=(events, os.getpid()),
+        )
+        finished = False
+        futures = []
+        try:
+            futures = [executor.submit(_call_in_pool_worker, function, task) for task in tasks]
+            for future in as_completed(futures):
+                yield future.result()
+            finished = True
+        except BrokenProcessPool:
+            raise DriftError(
+                "A training process stopped unexpectedly (out of memory, or killed); finished "
+                "models are kept, so rerun the same command to resume (use fewer --workers if "
+                "memory is short)."
+            ) from None
+        finally:
+            if not finished:  # an error, Ctrl-C or an abandoned generator: stop running tasks now
+                for future in futures:
+                    future.cancel()
+                for process in list((getattr(executor, "_processes", None) or {}).values()):
+                    process.terminate()
+            executor.shutdown(wait=True, cancel_futures=True)
+            if events is not None and drain is not None:
+                events.put(None)
+                drain.join(timeout=5)
+                events.close()
+
+
+# ---------------------------------------------------------------------------- dask engine
+
+
+def _dask_report(key: str) -> Report | None:
+    try:
+        from distributed import get_worker
+
+        worker = get_worker()
+    except (ImportError, ValueError):
+        return None
+
+    def report(completed: int, total: int) -> None:
+        worker.log_event(DASK_EVENT_TOPIC, {"key": key, "completed": completed, "total": total})
+
+    return report
+
+
+def _call_on_dask_worker(function: TaskFunction, task: dict[str, Any]) -> dict[str, Any]:
+    report = _dask_report(task["key"]) if task.get("report", True) else None
+    return function(task, report)
+
+
+def _import_distributed() -> Any:
+    try:
+        import distributed
+    except ImportError:
+        raise DriftError(
+            "--engine dask needs Dask's distributed scheduler; install it with "
+            "pip install 'lexical-drift[dask]' or use --engine local."
+        ) from None
+    return distributed
+
+
+class DaskEngine:
+    """Tasks on a Dask cluster: the scheduler at ``address``, or a LocalCluster when None.
+
+    Every worker must see the run folder at the same path (a shared file system) and have drift
+    installed. The connection is made when the engine is opened, so an unreachable scheduler
+    is reported before anything is written.
+    """
+
+    def __init__(
+        self,
+        address: str | None,
+        processes: int,
+        on_event: EventHandler | None = None,
+        timeout_s: float | None = None,
+    ) -> None:
+        self.address = address
+        self.processes = max(1, processes)
+        self.on_event = on_event
+        self.timeout_s = CONNECT_TIMEOUT_S if timeout_s is None else timeout_s
+        self.client: Any = None
+        self.cluster: Any = None
+        where = address or f"LocalCluster of {self.processes} worker{'s' * (self.processes > 1)}"
+        self.description = f"dask, {where}"
+
+    def open(self) -> DaskEngine:
+        distributed = _import_distributed()
+        if self.address is None:
+            self.cluster = distributed.LocalCluster(
+                n_workers=self.processes,
+                threads_per_worker=1,
+                processes=True,
+                dashboard_address=None,
+                silence_logs=logging.ERROR,
+            )
+            self.client = distributed.Client(self.cluster)
+        else:
+            self.client = connect_dask(self.address, self.timeout_s)
+        if self.on_event is not None:
+            handler = self.on_event
+
+            def on_dask_event(event: tuple[float, dict[str, Any]]) -> None:
+                msg = event[1]
+                handler(msg["key"], msg["completed"], msg["total"])
+
+            self.client.subscribe_topic(DASK_EVENT_TOPIC, on_dask_event)
+        return self
+
+    def close(self) -> None:
+        if self.client is not None:
+            with contextlib.suppress(Exception):
+                self.client.close()
+        if self.cluster is not None:
+            with contextlib.suppress(Exception):
+                self.cluster.close()
+        self.client = self.cluster = None
+
+    def run(self, function: TaskFunction, tasks: list[dict[str, Any]]) -> Iterator[dict[str, Any]]:
+        if not tasks:
+            return
+        distributed = _import_distributed()
+        report = self.on_event is not None
+        futures = [
+            self.client.submit(
+                _call_on_dask_worker,
+                function,
+                {**task, "report": report},
+                key=f"drift-{task['key']}-{os.urandom(4).hex()}",
+                pure=False,
+            )
+            for task in tasks
+        ]
+        try:
+            for future in distributed.as_completed(futures):
+                yield future.result()
+        finally:
+            self.client.cancel([f for f in futures if not f.done()])
+
+
+def connect_dask(address: str, timeout_s: float = CONNECT_TIMEOUT_S) -> Any:
+    """A Dask client for the scheduler at ``address``, or a DriftError naming the address."""
+    distributed = _import_distributed()
+    try:
+        return distributed.Client(address, timeout=timeout_s, set_as_default=False)
+    except (OSError, TimeoutError, ValueError) as exc:
+        reason = str(exc).split("\n")[0][:160] or exc.__class__.__name__
+        raise DriftError(
+            f"Could not reach the Dask scheduler at {address} within {timeout_s:g} s ({reason}); "
+            "check the address and that the scheduler is running (nothing was written)."
+        ) from None
+
+
+@contextlib.contextmanager
+def open_engine(
+    kind: str,
+    *,
+    processes: int,
+    scheduler: str | None = None,
+    on_event: EventHandler | None = None,
+) -> Iterator[Engine]:
+    """The engine ``kind`` ('local' or 'dask'), ready to run tasks; closed on leaving."""
+    if kind == "local":
+        yield LocalEngine(processes, on_event)
+        return
+    if kind != "dask":
+        raise DriftError(f"Unknown engine '{kind}'; choose one of {', '.join(ENGINES)}.")
+    engine = DaskEngine(scheduler, processes, on_event)
+    try:
+        engine.open()
+        yield engine
+    finally:
+        engine.close()
+
+
+def run_all(engine: Engine, function: TaskFunction, tasks: Iterable[dict[str, Any]]) -> list[dict]:
+    """Run every task and return the results in the order they finished."""
+    return list(engine.run(function, list(tasks)))

@@ -1,0 +1,742 @@
+"""STAGE train: one Word2Vec model per slice and seed, plus the time-shuffled control pair.
+
+Each model is trained by gensim in ``corpus_file`` mode straight from ``slices/<label>.txt`` and
+its word vectors (with counts) are saved as ``models/<label>/seed-<k>.kv``. The control pair pools
+the lines of the two compared slices, shuffles them with a recorded seed and splits them into
+two slices of the original token sizes (``control/slices/control-a.txt``, ``control-b.txt``);
+their models go to ``control/control-a/seed-<k>.kv`` and ``control/control-b/seed-<k>.kv``.
+
+Every model has a small JSON sidecar (``seed-<k>.json``) written after the ``.kv`` is in place.
+It holds a fingerprint of the slice file and the parameters, so a model whose inputs did not
+change is reused, and a run killed half-way resumes with the models it had finished.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import mmap
+import re
+import time
+from collections.abc import Callable
+from contextlib import ExitStack
+from dataclasses import asdict, dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from drift import engines, runfolder
+from drift.errors import DriftError, close_matches
+from drift.progress import progress_bars
+from drift.runfolder import RunPaths
+
+ARCHITECTURES = ("skipgram", "cbow")
+CONTROL_LABELS = ("control-a", "control-b")
+#: Bumped when the way a model is trained or saved changes, so older models are retrained.
+MODEL_FORMAT = 1
+CONTROL_FORMAT = 1
+RESULT_COLUMNS = ["group", "label", "seed", "path", "vocabulary", "seconds", "reused"]
+_LABEL_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
+_SEED_LIMIT = 2**32  # gensim seeds numpy's RandomState, which takes 0 .. 2**32 - 1
+
+
+# ---------------------------------------------------------------------------- parameters
+
+
+@dataclass(frozen=True)
+class TrainParams:
+    """The parameters that decide what a model is (not where or how fast it is trained)."""
+
+    architecture: str
+    dim: int
+    window: int
+    negative: int
+    sample: float
+    epochs: int
+    min_count: int
+    seeds: int
+    base_seed: int
+
+    def model(self, seed_index: int) -> dict[str, Any]:
+        """The parameters of one model; gensim's seed is ``base_seed + seed_index``."""
+        record = asdict(self)
+        record.pop("seeds")
+        record.pop("base_seed")
+        record["seed"] = self.base_seed + seed_index
+        return record
+
+
+def validate_params(
+    *,
+    architecture: str,
+    dim: int,
+    window: int,
+    negative: int,
+    sample: float,
+    epochs: int,
+    min_count: int,
+    seeds: int,
+    base_seed: int,
+) -> TrainParams:
+    """Check every training parameter, raising a DriftError that names the first bad one."""
+    if architecture not in ARCHITECTURES:
+        raise DriftError(
+            f"--architecture must be one of {', '.join(ARCHITECTURES)} (got '{architecture}')."
+        )
+    checks = [
+        (dim >= 2, f"--dim must be at least 2 (got {dim}); 50 to 300 is the usual range."),
+        (window >= 1, f"--window must be at least 1 (got {window}); 5 is a common choice."),
+        (
+            negative >= 1,
+            f"--negative must be at least 1 (got {negative}): drift trains with negative "
+            "sampling; 5 to 20 noise words is the usual range.",
+        ),
+        (
+            0 <= sample < 1,
+            f"--sample must be at least 0 and below 1 (got {sample}); 1e-3 to 1e-5 is usual, "
+            "0 turns sub-sampling off.",
+        ),
+        (epochs >= 1, f"--epochs must be at least 1 (got {epochs})."),
+        (min_count >= 1, f"--min-count must be at least 1 (got {min_count})."),
+        (seeds >= 1, f"--seeds must be at least 1 (got {seeds}); 2 or more measure seed noise."),
+        (
+            0 <= base_seed and base_seed + seeds <= _SEED_LIMIT,
+            f"The base seed must be between 0 and {_SEED_LIMIT - 1 - seeds} (got {base_seed}).",
+        ),
+    ]
+    for ok, message in checks:
+        if not ok:
+            raise DriftError(message)
+    return TrainParams(
+        architecture=architecture,
+        dim=int(dim),
+        window=int(window),
+        negative=int(negative),
+        sample=float(sample),
+        epochs=int(epochs),
+        min_count=int(min_count),
+        seeds=int(seeds),
+        base_seed=int(base_seed),
+    )
+
+
+def stable_hash(text: str) -> int:
+    """A hash of ``text`` that is the same in every process (Python's hash() is salted).
+
+    Passed to gensim as ``hashfxn`` so that nothing in training depends on PYTHONHASHSEED.
+    """
+    return int.from_bytes(hashlib.blake2b(text.encode("utf-8"), digest_size=8).digest(), "little")
+
+
+# ---------------------------------------------------------------------------- slices and labels
+
+
+def checked_slice_labels(paths: RunPaths) -> list[str]:
+    """Slice labels in time order (from the slice stage), each with a non-empty slice file."""
+    from drift.slicing import slice_labels
+
+    labels = [str(label) for label in slice_labels(paths.root)]
+    if not labels:
+        raise DriftError(
+            f"{paths.root} lists no slices; make them with 'drift slice SOURCE --out {paths.root}'."
+        )
+    for label in labels:
+        if not _LABEL_RE.match(label):
+            raise DriftError(
+                f"Slice label '{label}' in {paths.root} is not a safe file name; "
+                "rerun 'drift slice' to rebuild the slices."
+            )
+    for label in labels:
+        slice_file = paths.slice_file(label)
+        if not slice_file.is_file():
+            raise DriftError(
+                f"Slice file {slice_file} is missing; rerun 'drift slice' to rebuild the slices."
+            )
+        if slice_file.stat().st_size == 0:
+            raise DriftError(
+                f"Slice '{label}' is empty; rerun 'drift slice' with larger time bins."
+            )
+    return labels
+
+
+def resolve_between(labels: list[str], between: tuple[str, str] | list[str] | None) -> list[str]:
+    """The two slices the control pair stands for: ``between`` or the first and last slice."""
+    if between is None:
+        if len(labels) < 2:
+            raise DriftError(
+                f"The run has one slice ({labels[0]}), so there is no pair to build a control "
+                "from; slice into two or more periods or pass --no-control."
+            )
+        return [labels[0], labels[-1]]
+    pair = [str(label) for label in between]
+    if len(pair) != 2:
+        raise DriftError(f"--between takes two slice labels (got {len(pair)}).")
+    for label in pair:
+        if label not in labels:
+            hint = close_matches(label, labels, n=3)
+            suggestion = f"did you mean {', '.join(hint)}? " if hint else ""
+            raise DriftError(
+                f"Slice '{label}' is not in this run; {suggestion}"
+                f"the slices are {', '.join(labels)}."
+            )
+    if pair[0] == pair[1]:
+        raise DriftError(f"--between needs two different slices (got {pair[0]} twice).")
+    return pair
+
+
+# ---------------------------------------------------------------------------- control pair
+
+
+def control_slice_file(paths: RunPaths, name: str) -> Path:
+    return paths.control_dir / "slices" / f"{name}.txt"
+
+
+def _control_record_file(paths: RunPaths) -> Path:
+    return paths.control_dir / "slices" / "control.json"
+
+
+def line_index(path: Path, chunk_size: int = 1 << 22) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Byte ranges and token counts of the non-empty lines of a slice file.
+
+    Returns ``(starts, ends, tokens)``: line i is ``bytes[starts[i]:ends[i]]`` without its
+    newline, with ``tokens[i]`` space-separated tokens. Reads the file in chunks; memory is a few
+    integers per line, not the text.
+    """
+    newline_at: list[np.ndarray] = []
+    spaces_to_newline: list[np.ndarray] = []
+    offset = 0
+    spaces_before = 0
+    with Path(path).open("rb") as handle:
+        while chunk := handle.read(chunk_size):
+            data = np.frombuffer(chunk, dtype=np.uint8)
+            newlines = np.flatnonzero(data == 10)
+            spaces = np.cumsum(data == 32, dtype=np.int64)
+            newline_at.append(newlines.astype(np.int64) + offset)
+            spaces_to_newline.append(spaces[newlines] + spaces_before)
+            spaces_before += int(spaces[-1])
+            offset += len(data)
+    no_lines = np.zeros(0, np.int64)
+    ends = np.concatenate(newline_at) if newline_at else no_lines
+    spaces_at_end = np.concatenate(spaces_to_newline) if spaces_to_newline else no_lines
+    if offset and (len(ends) == 0 or ends[-1] != offset - 1):  # a last line without newline
+        ends = np.append(ends, offset)
+        spaces_at_end = np.append(spaces_at_end, spaces_before)
+    if len(ends) == 0:
+        return no_lines, no_lines, no_lines
+    starts = np.concatenate([[0], ends[:-1] + 1]).astype(np.int64)
+    spaces_in_line = np.diff(np.concatenate([[0], spaces_at_end]))
+    lengths = ends - starts
+    tokens = np.where(lengths > 0, spaces_in_line + 1, 0)
+    keep = tokens > 0
+    return starts[keep], ends[keep], tokens[keep]
+
+
+def split_point(tokens_in_order: np.ndarray, target_tokens: int) -> int:
+    """How many leading lines make a total closest to ``target_tokens`` (at least one each side)."""
+    totals = np.cumsum(tokens_in_order)
+    cut = int(np.argmin(np.abs(totals - target_tokens))) + 1
+    return min(max(cut, 1), len(tokens_in_order) - 1)
+
+
+def _write_lines(
+    target: Path,
+    picks: np.ndarray,
+    sources: np.ndarray,
+    starts: np.ndarray,
+    ends: np.ndarray,
+    texts: list[Any],
+) -> None:
+    with runfolder.atomic_path(target) as tmp, tmp.open("wb", buffering=1 << 20) as out:
+        for source, start, end in zip(
+            sources[picks].tolist(), starts[picks].tolist(), ends[picks].tolist(), strict=True
+        ):
+            out.write(texts[source][start:end])
+            out.write(b"\n")
+
+
+def _control_sources(paths: RunPaths, pair: list[str], shuffle_seed: int) -> dict[str, Any]:
+    return {
+        "format": CONTROL_FORMAT,
+        "between": list(pair),
+        "shuffle_seed": int(shuffle_seed),
+        "sources": {label: runfolder.fingerprint_file(paths.slice_file(label)) for label in pair},
+    }
+
+
+def current_control_slices(
+    paths: RunPaths, pair: list[str], shuffle_seed: int
+) -> dict[str, Any] | None:
+    """The record of the control slices when they exist and match ``pair`` and the seed."""
+    record_file = _control_record_file(paths)
+    try:
+        record = json.loads(record_file.read_text(encoding="utf-8"))
+    except (OSError, json.JSONDecodeError):
+        return None
+    expected = _control_sources(paths, pair, shuffle_seed)
+    if any(record.get(key) != value for key, value in expected.items()):
+        return None
+    for name in CONTROL_LABELS:
+        text = control_slice_file(paths, name)
+        if not text.is_file() or record.get("outputs", {}).get(name) != runfolder.fingerprint_file(
+            text
+        ):
+            return None
+    return record
+
+
+def build_control_slices(paths: RunPaths, pair: list[str], shuffle_seed: int) -> dict[str, Any]:
+    """Pool the lines of the two slices in ``pair``, shuffle, and split them at their sizes.
+
+    ``control-a`` gets as many tokens as slice A (to the nearest whole line) and ``control-b``
+    the rest, which is the size of slice B. Only line offsets are held in memory.
+    """
+    first, second = (line_index(paths.slice_file(label)) for label in pair)
+    sizes = [len(first[0]), len(second[0])]
+    if min(sizes) == 0:
+        empty = pair[sizes.index(0)]
+        raise DriftError(f"Slice '{empty}' has no text; rerun 'drift slice' with larger bins.")
+    sources = np.concatenate([np.zeros(sizes[0], np.int8), np.ones(sizes[1], np.int8)])
+    starts = np.concatenate([first[0], second[0]])
+    ends = np.concatenate([first[1], second[1]])
+    tokens = np.concatenate([first[2], second[2]])
+    order = np.random.default_rng(shuffle_seed).permutation(len(tokens))
+    cut = split_point(tokens[order], int(first[2].sum()))
+    picks = {CONTROL_LABELS[0]: order[:cut], CONTROL_LABELS[1]: order[cut:]}
+    with ExitStack() as stack:
+        texts = []
+        for label in pair:
+            handle = stack.enter_context(paths.slice_file(label).open("rb"))
+            text = mmap.mmap(handle.fileno(), 0, access=mmap.ACCESS_READ)
+            texts.append(stack.enter_context(text))
+        for name, chosen in picks.items():
+            _write_lines(control_slice_file(paths, name), chosen, sources, starts, ends, texts)
+    record = {
+        **_control_sources(paths, pair, shuffle_seed),
+        "lines": {name: int(len(chosen)) for name, chosen in picks.items()},
+        "tokens": {name: int(tokens[chosen].sum()) for name, chosen in picks.items()},
+        "source_lines": dict(zip(pair, sizes, strict=True)),
+        "source_tokens": {pair[0]: int(first[2].sum()), pair[1]: int(second[2].sum())},
+        "outputs": {
+            name: runfolder.fingerprint_file(control_slice_file(paths, name))
+            for name in CONTROL_LABELS
+        },
+    }
+    runfolder.write_json_atomic(_control_record_file(paths), record)
+    return record
+
+
+# ---------------------------------------------------------------------------- one model (the task)
+
+
+def sidecar_file(model_file: Path) -> Path:
+    """The JSON file beside a model that says it is finished and what it was made from."""
+    return Path(model_file).with_suffix(".json")
+
+
+def model_fingerprint(model_params: dict[str, Any], corpus: Path) -> str:
+    corpus_print = runfolder.fingerprint_file(corpus)
+    return runfolder.fingerprint_params(
+        {"format": MODEL_FORMAT, "model": model_params, "corpus": corpus_print}
+    )
+
+
+def finished_model(model_file: Path, fingerprint: str) -> dict[str, Any] | None:
+    """The sidecar of a finished model made from the same inputs, else None."""
+    try:
+        record = json.loads(sidecar_file(model_file).read_text(encoding="utf-8"))
+    except (OSError, json.JSONDecodeError):
+        return None
+    if record.get("fingerprint") != fingerprint or not Path(model_file).is_file():
+        return None
+    return record
+
+
+def save_vectors_atomic(vectors: Any, target: Path) -> None:
+    """Save KeyedVectors as one file (no side .npy files), renamed into place when complete."""
+    with runfolder.atomic_path(target) as tmp:
+        vectors.save(str(tmp), separately=[])
+
+
+def _epoch_callback(report: Callable[[int, int], None], total: int) -> Any:
+    from gensim.models.callbacks import CallbackAny2Vec
+
+    class EpochReport(CallbackAny2Vec):
+        def __init__(self) -> None:
+            self.done = 1
+
+        def on_epoch_end(self, model: Any) -> None:
+            self.done += 1
+            report(self.done, total)
+
+    return EpochReport()
+
+
+def _empty_vocabulary_error(task: dict[str, Any]) -> DriftError:
+    min_count = task["model"]["min_count"]
+    if task["group"] == "control":
+        what = f"Control slice '{task['label']}' (lines pooled from the compared slices)"
+    else:
+        what = f"Slice '{task['label']}'"
+    return DriftError(
+        f"{what} has no word that occurs at least {min_count} times; lower --min-count "
+        "or slice into larger time bins."
+    )
+
+
+def train_one_model(
+    task: dict[str, Any], report: Callable[[int, int], None] | None = None
+) -> dict[str, Any]:
+    """Train, save and describe one model: the task both engines run.
+
+    ``task`` holds plain values only: ``key, group, label, seed, corpus, output, model`` (the
+    parameters from :meth:`TrainParams.model`), ``threads`` and ``fingerprint``. Writes the
+    ``.kv`` file and then its sidecar; returns a small dict describing the model.
+    """
+    from gensim import __version__ as gensim_version
+    from gensim.models import Word2Vec
+
+    corpus, output, params = Path(task["corpus"]), Path(task["output"]), task["model"]
+    if not corpus.is_file():
+        raise DriftError(
+            f"Slice file {corpus} cannot be read here; with --engine dask the run folder must be "
+            "on a file system that every worker sees at the same path."
+        )
+    started = time.perf_counter()
+    steps = params["epochs"] + 1  # the vocabulary scan, then one step per epoch
+    if report is not None:
+        report(0, steps)
+    model = Word2Vec(
+        sg=1 if params["architecture"] == "skipgram" else 0,
+        hs=0,
+        vector_size=params["dim"],
+        window=params["window"],
+        negative=params["negative"],
+        sample=params["sample"],
+        min_count=params["min_count"],
+        epochs=params["epochs"],
+        seed=params["seed"],
+        workers=task["threads"],
+        hashfxn=stable_hash,
+    )
+    model.build_vocab(corpus_file=str(corpus))
+    if len(model.wv) == 0:
+        raise _empty_vocabulary_error(task)
+    if report is not None:
+        report(1, steps)
+    model.train(
+        corpus_file=str(corpus),
+        total_examples=model.corpus_count,
+        total_words=model.corpus_total_words,
+        epochs=model.epochs,
+        callbacks=[_epoch_callback(report, steps)] if report is not None else [],
+    )
+    vectors, words = model.wv, int(model.corpus_total_words)
+    del model
+    seconds = time.perf_counter() - started
+    save_vectors_atomic(vectors, output)
+    summary = {
+        "key": task["key"],
+        "group": task["group"],
+        "label": task["label"],
+        "seed": task["seed"],
+        "path": str(output),
+        "vocabulary": len(vectors),
+        "words": words,
+        "seconds": round(seconds, 3),
+        "threads": task["threads"],
+    }
+    sidecar = {
+        **summary,
+        "fingerprint": task["fingerprint"],
+        "model": params,
+        "gensim": gensim_version,
+        "finished": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+    }
+    runfolder.write_json_atomic(sidecar_file(output), sidecar)
+    return summary
+
+
+# ---------------------------------------------------------------------------- the stage
+
+
+def _model_tasks(
+    paths: RunPaths, params: TrainParams, labels: list[str], control: bool
+) -> list[dict[str, Any]]:
+    """Every model of the run, slices first (time order, then seed), then the control pair."""
+    groups = [("slice", label, paths.slice_file(label), paths.models_dir) for label in labels]
+    if control:
+        groups += [
+            ("control", name, control_slice_file(paths, name), paths.control_dir)
+            for name in CONTROL_LABELS
+        ]
+    tasks = []
+    for group, label, corpus, folder in groups:
+        for seed in range(params.seeds):
+            output = folder / label / f"seed-{seed}.kv"
+            tasks.append(
+                {
+                    "key": f"{group}/{label}/seed-{seed}",
+                    "group": group,
+                    "label": label,
+                    "seed": seed,
+                    "corpus": str(corpus.resolve()),
+                    "output": str(output.resolve()),
+                    "model": params.model(seed),
+                    "threads": 1,
+                    "fingerprint": None,
+                }
+            )
+    return tasks
+
+
+def _result_row(task: dict[str, Any], result: dict[str, Any], reused: bool) -> dict[str, Any]:
+    return {
+        "group": task["group"],
+        "label": task["label"],
+        "seed": task["seed"],
+        "path": task["output"],
+        "vocabulary": int(result.get("vocabulary", 0)),
+        "seconds": float(result.get("seconds", 0.0)),
+        "reused": reused,
+    }
+
+
+def _slices_fingerprint(paths: RunPaths, labels: list[str]) -> str:
+    return runfolder.fingerprint_params(
+        {label: runfolder.fingerprint_file(paths.slice_file(label)) for label in labels}
+    )
+
+
+def _resolve_workers(workers: int | None) -> int:
+    if workers is None:
+        return engines.available_cores()
+    if workers < 1:
+        raise DriftError(f"--workers must be at least 1 (got {workers}).")
+    return int(workers)
+
+
+class _TaskBars:
+    """One progress bar per running task plus the overall bar; safe to call from any thread."""
+
+    def __init__(self, progress: Any, overall: Any) -> None:
+        import threading
+
+        self.progress, self.overall = progress, overall
+        self.bars: dict[str, Any] = {}
+        self.finished: set[str] = set()
+        self.lock = threading.Lock()
+
+    def on_event(self, key: str, completed: int, total: int) -> None:
+        with self.lock:
+            if key in self.finished:
+                return
+            if key not in self.bars:
+                self.bars[key] = self.progress.add_task(f"  {key}", total=total)
+            self.progress.update(self.bars[key], completed=completed, total=total)
+
+    def done(self, key: str) -> None:
+        with self.lock:
+            self.finished.add(key)
+            bar = self.bars.pop(key, None)
+            if bar is not None:
+                self.progress.remove_task(bar)
+            self.progress.advance(self.overall)
+
+
+def train_run(
+    run: str | Path,
+    *,
+    architecture: str = "skipgram",
+    dim: int = 100,
+    window: int = 5,
+    negative: int = 5,
+    sample: float = 1e-3,
+    epochs: int = 5,
+    min_count: int = 20,
+    seeds: int = 2,
+    workers: int | None = None,
+    between: tuple[str, str] | list[str] | None = None,
+    control: bool = True,
+    engine: str = "local",
+    scheduler: str | None = None,
+    base_seed: int = 1,
+    quiet: bool = False,
+) -> pd.DataFrame:
+    """Train every slice-by-seed model of a run (and the control pair), reusing finished ones.
+
+    Returns one row per model: ``group`` ('slice' or 'control'), ``label``, ``seed``, ``path``,
+    ``vocabulary`` (words kept), ``seconds`` (training time) and ``reused``.
+    """
+    started = time.perf_counter()
+    params = validate_params(
+        architecture=architecture,
+        dim=dim,
+        window=window,
+        negative=negative,
+        sample=sample,
+        epochs=epochs,
+        min_count=min_count,
+        seeds=seeds,
+        base_seed=base_seed,
+    )
+    if engine not in engines.ENGINES:
+        raise DriftError(f"--engine must be one of {', '.join(engines.ENGINES)} (got '{engine}').")
+    if scheduler and engine != "dask":
+        raise DriftError("--scheduler only applies with --engine dask; add --engine dask.")
+    remote = engine == "dask" and bool(scheduler)
+    cores = _resolve_workers(workers)
+    paths = runfolder.existing_run(Path(run), needs="slices")
+    labels = checked_slice_labels(paths)
+    pair = resolve_between(labels, between) if control else None
+    shuffle_seed = params.base_seed
+    stage_params = {**asdict(params), "control": bool(control), "between": pair}
+    inputs = _slices_fingerprint(paths, labels)
+
+    with runfolder.run_lock(paths.root):
+        if not runfolder.stage_is_current(paths.root, "train", stage_params, inputs):
+            runfolder.forget_stage(paths.root, "train")  # never leave a record of other models
+        control_record = current_control_slices(paths, pair, shuffle_seed) if pair else None
+        tasks = _model_tasks(paths, params, labels, control)
+        rows: dict[str, dict[str, Any]] = {}
+        pending = []
+        for task in tasks:
+            if task["group"] == "control" and control_record is None:
+                pending.append(task)  # the control slices are rewritten, so every model retrains
+                continue
+            task["fingerprint"] = model_fingerprint(task["model"], Path(task["corpus"]))
+            done = finished_model(Path(task["output"]), task["fingerprint"])
+            if done is None:
+                pending.append(task)
+            else:
+                rows[task["key"]] = _result_row(task, done, reused=True)
+        processes, threads = engines.plan_workers(len(pending), cores)
+        if remote:
+            processes, threads = 0, int(workers) if workers else 1
+        for task in pending:
+            task["threads"] = threads
+
+        with progress_bars(quiet) as progress:
+            overall = progress.add_task("train: models", total=len(tasks), completed=len(rows))
+            bars = _TaskBars(progress, overall)
+            with ExitStack() as stack:
+                runner = None
+                if pending:  # connect first: an unreachable scheduler fails before any write
+                    runner = stack.enter_context(
+                        engines.open_engine(
+                            engine,
+                            processes=processes,
+                            scheduler=scheduler,
+                            on_event=None if quiet else bars.on_event,
+                        )
+                    )
+                if pair and control_record is None:
+                    progress.update(overall, description="train: pooling the control pair")
+                    control_record = build_control_slices(paths, pair, shuffle_seed)
+                    progress.update(overall, description="train: models")
+                for task in pending:
+                    if task["fingerprint"] is None:
+                        task["fingerprint"] = model_fingerprint(task["model"], Path(task["corpus"]))
+                # largest slices first, so that no long task starts last and runs alone
+                pending.sort(key=lambda task: -Path(task["corpus"]).stat().st_size)
+                by_key = {task["key"]: task for task in pending}
+                if runner is not None:
+                    for result in runner.run(train_one_model, pending):
+                        rows[result["key"]] = _result_row(by_key[result["key"]], result, False)
+                        bars.done(result["key"])
+
+        control_summary = None
+        if pair and control_record is not None:
+            control_summary = {
+                "between": pair,
+                "shuffle_seed": shuffle_seed,
+                "labels": list(CONTROL_LABELS),
+                "lines": control_record["lines"],
+                "tokens": control_record["tokens"],
+            }
+        execution = {
+            "engine": engine,
+            "scheduler": scheduler if remote else ("LocalCluster" if engine == "dask" else None),
+            "workers": cores,
+            "processes": processes,
+            "threads_per_model": threads,
+            "deterministic": threads == 1,
+        }
+        outputs = runfolder.fingerprint_params(
+            {key: runfolder.fingerprint_file(Path(row["path"])) for key, row in rows.items()}
+        )
+        runfolder.record_stage(
+            paths.root,
+            "train",
+            stage_params,
+            inputs,
+            time.perf_counter() - started,
+            extra={
+                "control": control_summary,
+                "labels": labels,
+                "execution": execution,
+                "outputs": outputs,
+                "models": {"total": len(tasks), "trained": len(pending)},
+            },
+        )
+    ordered = [rows[task["key"]] for task in tasks]
+    return pd.DataFrame(ordered, columns=RESULT_COLUMNS)
+
+
+# ---------------------------------------------------------------------------- reading results
+
+
+def _train_record(run: str | Path) -> dict[str, Any]:
+    root = Path(run)
+    paths = runfolder.existing_run(root, needs="models")
+    record = runfolder.read_manifest(paths.root).get("stages", {}).get("train")
+    if not record:
+        raise DriftError(f"{root} has no finished training; run 'drift train {root}'.")
+    return record
+
+
+def trained_seeds(run: str | Path) -> list[int]:
+    """Seed indices k of the finished models (``seed-<k>.kv``), from run.json."""
+    return list(range(int(_train_record(run)["params"]["seeds"])))
+
+
+def control_info(run: str | Path) -> dict[str, Any] | None:
+    """The control pair of a trained run, or None when it was trained with --no-control.
+
+    ``{"between": [A, B], "shuffle_seed": s, "labels": ["control-a", "control-b"], ...}``
+    """
+    return _train_record(run).get("control")
+
+
+def load_vectors(run: str | Path, label: str, seed: int, control: bool = False) -> Any:
+    """The KeyedVectors of one model (counts in ``kv.get_vecattr(word, "count")``)."""
+    from gensim.models import KeyedVectors
+
+    paths = RunPaths(Path(run))
+    record = _train_record(run)
+    if control:
+        known = list(CONTROL_LABELS) if record.get("control") else []
+        model_file = paths.control_model_file(label, seed)
+    else:
+        known = list(record.get("labels", []))
+        model_file = paths.model_file(label, seed)
+    if label not in known:
+        if control and not known:
+            raise DriftError(
+                f"{run} was trained with --no-control; rerun 'drift train {run}' without it."
+            )
+        hint = close_matches(label, known, n=3)
+        suggestion = f"did you mean {', '.join(hint)}? " if hint else ""
+        raise DriftError(
+            f"'{label}' is not a trained {'control ' if control else ''}slice of {run}; "
+            f"{suggestion}the labels are {', '.join(known)}."
+        )
+    seeds = range(int(record["params"]["seeds"]))
+    if seed not in seeds or not model_file.is_file():
+        raise DriftError(
+            f"No model for seed {seed} of '{label}' in {run} "
+            f"(trained seeds: 0 to {len(seeds) - 1}); "
+            f"rerun 'drift train {run}' to complete it."
+        )
+    return KeyedVectors.load(str(model_file))
