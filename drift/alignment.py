@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-from scipy.linalg import orthogonal_procrustes
+from scipy.linalg import svd
 
 from drift.errors import DriftError
 
@@ -62,13 +62,14 @@ def prepare_vectors(matrix: np.ndarray) -> np.ndarray:
 def procrustes_rotation(source: np.ndarray, target: np.ndarray) -> np.ndarray:
     """The orthogonal ``R`` that minimises ``||source @ R - target||`` (Frobenius norm).
 
-    ``source`` and ``target`` hold the anchor words' vectors row by row in the same order; the
-    SVD solution of Schonemann (1966), computed by :func:`scipy.linalg.orthogonal_procrustes`.
+    ``source`` and ``target`` hold the anchor words' vectors row by row in the same order. The
+    SVD solution of Schonemann (1966): with ``U S V^T = svd(source^T target)``, ``R = U V^T``.
+    The small d x d cross-product is formed from the float32 vectors directly (no float64 copy
+    of the anchor matrices) and decomposed in float64.
     """
-    rotation, _ = orthogonal_procrustes(
-        np.asarray(source, dtype=np.float64), np.asarray(target, dtype=np.float64)
-    )
-    return rotation
+    cross = np.asarray(source).T @ np.asarray(target)
+    left, _, right = svd(cross.astype(np.float64), full_matrices=False)
+    return left @ right
 
 
 def parse_anchors(value: str | int | Sequence[str] | None) -> AnchorSpec:

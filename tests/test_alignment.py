@@ -33,6 +33,9 @@ def test_procrustes_equals_scipy():
     source, target = rng.standard_normal((200, 12)), rng.standard_normal((200, 12))
     expected, _ = orthogonal_procrustes(source, target)
     np.testing.assert_allclose(procrustes_rotation(source, target), expected, atol=1e-12)
+    # float32 vectors, as the rank stage passes them: the same rotation to float32 precision.
+    single = procrustes_rotation(source.astype(np.float32), target.astype(np.float32))
+    np.testing.assert_allclose(single, expected, atol=1e-5)
 
 
 def test_procrustes_recovers_a_known_random_rotation():

@@ -163,3 +163,23 @@ def test_export_word2vec_and_npz(run, capsys, tmp_path):
         assert data["vectors"].shape == (304, 12)
     code, _, err = _drift(["export", run, "--format", "glove", "--out", tmp_path / "g"], capsys)
     assert code == 2 and "unknown for export" in err
+
+
+def test_scores_table_compact_on_narrow_screens(run):
+    from rich.console import Console
+
+    from drift.cli.rank_views import scores_table
+    from drift.ranking import rank_record, rank_run
+
+    rows = rank_run(run, k=8, quiet=True).head(3)
+    params = rank_record(run)["params"]
+    wide, narrow = scores_table(rows, params, True, 160), scores_table(rows, params, True, 80)
+    assert [str(c.header) for c in wide.columns] == [
+        "#", "word", "displ.", "turnover", "local", "q", "count", "change", "gained", "lost",
+    ]
+    assert [str(c.header) for c in narrow.columns] == [
+        "#", "word", "displ.", "q", "count", "change", "gained",
+    ]
+    console = Console(width=80, record=True)
+    console.print(narrow)
+    assert all(word in console.export_text() for word in rows["word"])
