@@ -182,4 +182,5 @@ def test_scores_table_compact_on_narrow_screens(run):
     ]
     console = Console(width=80, record=True)
     console.print(narrow)
-    assert all(word in console.export_text() for word in rows["word"])
+    text = console.export_text()
+    assert all(word in text for word in rows["word"]), text
