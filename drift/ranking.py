@@ -325,6 +325,13 @@ def measure_seed(
     """Load one seed's models, align, measure the pair, the timeline and the control pair."""
     labels = inputs.labels
     slices = {label: load_slice_vectors(inputs.paths, label, seed) for label in labels}
+    for label in pair:
+        if not all(w in slices[label].index for w in words):
+            raise DriftError(
+                f"Seed {seed} of slice {label} has another vocabulary than the first seed; "
+                f"retrain with 'drift train {inputs.paths.root}' so every seed uses the same "
+                "slices."
+            )
     cand_words = candidate_words([slices[label] for label in labels])
     _check_k(k, len(cand_words), "every slice")
     cand_index = {w: i for i, w in enumerate(cand_words)}
@@ -493,17 +500,31 @@ def _calibration(
     control: list[PairMeasures],
     measure: str,
     alpha: float,
+    quiet: bool = False,
 ):
-    """(calibration columns, the displacement null or None, control_flagged) for the scores."""
+    """(calibration columns, the displacement null or None, control_flagged) for the scores.
+
+    Without a control, or with one too small to fit a null, the columns are empty (NaN, nothing
+    significant) and a note says why.
+    """
     from drift.calibration import CALIBRATION_COLUMNS, fit_null
 
+    empty = pd.DataFrame({c: np.full(len(values), np.nan) for c in CALIBRATION_COLUMNS})
+    empty["significant"] = False
     if not control:
-        empty = pd.DataFrame({c: np.full(len(values), np.nan) for c in CALIBRATION_COLUMNS})
-        empty["significant"] = False
         return empty, None, None
     first = control[0]
+    if any(c.words != first.words for c in control[1:]):
+        raise DriftError(
+            "The control models of different seeds have different vocabularies; retrain the "
+            "run with 'drift train' so every seed uses the same control slices."
+        )
     control_values, _ = mean_and_spread([c.value(measure) for c in control])
-    null = fit_null(control_values, first.counts_from, first.counts_to, alpha=alpha)
+    try:
+        null = fit_null(control_values, first.counts_from, first.counts_to, alpha=alpha)
+    except DriftError as exc:
+        _note(f"no z, p or q for this ranking: {exc}", quiet)
+        return empty, None, None
     columns = null.score(values, count_from, count_to, alpha)
     if measure == "displacement":
         displacement_null = null
@@ -515,7 +536,7 @@ def _calibration(
 
 def _note(message: str, quiet: bool) -> None:
     if not quiet:
-        stderr_console.print(f"note: {message}", markup=False, highlight=False)
+        stderr_console.print(f"note: {message}", markup=False, highlight=False, soft_wrap=True)
 
 
 def _inputs_fingerprint(inputs: RunInputs, anchor_words_list: list[str] | None) -> str:
@@ -653,7 +674,7 @@ def compute_scores(
     controls = [r.control for r in results if r.control is not None]
     calibration, displacement_null, flagged = _calibration(
         scores["score"].to_numpy(), scores["count_from"].to_numpy(),
-        scores["count_to"].to_numpy(), controls, measure, alpha,
+        scores["count_to"].to_numpy(), controls, measure, alpha, quiet,
     )
     for column in calibration.columns:
         scores[column] = calibration[column].to_numpy()

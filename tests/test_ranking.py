@@ -203,6 +203,24 @@ def test_rank_without_control_is_descriptive(tmp_path, capsys):
     assert read_timeline(root)["null_p95"].isna().all()
 
 
+def test_too_small_control_gives_a_descriptive_ranking(tmp_path, capsys):
+    rng = np.random.default_rng(3)
+    words = [f"w{i}" for i in range(200)]
+    counts = np.arange(200, 0, -1) + 20
+    slices = {
+        label: (words, [rng.standard_normal((200, 8))], counts) for label in ("2001", "2002")
+    }
+    tiny = {name: (words[:30], [rng.standard_normal((30, 8))], counts[:30])
+            for name in ("control-a", "control-b")}
+    root = write_array_run(tmp_path / "run", slices, tiny)
+    scores = rank_run(root, k=5)
+    assert scores["z"].isna().all() and not scores["significant"].any()
+    assert "no z, p or q for this ranking: The control pair has only 30 measured words" in (
+        capsys.readouterr().err
+    )
+    assert scores["change_point"].isna().all()  # two slices: no change point
+
+
 def test_between_reference_and_anchors(geometry_run, tmp_path):
     root, _ = geometry_run
     other = tmp_path / "anchors.txt"
