@@ -57,9 +57,36 @@ def plot_text(text: object) -> str:
     return str(text).replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
 
 
-def _base_layout(title: str, x_title: str, y_title: str, height: int = 380) -> dict:
-    return {
-        "template": "simple_white",
+_AXIS = {
+    "linecolor": "rgb(36,36,36)",
+    "showline": True,
+    "ticks": "outside",
+    "zeroline": False,
+    "automargin": True,
+    "title": {"standoff": 12},
+    "gridcolor": LIGHT_GREY,
+}
+#: A small plain template (white, axis lines, outside ticks). Figures are built in one go from a
+#: layout dictionary: plotly applies and copies its default template on every update_layout call,
+#: which made a word page take about half a second to build.
+TEMPLATE = {
+    "layout": {
+        "xaxis": _AXIS,
+        "yaxis": _AXIS,
+        "colorway": LINE_COLOURS,
+        "hovermode": "closest",
+        "paper_bgcolor": "white",
+        "plot_bgcolor": "white",
+    }
+}
+
+
+def _base_layout(
+    title: str, x_title: str, y_title: str, height: int = 380, **axes: dict
+) -> dict:
+    """The layout every figure starts from; ``xaxis={...}`` etc. add to the axis settings."""
+    layout = {
+        "template": TEMPLATE,
         "title": {"text": title, "x": 0, "xanchor": "left", "font": {"size": 15}},
         "font": {"family": FONT, "size": 13, "color": INK},
         "height": height,
@@ -71,6 +98,13 @@ def _base_layout(title: str, x_title: str, y_title: str, height: int = 380) -> d
         "paper_bgcolor": "white",
         "plot_bgcolor": "white",
     }
+    for name, extra in axes.items():
+        layout[name] = {**layout.get(name, {}), **extra}
+    return layout
+
+
+def _figure(traces: list, layout: dict) -> go.Figure:
+    return go.Figure(data=traces, layout=layout)
 
 
 def _fmt(value: object, digits: int = 3) -> str:
@@ -114,10 +148,10 @@ def timeline_figure(
     distance = rows["distance"].to_numpy()
     spread = np.nan_to_num(rows["distance_sd"].to_numpy())
     ref_text = plot_text(reference) if reference else "the reference slice"
-    fig = go.Figure()
+    traces = []
     null = rows["null_p95"].to_numpy()
     if np.isfinite(null).any():
-        fig.add_trace(
+        traces.append(
             go.Scatter(
                 x=x + x[::-1],
                 y=list(np.nan_to_num(null)) + [0.0] * len(x),
@@ -130,7 +164,7 @@ def timeline_figure(
                 meta="null-band",
             )
         )
-    fig.add_trace(
+    traces.append(
         go.Scatter(
             x=x + x[::-1],
             y=list(distance + spread) + list((distance - spread)[::-1]),
@@ -147,7 +181,7 @@ def timeline_figure(
         f"{s}<br>distance {_fmt(d)} ± {_fmt(sd)}<br>control 95%: {_fmt(n)}"
         for s, d, sd, n in zip(x, distance, rows["distance_sd"], null, strict=True)
     ]
-    fig.add_trace(
+    traces.append(
         go.Scatter(
             x=x,
             y=distance,
@@ -160,7 +194,7 @@ def timeline_figure(
             meta="distance",
         )
     )
-    fig.add_trace(
+    traces.append(
         go.Scatter(
             x=x,
             y=rows["turnover"].to_numpy(),
@@ -177,18 +211,21 @@ def timeline_figure(
         f"How far “{plot_text(word)}” moved from {ref_text}",
         "time slice",
         f"cosine distance from {ref_text}",
+        xaxis={"type": "category", "categoryorder": "array", "categoryarray": x},
+        yaxis={"rangemode": "tozero"},
     )
-    fig.update_layout(**layout)
-    fig.update_xaxes(type="category", categoryorder="array", categoryarray=x)
-    fig.update_yaxes(rangemode="tozero")
     if change_point in x and x.index(change_point) > 0:
         at = x.index(change_point) - 0.5
-        fig.add_vline(x=at, line={"color": INK, "dash": "dash", "width": 1.5})
-        fig.add_annotation(
-            x=at, y=1, yref="paper", yanchor="bottom", showarrow=False, xanchor="left",
-            text=f" change point: from {plot_text(change_point)}", font={"size": 12},
-        )
-    return fig
+        layout["shapes"] = [
+            {"type": "line", "x0": at, "x1": at, "xref": "x", "y0": 0, "y1": 1, "yref": "paper",
+             "line": {"color": INK, "dash": "dash", "width": 1.5}}
+        ]
+        layout["annotations"] = [
+            {"x": at, "y": 1, "yref": "paper", "yanchor": "bottom", "xanchor": "left",
+             "showarrow": False, "text": f" change point: from {plot_text(change_point)}",
+             "font": {"size": 12}}
+        ]
+    return _figure(traces, layout)
 
 
 def neighbour_heatmap(
@@ -236,7 +273,7 @@ def neighbour_heatmap(
     # The palest classes are left out so a low similarity never looks like an empty cell.
     colours = YLORBR[2:]
     colourscale = [[i / (len(colours) - 1), c] for i, c in enumerate(colours)]
-    fig = go.Figure(
+    heatmap = (
         go.Heatmap(
             z=sim.to_numpy(dtype=float),
             x=x,
@@ -254,25 +291,22 @@ def neighbour_heatmap(
     height = max(260, 120 + 24 * len(names))
     layout = _base_layout(
         f"Nearest neighbours of “{plot_text(word)}” per slice ({k_text}; empty = not among them)",
-        "time slice",
+        "",
         "neighbour",
         height=height,
+        xaxis={"type": "category", "side": "top", "showline": False, "ticks": ""},
+        yaxis={"autorange": "reversed", "type": "category", "showgrid": False,
+               "showline": False, "ticks": "", "dtick": 1},
     )
     layout["margin"] = {"l": 150, "r": 30, "t": 56, "b": 60}
-    fig.update_layout(**layout)
-    fig.update_xaxes(type="category", side="top", title={"standoff": 4}, showline=False, ticks="")
-    fig.update_yaxes(
-        autorange="reversed", type="category", showgrid=False, showline=False, ticks="", dtick=1
-    )
-    fig.update_xaxes(title_text="")
-    return fig
+    return _figure([heatmap], layout)
 
 
 def frequency_figure(timeline: pd.DataFrame, *, word: str, slices: Sequence[str]) -> go.Figure:
     """The word's frequency per million tokens in each slice (bars), with raw counts on hover."""
     rows = _word_rows(timeline, slices)
     counts = [_fmt(int(c)) if pd.notna(c) else "n/a" for c in rows["count"]]
-    fig = go.Figure(
+    bars = (
         go.Bar(
             x=list(slices),
             y=rows["fpm"].to_numpy(),
@@ -287,17 +321,15 @@ def frequency_figure(timeline: pd.DataFrame, *, word: str, slices: Sequence[str]
             meta="frequency",
         )
     )
-    fig.update_layout(
-        **_base_layout(
-            f"How often “{plot_text(word)}” occurs",
-            "time slice",
-            "per million tokens",
-            height=300,
-        ),
-        showlegend=False,
+    layout = _base_layout(
+        f"How often “{plot_text(word)}” occurs",
+        "time slice",
+        "per million tokens",
+        height=300,
+        xaxis={"type": "category"},
     )
-    fig.update_xaxes(type="category")
-    return fig
+    layout["showlegend"] = False
+    return _figure([bars], layout)
 
 
 def word_figures(
@@ -379,11 +411,11 @@ def change_vs_frequency_figure(
     rows = plotted_words(scores, max_points=max_points)
     links = links or {}
     column = measure_column(rows, measure)
-    fig = go.Figure()
+    traces = []
     if "null_centre" in rows and rows["null_centre"].notna().any():
         line = pd.DataFrame({"x": rarer_count(rows), "y": rows["null_centre"].astype(float)})
         line = line.dropna().sort_values("x", kind="stable").drop_duplicates("x")
-        fig.add_trace(
+        traces.append(
             go.Scatter(
                 x=line["x"],
                 y=line["y"],
@@ -419,7 +451,7 @@ def change_vs_frequency_figure(
             ],
             dtype=object,
         ).reshape(-1, 6)
-        fig.add_trace(
+        traces.append(
             go.Scatter(
                 x=rarer_count(part),
                 y=part[column].astype(float),
@@ -437,16 +469,14 @@ def change_vs_frequency_figure(
             )
         )
     note = "" if len(rows) == len(scores) else f" ({len(rows):,} of {len(scores):,} words drawn)"
-    fig.update_layout(
-        **_base_layout(
-            f"Change against frequency{note}",
-            "occurrences in the rarer of the two compared slices (log scale)",
-            MEASURE_TITLES.get(column, f"score ({plot_text(measure or 'score')})"),
-            height=460,
-        )
+    layout = _base_layout(
+        f"Change against frequency{note}",
+        "occurrences in the rarer of the two compared slices (log scale)",
+        MEASURE_TITLES.get(column, f"score ({plot_text(measure or 'score')})"),
+        height=460,
+        xaxis={"type": "log"},
     )
-    fig.update_xaxes(type="log")
-    return fig
+    return _figure(traces, layout)
 
 
 def terms_figure(terms: pd.DataFrame, *, slices: Sequence[str], per_kind: int = 6) -> go.Figure:
