@@ -26,7 +26,6 @@ averaged over seeds, searched in the union of the seeds' own lists.
 from __future__ import annotations
 
 import json
-import math
 import time
 from collections.abc import Sequence
 from dataclasses import dataclass, field
@@ -270,7 +269,6 @@ def measure_pair(
     slice_from: SliceVectors,
     slice_to: SliceVectors,
     words: Sequence[str],
-    candidate_index: dict[str, int],
     candidates_from: np.ndarray,
     candidates_to: np.ndarray,
     neighbours_from: Neighbours,
@@ -364,7 +362,7 @@ def measure_seed(
     else:
         rotation = align_onto(slices[slice_to], slices[slice_from], anchors)
     pair_result = measure_pair(
-        slices[slice_from], slices[slice_to], words, cand_index,
+        slices[slice_from], slices[slice_to], words,
         candidates[slice_from], candidates[slice_to],
         neighbours[slice_from], neighbours[slice_to], rotation,
     )
@@ -402,7 +400,7 @@ def measure_control(
         advance()
     rotation = align_onto(second, first, anchors)
     return measure_pair(
-        first, second, words, cand_index, cands_first, cands_second,
+        first, second, words, cands_first, cands_second,
         near_first, near_second, rotation,
     )
 
@@ -944,8 +942,3 @@ def _write_vectors(
     with runfolder.atomic_path(path) as tmp:
         keyed.save_word2vec_format(str(tmp), binary=False)
     return path
-
-
-def is_finite_number(value: Any) -> bool:
-    """True for a real number that is not NaN (used when printing optional columns)."""
-    return isinstance(value, int | float | np.number) and math.isfinite(float(value))
