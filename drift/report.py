@@ -492,7 +492,10 @@ def control_html(data: RunData) -> str:
         )
     flagged = (stages.get("rank") or {}).get("control_flagged")
     if flagged is None:
-        return '<p class="muted">The rank stage did not record the control check.</p>'
+        return (
+            "<p>The time-shuffled control gave no usable null (too few words measured in it), "
+            "so z, p and q are not calibrated; treat the ranking as descriptive.</p>"
+        )
     return (
         f"<p>In the time-shuffled control, where no real change exists, the null flags "
         f"<strong>{fmt(int(flagged))}</strong> words at q ≤ {data.alpha:g}. A count near zero "

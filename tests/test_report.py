@@ -190,6 +190,9 @@ def test_report_says_when_there_is_no_control(tmp_path):
     RunPaths(run).manifest.write_text(json.dumps(manifest))
     data = report.load_run(run)
     assert "No time-shuffled control" in report.control_html(data)
+    manifest["stages"]["train"]["control"] = {"between": list(data.between)}
+    RunPaths(run).manifest.write_text(json.dumps(manifest))
+    assert "gave no usable null" in report.control_html(report.load_run(run))
 
 
 def test_report_with_top_zero_writes_no_word_pages(tmp_path):
