@@ -1,0 +1,969 @@
+"""STAGE slice: cut a dated archive into time slices of tokenized text, with word counts.
+
+:func:`slice_archive` streams the source (:mod:`drift.readers`), gives every document a day
+(:mod:`drift.timeparse`), tokenizes it (:mod:`drift.tokenize`) and appends its lines to the
+file of the slice whose date range holds that day. It writes, as DEVELOPERS.md's run-folder
+contract says, ``slices/<label>.txt``, ``slices/summary.csv``, ``counts.parquet`` and the
+``slice`` entry of ``run.json``.
+
+Slices (``by``): ``year``, ``decade``, ``Ny`` (N-year bins aligned on multiples of N, so ``5y``
+gives 1990-1994, 1995-1999, ...), ``edges:Y1,Y2,...`` (bins [Y1, Y2), [Y2, Y3), ...; years or
+ISO dates) and ``even:K`` (K slices of about equal token count, cut at the finest date unit the
+data has: year, month or day; this needs a second pass over a temporary copy of the tokenized
+text). Documents are tokenized on two threads (Arrow kernels release the GIL) and written in
+input order, so results do not depend on timing.
+
+Balancing (``balance``) down-samples the lines of each slice, at random with a fixed seed, to
+the smallest slice's token count (``"smallest"``) or to a given number of tokens; the ``dropped``
+column of the summary counts the tokens each slice lost that way.
+"""
+
+from __future__ import annotations
+
+import collections
+import itertools
+import os
+import shutil
+import tempfile
+import time
+from collections.abc import Callable, Iterable, Iterator
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.csv as pacsv
+import pyarrow.parquet as pq
+
+from drift import runfolder
+from drift.errors import DriftError
+from drift.progress import progress_bars, stderr_console
+from drift.readers import DocBatch, Reader, open_source
+from drift.timeparse import BadDates, day_to_iso, iso_to_day, parse_times, year_of
+from drift.tokenize import tokenize_array
+
+STAGE = "slice"
+#: Slices under about a million tokens give unstable vectors (common practice, no single
+#: published threshold); they get a warning.
+SMALL_SLICE_TOKENS = 1_000_000
+#: Slice sizes that differ more than this factor get a warning suggesting --balance.
+SIZE_RATIO_WARNING = 10
+SUMMARY_COLUMNS = ["label", "start", "end", "documents", "tokens", "types", "dropped"]
+#: Sources smaller than this are read without a progress bar.
+PROGRESS_MIN_BYTES = 32 << 20
+#: Threads that tokenize batches (this project targets 2-core machines).
+WORKERS = max(1, min(2, os.cpu_count() or 1))
+_MAX_OPEN_FILES = 64
+
+
+# ---------------------------------------------------------------------------- slice rules
+
+
+@dataclass(frozen=True)
+class SliceRule:
+    """How documents are cut into slices: ``kind`` is 'years', 'edges' or 'even'."""
+
+    kind: str
+    years: int = 1
+    decade: bool = False
+    edges: tuple[int, ...] = ()
+    count: int = 0
+
+
+@dataclass(frozen=True)
+class SliceBin:
+    """One slice: its sort key, label and inclusive date range (day numbers)."""
+
+    key: int
+    label: str
+    start: int
+    end: int
+
+
+def parse_by(spec: str) -> SliceRule:
+    """Read a ``--by`` value: year, decade, Ny (e.g. 5y), edges:Y1,Y2,... or even:K."""
+    text = str(spec).strip().lower()
+    if text == "year":
+        return SliceRule("years", 1)
+    if text == "decade":
+        return SliceRule("years", 10, decade=True)
+    if text.endswith("y") and text[:-1].isdigit() and int(text[:-1]) >= 1:
+        return SliceRule("years", int(text[:-1]))
+    if text.startswith("edges:"):
+        items = [item.strip() for item in text[len("edges:") :].split(",") if item.strip()]
+        if len(items) < 2:
+            raise DriftError(f"--by {spec} needs at least two edges, such as edges:1990,2000,2010.")
+        edges = tuple(iso_to_day(item) for item in items)
+        if any(b <= a for a, b in zip(edges, edges[1:], strict=False)):
+            raise DriftError(f"The edges in --by {spec} must increase; list them in time order.")
+        return SliceRule("edges", edges=edges)
+    if text.startswith("even:"):
+        count = text[len("even:") :]
+        if not count.isdigit() or int(count) < 1:
+            raise DriftError(f"--by {spec} needs a whole number of slices, such as even:4.")
+        return SliceRule("even", count=int(count))
+    raise DriftError(
+        f"Unknown --by '{spec}'; use year, decade, a number of years such as 5y, "
+        "edges:1990,2000,2010 or even:4."
+    )
+
+
+def parse_balance(balance: str | int | None) -> str | int | None:
+    """None (no balancing), 'smallest', or a positive token budget."""
+    if balance is None or balance is False:
+        return None
+    if balance is True or str(balance).strip().lower() == "smallest":
+        return "smallest"
+    text = str(balance).strip().replace("_", "").replace(",", "")
+    try:
+        budget = int(float(text)) if text.replace(".", "", 1).replace("e", "", 1).isdigit() else -1
+    except ValueError:
+        budget = -1
+    if budget < 1:
+        raise DriftError(
+            f"--balance {balance} is not a token count; give a positive number or no value."
+        )
+    return budget
+
+
+def _is_year_range(start: int, end: int) -> bool:
+    first, last = np.datetime64(start, "D"), np.datetime64(end, "D")
+    return str(first)[5:] == "01-01" and str(last)[5:] == "12-31"
+
+
+def label_for_range(start: int, end: int) -> str:
+    """A readable, file-safe label: 1990, 1990-1994, or 1990-03-01_1994-12-31."""
+    if _is_year_range(start, end):
+        first, last = (int(y) for y in year_of(np.array([start, end])))
+        return f"{first:04d}" if first == last else f"{first:04d}-{last:04d}"
+    return f"{day_to_iso(start)}_{day_to_iso(end)}"
+
+
+def _year_start(year: int) -> int:
+    return iso_to_day(f"{year:04d}")
+
+
+def bin_for_key(rule: SliceRule, key: int) -> SliceBin:
+    """The slice that documents with ``key`` belong to (rules 'years' and 'edges')."""
+    if rule.kind == "years":
+        first = key * rule.years
+        last = first + rule.years - 1
+        start, end = _year_start(first), _year_start(last + 1) - 1
+        label = f"{first:04d}s" if rule.decade else label_for_range(start, end)
+        return SliceBin(key, label, start, end)
+    start, end = rule.edges[key], rule.edges[key + 1] - 1
+    return SliceBin(key, label_for_range(start, end), start, end)
+
+
+def keys_for_days(rule: SliceRule, days: np.ndarray) -> np.ndarray:
+    """Slice key of each day (-1: outside the edges). For 'even' the key is the year."""
+    if rule.kind == "edges":
+        keys = np.searchsorted(np.asarray(rule.edges), days, side="right") - 1
+        return np.where((keys >= 0) & (keys < len(rule.edges) - 1), keys, -1).astype(np.int64)
+    years = year_of(days)
+    return years // rule.years if rule.kind == "years" else years
+
+
+def _unit_of(days: np.ndarray) -> str:
+    """The finest calendar unit the dates need: 'year', 'month' or 'day'."""
+    dates = np.asarray(days).astype("datetime64[D]")
+    if (dates == dates.astype("datetime64[Y]").astype("datetime64[D]")).all():
+        return "year"
+    if (dates == dates.astype("datetime64[M]").astype("datetime64[D]")).all():
+        return "month"
+    return "day"
+
+
+def even_bins(days: np.ndarray, tokens: np.ndarray, count: int) -> list[SliceBin]:
+    """``count`` contiguous slices of about equal token count, cut between calendar units.
+
+    ``days`` are the distinct day numbers that hold tokens, ``tokens`` the tokens on each.
+    """
+    unit = _unit_of(days)
+    numpy_unit = {"year": "Y", "month": "M", "day": "D"}[unit]
+    units = np.asarray(days).astype("datetime64[D]").astype(f"datetime64[{numpy_unit}]")
+    distinct, inverse = np.unique(units, return_inverse=True)
+    per_unit = np.bincount(inverse, weights=tokens).astype(np.int64)
+    if len(distinct) < count:
+        raise DriftError(
+            f"even:{count} needs at least {count} distinct {unit}s with documents, but the data "
+            "has "
+            f"{len(distinct)}; ask for fewer slices."
+        )
+    cumulative = np.cumsum(per_unit)
+    total = cumulative[-1]
+    cuts: list[int] = []  # index of the last unit of each slice but the last
+    for k in range(1, count):
+        target = total * k / count
+        i = int(np.searchsorted(cumulative, target))
+        if i > 0 and abs(cumulative[i - 1] - target) <= abs(
+            cumulative[min(i, len(cumulative) - 1)] - target
+        ):
+            i -= 1
+        low = cuts[-1] + 1 if cuts else 0
+        high = len(distinct) - (count - k) - 1
+        cuts.append(min(max(i, low), high))
+    starts = [distinct[0]] + [distinct[i + 1] for i in cuts]
+    bins = []
+    for k, first in enumerate(starts):
+        start = int(first.astype("datetime64[D]").astype(np.int64))
+        if k + 1 < len(starts):
+            end = int(starts[k + 1].astype("datetime64[D]").astype(np.int64)) - 1
+        else:
+            end = int((distinct[-1] + 1).astype("datetime64[D]").astype(np.int64)) - 1
+        bins.append(SliceBin(k, label_for_range(start, end), start, end))
+    return bins
+
+
+# ---------------------------------------------------------------------------- word counts
+
+
+@dataclass(frozen=True)
+class BatchCounts:
+    """Word counts of one batch: its distinct words and, per slice key, (word positions, counts)."""
+
+    words: pa.Array
+    by_key: dict[int, tuple[np.ndarray, np.ndarray]]
+
+
+def count_batch_words(tokens: pa.Array, token_bounds: list[tuple[int, int, int]]) -> BatchCounts:
+    """Count ``tokens`` per slice: ``token_bounds`` holds (key, first, end) ranges of tokens."""
+    encoded = pc.dictionary_encode(tokens)
+    if isinstance(encoded, pa.ChunkedArray):
+        encoded = encoded.combine_chunks()
+    ids = encoded.indices.to_numpy(zero_copy_only=False)
+    size = len(encoded.dictionary)
+    by_key = {}
+    for key, first, end in token_bounds:
+        counts = np.bincount(ids[first:end], minlength=size)
+        present = np.flatnonzero(counts)
+        by_key[int(key)] = (present, counts[present])
+    return BatchCounts(encoded.dictionary, by_key)
+
+
+class WordCounts:
+    """Word counts per slice key: one vocabulary (word -> row) and one count vector per slice."""
+
+    def __init__(self) -> None:
+        self._rows: dict[str, int] = {}
+        self._counts: dict[int, np.ndarray] = {}
+        self._capacity = 1 << 16
+
+    def _grow(self) -> None:
+        while len(self._rows) > self._capacity:
+            self._capacity *= 2
+        for key, vector in self._counts.items():
+            if len(vector) < self._capacity:
+                grown = np.zeros(self._capacity, dtype=np.int64)
+                grown[: len(vector)] = vector
+                self._counts[key] = grown
+
+    def add(self, batch: BatchCounts) -> None:
+        """Add one batch's counts (called in input order, from one thread)."""
+        rows = self._rows
+        words = batch.words.to_pylist()
+        mapping = np.fromiter(
+            map(rows.get, words, itertools.repeat(-1)), dtype=np.int64, count=len(words)
+        )
+        for position in np.flatnonzero(mapping < 0):  # words not seen before
+            mapping[position] = rows.setdefault(words[position], len(rows))
+        if len(rows) > self._capacity:
+            self._grow()
+        for key, (positions, counts) in batch.by_key.items():
+            vector = self._counts.get(key)
+            if vector is None:
+                vector = self._counts[key] = np.zeros(self._capacity, dtype=np.int64)
+            vector[mapping[positions]] += counts  # positions are distinct within a batch
+
+    def drop(self, key: int) -> None:
+        """Forget the counts of slice ``key`` (before counting its balanced text again)."""
+        if key in self._counts:
+            self._counts[key][:] = 0
+
+    def matrix(self, keys: list[int]) -> tuple[pa.Array, np.ndarray]:
+        """Words and a word x slice count matrix (columns in the order of ``keys``); words that
+        occur nowhere are left out; rows sorted by total count (descending), then by word."""
+        size = len(self._rows)
+        empty = np.zeros(size, dtype=np.int64)
+        counts = (
+            np.stack([self._counts.get(k, empty)[:size] for k in keys], axis=1)
+            if keys
+            else np.zeros((size, 0), np.int64)
+        )
+        words = pa.array(list(self._rows), pa.string())
+        totals = counts.sum(axis=1)
+        present = np.flatnonzero(totals > 0)
+        order = pc.sort_indices(
+            pa.table({"total": totals[present], "word": words.take(pa.array(present))}),
+            sort_keys=[("total", "descending"), ("word", "ascending")],
+        ).to_numpy()
+        rows = present[order]
+        return words.take(pa.array(rows)), counts[rows]
+
+
+# ---------------------------------------------------------------------------- one batch
+
+
+@dataclass
+class _Part:
+    """The lines of one batch that go to one slice key."""
+
+    key: int
+    text: pa.Buffer
+    documents: int
+    tokens: int
+    line_tokens: np.ndarray
+    doc_starts: np.ndarray
+
+
+@dataclass
+class _BatchOutcome:
+    rows: int
+    bad: BadDates
+    outside: int
+    empty: int
+    parts: list[_Part]
+    counts: BatchCounts | None
+    day_tokens: tuple[np.ndarray, np.ndarray] | None = None
+
+
+@dataclass(frozen=True)
+class _Settings:
+    rule: SliceRule
+    date_format: str | None
+    keep_case: bool
+    pretokenized: bool
+
+
+def _lines_buffer(
+    lines: pa.StringArray, prefix: pa.Array | None = None
+) -> tuple[pa.Buffer, np.ndarray]:
+    """The bytes of ``lines``, each ending in a newline (optionally after ``prefix``), and the
+    byte offset where each line starts (plus the end)."""
+    parts = [lines, pa.scalar("\n")] if prefix is None else [prefix, lines, pa.scalar("\n")]
+    joined = pc.binary_join_element_wise(*parts, "") if parts else lines
+    if len(joined) == 0:
+        return pa.py_buffer(b""), np.zeros(1, dtype=np.int64)
+    offsets = np.frombuffer(joined.buffers()[1], dtype=np.int32)[
+        joined.offset : joined.offset + len(joined) + 1
+    ]
+    return joined.buffers()[2], offsets.astype(np.int64)
+
+
+def _split_by_key(
+    line_keys: np.ndarray,
+    lines: pa.StringArray,
+    tokens: pa.StringArray,
+    token_counts: np.ndarray,
+    doc_starts: np.ndarray,
+    count_words: bool,
+    prefix: pa.Array | None = None,
+) -> tuple[list[_Part], BatchCounts | None]:
+    """Group lines (already sorted by key) into one part per key, and count their words."""
+    data, offsets = _lines_buffer(lines, prefix)
+    token_offsets = np.zeros(len(token_counts) + 1, dtype=np.int64)
+    np.cumsum(token_counts, out=token_offsets[1:])
+    parts = []
+    bounds = []
+    for key in np.unique(line_keys):
+        a, b = np.searchsorted(line_keys, key, "left"), np.searchsorted(line_keys, key, "right")
+        bounds.append((int(key), int(token_offsets[a]), int(token_offsets[b])))
+        parts.append(
+            _Part(
+                key=int(key),
+                text=data.slice(int(offsets[a]), int(offsets[b] - offsets[a])),
+                documents=int(doc_starts[a:b].sum()),
+                tokens=int(token_offsets[b] - token_offsets[a]),
+                line_tokens=token_counts[a:b].astype(np.uint16),
+                doc_starts=doc_starts[a:b],
+            )
+        )
+    counts = count_batch_words(tokens, bounds) if count_words and bounds else None
+    return parts, counts
+
+
+def _process_batch(batch: DocBatch, settings: _Settings) -> _BatchOutcome:
+    """Date, slice and tokenize one batch (runs on a worker thread)."""
+    rows = len(batch)
+    days, ok = parse_times(batch.times, settings.date_format)
+    bad = BadDates()
+    if not ok.all():
+        bad.add(batch.times, ok)
+    keys = keys_for_days(settings.rule, days)
+    outside = int((ok & (keys < 0)).sum())
+    valid = np.flatnonzero(ok & (keys >= 0))
+    order = valid[np.argsort(keys[valid], kind="stable")]
+    new_document = np.ones(rows, dtype=bool)
+    new_document[0] = not batch.continues
+    texts = (
+        batch.texts
+        if len(order) == rows and (np.diff(order) > 0).all()
+        else batch.texts.take(pa.array(order))
+    )
+    tokenized = tokenize_array(texts, settings.keep_case, settings.pretokenized)
+    per_document = tokenized.tokens_per_document(len(order))
+    empty = int(((per_document == 0) & new_document[order]).sum())
+    line_doc = tokenized.doc_index
+    first_line = np.ones(len(line_doc), dtype=bool)
+    first_line[1:] = line_doc[1:] != line_doc[:-1]
+    doc_starts = first_line & new_document[order][line_doc]
+    line_keys = keys[order][line_doc]
+    day_tokens = None
+    prefix = None
+    if settings.rule.kind == "even":
+        line_days = days[order][line_doc]
+        distinct, inverse = np.unique(line_days, return_inverse=True)
+        day_tokens = (
+            distinct,
+            np.bincount(inverse, weights=tokenized.token_counts).astype(np.int64),
+        )
+        prefix = pc.binary_join_element_wise(
+            pa.array(line_days).cast(pa.string()),
+            pa.array(doc_starts.astype(np.int8)).cast(pa.string()),
+            "",
+            "\t",
+        )
+    parts, counts = _split_by_key(
+        line_keys,
+        tokenized.lines,
+        tokenized.tokens,
+        tokenized.token_counts,
+        doc_starts,
+        count_words=settings.rule.kind != "even",
+        prefix=prefix,
+    )
+    return _BatchOutcome(rows, bad, outside, empty, parts, counts, day_tokens)
+
+
+def _ordered_map(fn: Callable, items: Iterable, workers: int = WORKERS) -> Iterator:
+    """``map(fn, items)`` on ``workers`` threads, results in input order, a few items ahead."""
+    if workers <= 1:
+        yield from map(fn, items)
+        return
+    with ThreadPoolExecutor(workers, thread_name_prefix="drift-slice") as pool:
+        pending: collections.deque = collections.deque()
+        for item in items:
+            pending.append(pool.submit(fn, item))
+            if len(pending) > workers:
+                yield pending.popleft().result()
+        while pending:
+            yield pending.popleft().result()
+
+
+# ---------------------------------------------------------------------------- slice files
+
+
+@dataclass
+class _Tally:
+    documents: int = 0
+    tokens: int = 0
+    line_tokens: list[np.ndarray] = field(default_factory=list)
+    doc_starts: list[np.ndarray] = field(default_factory=list)
+
+
+class _SliceFiles:
+    """Text files per slice key in a private work folder, appended in order, with tallies."""
+
+    def __init__(self, folder: Path, keep_lines: bool):
+        self.folder = folder
+        self.folder.mkdir(parents=True, exist_ok=True)
+        self.keep_lines = keep_lines
+        self.tallies: dict[int, _Tally] = {}
+        self._open: collections.OrderedDict[int, Any] = collections.OrderedDict()
+
+    def path(self, key: int) -> Path:
+        return self.folder / f"{key}.txt"
+
+    def _handle(self, key: int):
+        handle = self._open.pop(key, None)
+        if handle is None:
+            if len(self._open) >= _MAX_OPEN_FILES:
+                self._open.popitem(last=False)[1].close()
+            handle = open(self.path(key), "ab", buffering=1 << 18)  # noqa: SIM115 - closed in close()
+        self._open[key] = handle
+        return handle
+
+    def append(self, part: _Part) -> None:
+        self._handle(part.key).write(memoryview(part.text))
+        tally = self.tallies.setdefault(part.key, _Tally())
+        tally.documents += part.documents
+        tally.tokens += part.tokens
+        if self.keep_lines:
+            tally.line_tokens.append(part.line_tokens)
+            tally.doc_starts.append(part.doc_starts)
+
+    def close(self) -> None:
+        while self._open:
+            self._open.popitem()[1].close()
+
+
+def _read_lines(
+    path: Path, columns: list[str], types: dict[str, pa.DataType]
+) -> Iterator[pa.RecordBatch]:
+    """Stream a tab-separated work file (no quoting) as record batches."""
+    with pacsv.open_csv(
+        path,
+        read_options=pacsv.ReadOptions(column_names=columns, block_size=4 << 20),
+        parse_options=pacsv.ParseOptions(
+            delimiter="\t", quote_char=False, double_quote=False, escape_char=False
+        ),
+        convert_options=pacsv.ConvertOptions(column_types=types),
+    ) as reader:
+        yield from reader
+
+
+# ---------------------------------------------------------------------------- the passes
+
+
+@dataclass
+class _ReadTotals:
+    rows: int = 0
+    outside: int = 0
+    empty: int = 0
+    bad: BadDates = field(default_factory=BadDates)
+    day_tokens: list[tuple[np.ndarray, np.ndarray]] = field(default_factory=list)
+
+
+def _first_pass(
+    reader: Reader,
+    settings: _Settings,
+    files: _SliceFiles,
+    counts: WordCounts,
+    skip_bad_dates: bool,
+    quiet: bool,
+) -> _ReadTotals:
+    """Read the source once: slice files (or per-year files for even:K) and word counts."""
+    totals = _ReadTotals()
+    with progress_bars(quiet or reader.total_bytes < PROGRESS_MIN_BYTES) as progress:
+        task = progress.add_task(
+            f"Reading {reader.path.name} (MB)", total=max(1, round(reader.total_bytes / 1e6))
+        )
+        outcomes = _ordered_map(lambda batch: _process_batch(batch, settings), reader.batches())
+        for number, outcome in enumerate(outcomes):
+            totals.rows += outcome.rows
+            totals.outside += outcome.outside
+            totals.empty += outcome.empty
+            totals.bad.count += outcome.bad.count
+            for example in outcome.bad.examples:
+                if len(totals.bad.examples) < 3 and example not in totals.bad.examples:
+                    totals.bad.examples.append(example)
+            if number == 0 and not skip_bad_dates and outcome.bad.count == outcome.rows:
+                raise totals.bad.error(reader.time_col, first_only=True)
+            if outcome.day_tokens is not None:
+                totals.day_tokens.append(outcome.day_tokens)
+            for part in outcome.parts:
+                files.append(part)
+            if outcome.counts is not None:
+                counts.add(outcome.counts)
+            progress.update(task, completed=reader.position() / 1e6)
+    files.close()
+    return totals
+
+
+def _second_pass_even(
+    year_files: _SliceFiles,
+    bins: list[SliceBin],
+    files: _SliceFiles,
+    counts: WordCounts,
+    quiet: bool,
+) -> None:
+    """Route the per-year work files into the even:K slices and count their words."""
+    starts = np.array([b.start for b in bins], dtype=np.int64)
+    columns = ["day", "first", "line"]
+    types = {"day": pa.int64(), "first": pa.int8(), "line": pa.string()}
+
+    def route(batch: pa.RecordBatch) -> tuple[list[_Part], BatchCounts | None]:
+        days = batch.column(0).to_numpy()
+        keys = np.searchsorted(starts, days, side="right") - 1
+        order = np.argsort(keys, kind="stable")
+        lines = batch.column(2).take(pa.array(order))
+        token_lists = pc.ascii_split_whitespace(lines)
+        token_counts = (
+            pc.list_value_length(token_lists).to_numpy(zero_copy_only=False).astype(np.int64)
+        )
+        doc_starts = batch.column(1).to_numpy(zero_copy_only=False)[order].astype(bool)
+        return _split_by_key(
+            keys[order], lines, pc.list_flatten(token_lists), token_counts, doc_starts, True
+        )
+
+    def batches() -> Iterator[pa.RecordBatch]:
+        for year in sorted(year_files.tallies):
+            yield from _read_lines(year_files.path(year), columns, types)
+
+    total = sum(year_files.path(year).stat().st_size for year in year_files.tallies)
+    with progress_bars(quiet or total < PROGRESS_MIN_BYTES) as progress:
+        task = progress.add_task(
+            f"Cutting into {len(bins)} even slices (MB)", total=max(1, round(total / 1e6))
+        )
+        for parts, batch_counts in _ordered_map(route, batches()):
+            for part in parts:
+                files.append(part)
+                progress.advance(task, part.text.size / 1e6)
+            if batch_counts is not None:
+                counts.add(batch_counts)
+    files.close()
+
+
+def _balance(
+    files: _SliceFiles, counts: WordCounts, budget: int, seed: int, keys: list[int]
+) -> dict[int, int]:
+    """Down-sample every slice over ``budget`` tokens to at most ``budget`` (random lines, seeded).
+
+    Returns the tokens dropped per slice key; rewrites the work files, tallies and counts.
+    """
+    dropped = {}
+    for index, key in enumerate(keys):
+        tally = files.tallies[key]
+        dropped[key] = 0
+        if tally.tokens <= budget:
+            continue
+        line_tokens = np.concatenate(tally.line_tokens).astype(np.int64)
+        doc_starts = np.concatenate(tally.doc_starts)
+        order = np.random.default_rng([seed, index]).permutation(len(line_tokens))
+        chosen = order[np.cumsum(line_tokens[order]) <= budget]
+        keep = np.zeros(len(line_tokens), dtype=bool)
+        keep[chosen] = True
+        counts.drop(key)
+        source, target = files.path(key), files.path(key).with_suffix(".balanced")
+        position = 0
+        with open(target, "wb") as out:
+            for batch in _read_lines(source, ["line"], {"line": pa.string()}):
+                mask = keep[position : position + batch.num_rows]
+                position += batch.num_rows
+                lines = batch.column(0).filter(pa.array(mask))
+                if len(lines) == 0:
+                    continue
+                data, offsets = _lines_buffer(lines)
+                out.write(memoryview(data.slice(int(offsets[0]), int(offsets[-1] - offsets[0]))))
+                tokens = pc.list_flatten(pc.ascii_split_whitespace(lines))
+                counts.add(count_batch_words(tokens, [(key, 0, len(tokens))]))
+        os.replace(target, source)
+        document_ids = np.cumsum(doc_starts) - 1
+        kept_tokens = int(line_tokens[keep].sum())
+        dropped[key] = tally.tokens - kept_tokens
+        tally.tokens = kept_tokens
+        tally.documents = len(np.unique(document_ids[keep & (document_ids >= 0)]))
+    return dropped
+
+
+# ---------------------------------------------------------------------------- reading the results
+
+
+def read_summary(run: Path | str) -> pd.DataFrame:
+    """The slices/summary.csv of a run folder (labels as text)."""
+    paths = runfolder.existing_run(Path(run), needs="slices")
+    return pd.read_csv(paths.slice_summary, dtype={"label": str, "start": str, "end": str})
+
+
+def slice_labels(run: Path | str) -> list[str]:
+    """The slice labels of a run, in time order."""
+    root = Path(run)
+    labels = runfolder.read_manifest(root).get("stages", {}).get(STAGE, {}).get("labels")
+    return list(labels) if labels else read_summary(root)["label"].tolist()
+
+
+def read_counts(run: Path | str) -> pd.DataFrame:
+    """counts.parquet as a DataFrame: index ``word``, one int64 column per slice label."""
+    paths = runfolder.existing_run(Path(run), needs="slices")
+    return pd.read_parquet(paths.counts).set_index("word")
+
+
+def summary_table(summary: pd.DataFrame, title: str | None = None):
+    """A rich Table of a slice summary (for printing)."""
+    from rich.table import Table
+
+    table = Table(title=title)
+    for column in SUMMARY_COLUMNS:
+        table.add_column(column, justify="left" if column in ("label", "start", "end") else "right")
+    for row in summary.itertuples(index=False):
+        table.add_row(
+            str(row.label),
+            str(row.start),
+            str(row.end),
+            *(f"{int(getattr(row, c)):,}" for c in ("documents", "tokens", "types", "dropped")),
+        )
+    return table
+
+
+# ---------------------------------------------------------------------------- the stage
+
+
+def _note(message: str, quiet: bool) -> None:
+    if not quiet:
+        stderr_console.print(f"drift: {message}", markup=False, highlight=False, soft_wrap=True)
+
+
+def _warn(message: str) -> None:
+    stderr_console.print(
+        f"drift: warning: {message}", markup=False, highlight=False, soft_wrap=True
+    )
+
+
+def slice_warnings(summary: pd.DataFrame) -> list[str]:
+    """Warnings about slice sizes: small slices (common practice: about a million tokens or more)
+    and sizes that differ more than tenfold."""
+    messages = []
+    small = summary[summary["tokens"] < SMALL_SLICE_TOKENS]
+    if len(small):
+        names = ", ".join(small["label"].astype(str).head(8)) + (" ..." if len(small) > 8 else "")
+        which = (
+            f"slice {names} has"
+            if len(small) == 1
+            else f"all {len(small)} slices have"
+            if len(small) == len(summary)
+            else f"{len(small)} of {len(summary)} slices have"
+        )
+        messages.append(
+            f"{which} under a million tokens ({names}); vectors trained on small slices are "
+            "unstable (common practice: a million tokens or more per slice), so consider wider "
+            "slices such as --by decade."
+            if len(small) > 1
+            else f"{which} under a million tokens; vectors trained on small slices are unstable "
+            "(common practice: a million tokens or more per slice), so consider wider slices."
+        )
+    if len(summary) > 1 and summary["tokens"].min() > 0:
+        smallest, largest = (
+            summary.loc[summary["tokens"].idxmin()],
+            summary.loc[summary["tokens"].idxmax()],
+        )
+        if largest["tokens"] > SIZE_RATIO_WARNING * smallest["tokens"]:
+            messages.append(
+                "slice sizes differ more than tenfold "
+                f"({smallest['label']}: {smallest['tokens']:,} "
+                f"tokens, {largest['label']}: {largest['tokens']:,}); consider --balance."
+            )
+    return messages
+
+
+def _outputs_exist(paths: runfolder.RunPaths, labels: list[str] | None) -> bool:
+    if not labels or not paths.slice_summary.exists() or not paths.counts.exists():
+        return False
+    return all(paths.slice_file(label).exists() for label in labels)
+
+
+def _clean_leftovers(paths: runfolder.RunPaths) -> None:
+    """Remove work folders and temporary files left by a slice run that was killed."""
+    if not paths.slices_dir.is_dir():
+        return
+    for leftover in paths.slices_dir.glob(".work-*"):
+        shutil.rmtree(leftover, ignore_errors=True)
+    for leftover in paths.slices_dir.glob(".*.tmp"):
+        leftover.unlink(missing_ok=True)
+
+
+def _check_read(
+    reader: Reader, totals: _ReadTotals, skip_bad_dates: bool, any_tokens: bool
+) -> None:
+    name = reader.path
+    if totals.rows == 0:
+        detail = "only a header row" if reader.fmt in ("csv", "tsv") else "no records"
+        raise DriftError(
+            f"{name} has no documents ({detail}); give a file with one document per row."
+        )
+    if totals.bad.count and (not skip_bad_dates or totals.bad.count == totals.rows):
+        raise totals.bad.error(reader.time_col, total=totals.rows)
+    if not any_tokens:
+        raise DriftError(
+            f"{name} has {totals.rows:,} documents but no words in them; check --text-col "
+            f"(now '{reader.text_col}')."
+        )
+
+
+def _check_edges(rule: SliceRule, files: _SliceFiles) -> None:
+    if rule.kind != "edges":
+        return
+    empty = [
+        bin_for_key(rule, k).label for k in range(len(rule.edges) - 1) if k not in files.tallies
+    ]
+    if empty:
+        present = [day_to_iso(rule.edges[k]) for k in sorted(files.tallies)]
+        raise DriftError(
+            f"The slice{'s' if len(empty) > 1 else ''} {', '.join(empty)} of --by edges hold no "
+            f"documents; choose edges around the dates the data covers (documents found from "
+            f"{present[0] if present else 'nowhere'} on)."
+        )
+
+
+def slice_archive(
+    source: Path | str,
+    out: Path | str,
+    *,
+    fmt: str | None = None,
+    time_col: str | None = None,
+    text_col: str | None = None,
+    date_format: str | None = None,
+    skip_bad_dates: bool = False,
+    by: str = "year",
+    balance: str | int | None = None,
+    keep_case: bool = False,
+    pretokenized: bool = False,
+    seed: int = 0,
+    quiet: bool = False,
+) -> pd.DataFrame:
+    """Cut ``source`` into time slices in the run folder ``out`` and return the slice summary.
+
+    The summary has the columns of slices/summary.csv; ``summary.attrs`` holds ``reused`` (the
+    slices were already current), ``warnings`` and the run's ``totals`` (documents read, bad
+    dates skipped, documents outside the edges, empty documents, replaced characters).
+    """
+    started = time.perf_counter()
+    source = Path(source)
+    rule = parse_by(by)
+    budget = parse_balance(balance)
+    reader = open_source(source, fmt, time_col, text_col)
+    paths = runfolder.prepare_run_folder(Path(out))
+    params = {
+        "format": reader.fmt,
+        "time_col": reader.time_col,
+        "text_col": reader.text_col,
+        "date_format": date_format,
+        "skip_bad_dates": bool(skip_bad_dates),
+        "by": str(by).strip().lower(),
+        "balance": budget,
+        "keep_case": bool(keep_case),
+        "pretokenized": bool(pretokenized),
+        "seed": int(seed),
+    }
+    with runfolder.run_lock(paths.root):
+        inputs = runfolder.fingerprint_path(source)
+        recorded = runfolder.read_manifest(paths.root).get("stages", {}).get(STAGE, {})
+        if runfolder.stage_is_current(paths.root, STAGE, params, inputs) and _outputs_exist(
+            paths, recorded.get("labels")
+        ):
+            _note(
+                f"the slices in {paths.root} are current (same input and parameters); "
+                "reusing them.",
+                quiet,
+            )
+            summary = read_summary(paths.root)
+            summary.attrs.update(reused=True, warnings=[], totals=recorded.get("totals", {}))
+            return summary
+        runfolder.forget_stage(paths.root, STAGE)
+        _clean_leftovers(paths)
+        summary, totals, timings = _run(reader, paths, rule, budget, params, seed, quiet)
+        labels = summary["label"].tolist()
+        timings["total"] = round(time.perf_counter() - started, 3)
+        runfolder.record_stage(
+            paths.root,
+            STAGE,
+            params,
+            inputs,
+            time.perf_counter() - started,
+            extra={
+                "labels": labels,
+                "source": str(source.resolve()),
+                "totals": totals,
+                "timings": timings,
+            },
+        )
+    messages = slice_warnings(summary)
+    if totals["bad_dates_skipped"]:
+        messages.append(
+            f"{totals['bad_dates_skipped']:,} documents had dates that do not parse and were "
+            "left out "
+            "(--skip-bad-dates)."
+        )
+    if totals["outside_edges"]:
+        messages.append(
+            f"{totals['outside_edges']:,} documents fall outside the --by edges and were left out."
+        )
+    if totals["replaced_characters"]:
+        messages.append(
+            f"{totals['replaced_characters']:,} undecodable bytes in {source.name} were replaced "
+            "by U+FFFD "
+            "(the input is read as UTF-8)."
+        )
+    for message in messages:
+        _warn(message)
+    summary.attrs.update(reused=False, warnings=messages, totals=totals)
+    return summary
+
+
+def _run(
+    reader: Reader,
+    paths: runfolder.RunPaths,
+    rule: SliceRule,
+    budget: str | int | None,
+    params: dict[str, Any],
+    seed: int,
+    quiet: bool,
+) -> tuple[pd.DataFrame, dict[str, int], dict[str, float]]:
+    """Read, slice, balance and write; returns the summary, totals and timings."""
+    settings = _Settings(rule, params["date_format"], params["keep_case"], params["pretokenized"])
+    timings: dict[str, float] = {}
+    paths.slices_dir.mkdir(parents=True, exist_ok=True)
+    counts = WordCounts()
+    with tempfile.TemporaryDirectory(prefix=".work-", dir=paths.slices_dir) as work:
+        clock = time.perf_counter()
+        if rule.kind == "even":
+            year_files = _SliceFiles(Path(work) / "years", keep_lines=False)
+            totals = _first_pass(
+                reader, settings, year_files, counts, params["skip_bad_dates"], quiet
+            )
+            _check_read(reader, totals, params["skip_bad_dates"], bool(year_files.tallies))
+            days = np.concatenate([d for d, _ in totals.day_tokens])
+            tokens = np.concatenate([t for _, t in totals.day_tokens])
+            bins = even_bins(days, tokens, rule.count)
+            files = _SliceFiles(Path(work) / "slices", keep_lines=budget is not None)
+            _second_pass_even(year_files, bins, files, counts, quiet)
+            shutil.rmtree(year_files.folder, ignore_errors=True)
+        else:
+            files = _SliceFiles(Path(work) / "slices", keep_lines=budget is not None)
+            totals = _first_pass(reader, settings, files, counts, params["skip_bad_dates"], quiet)
+            _check_read(reader, totals, params["skip_bad_dates"], bool(files.tallies))
+            _check_edges(rule, files)
+            bins = [bin_for_key(rule, key) for key in sorted(files.tallies)]
+        timings["read"] = round(time.perf_counter() - clock, 3)
+        keys = [b.key for b in bins]
+        dropped = dict.fromkeys(keys, 0)
+        if budget is not None:
+            clock = time.perf_counter()
+            target = min(files.tallies[k].tokens for k in keys) if budget == "smallest" else budget
+            short = [b for b in bins if files.tallies[b.key].tokens < target]
+            if short:
+                raise DriftError(
+                    f"--balance {budget} asks for more tokens than slice {short[0].label} holds "
+                    f"({files.tallies[short[0].key].tokens:,}); give a smaller number, or "
+                    "--balance "
+                    "alone for the smallest slice's size."
+                )
+            dropped = _balance(files, counts, int(target), seed, keys)
+            timings["balance"] = round(time.perf_counter() - clock, 3)
+        clock = time.perf_counter()
+        words, matrix = counts.matrix(keys)
+        labels = [b.label for b in bins]
+        summary = pd.DataFrame(
+            {
+                "label": labels,
+                "start": [day_to_iso(b.start) for b in bins],
+                "end": [day_to_iso(b.end) for b in bins],
+                "documents": [files.tallies[k].documents for k in keys],
+                "tokens": [files.tallies[k].tokens for k in keys],
+                "types": (matrix > 0).sum(axis=0).astype(np.int64),
+                "dropped": [dropped[k] for k in keys],
+            },
+            columns=SUMMARY_COLUMNS,
+        )
+        for b in bins:
+            with runfolder.atomic_path(paths.slice_file(b.label)) as tmp:
+                os.replace(files.path(b.key), tmp)
+    for stale in paths.slices_dir.glob("*.txt"):
+        if stale.stem not in labels:
+            stale.unlink()
+    table = pa.table({"word": words, **{label: matrix[:, i] for i, label in enumerate(labels)}})
+    with runfolder.atomic_path(paths.counts) as tmp:
+        pq.write_table(table, tmp)
+    runfolder.write_text_atomic(paths.slice_summary, summary.to_csv(index=False))
+    timings["write"] = round(time.perf_counter() - clock, 3)
+    totals_out = {
+        "documents_read": totals.rows,
+        "bad_dates_skipped": totals.bad.count,
+        "outside_edges": totals.outside,
+        "empty_documents": totals.empty,
+        "replaced_characters": reader.replaced,
+    }
+    return summary, totals_out, timings
