@@ -10,13 +10,12 @@ from __future__ import annotations
 import os
 import sys
 
-from drift.cli import (  # noqa: F401  (imported for their commands)
-    cmd_chart,
-    cmd_pipeline,
-    cmd_rank,
-    cmd_slice,
-    cmd_train,
-)
+# The command modules register their commands on import, in the order `drift --help` lists them.
+from drift.cli import cmd_slice  # noqa: F401, I001
+from drift.cli import cmd_train  # noqa: F401
+from drift.cli import cmd_rank  # noqa: F401
+from drift.cli import cmd_chart  # noqa: F401
+from drift.cli import cmd_pipeline  # noqa: F401
 from drift.cli.app import app
 from drift.errors import DriftError
 
