@@ -1,3 +1,4 @@
+# ruff: noqa: I001  (command modules are imported in the order the help lists them)
 """Command line: parses options and calls the library. One module per command group.
 
 Every command module registers its commands on :data:`drift.cli.app.app`. ``main`` turns a
@@ -11,7 +12,7 @@ import os
 import sys
 
 # The command modules register their commands on import, in the order `drift --help` lists them.
-from drift.cli import cmd_slice  # noqa: F401, I001
+from drift.cli import cmd_slice  # noqa: F401
 from drift.cli import cmd_train  # noqa: F401
 from drift.cli import cmd_rank  # noqa: F401
 from drift.cli import cmd_chart  # noqa: F401
