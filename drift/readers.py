@@ -166,8 +166,8 @@ class _Utf8Stream(io.RawIOBase):
             self._source = lzma.LZMAFile(self.counter, mode="rb")
         else:
             self._source = io.BufferedReader(self.counter, 1 << 20)
-        self._decoder = codecs.getincrementaldecoder("utf-8")(errors="replace")
-        self._pending = b""
+        self._tail = b""
+        self._pending = memoryview(b"")
         self._at_start = True
         self._done = False
         self.replaced = 0
@@ -189,17 +189,25 @@ class _Utf8Stream(io.RawIOBase):
             raise self.failure from None
 
     def _fill(self, size: int) -> None:
+        """Decode the next chunk: valid UTF-8 passes through as it is; a chunk with bad bytes is
+        decoded with U+FFFD replacements (counted) and encoded again."""
         while not self._pending and not self._done:
             raw = self._read_raw(max(size, 1 << 20))
             final = not raw
-            text = self._decoder.decode(raw, final=final)
+            data = self._tail + raw if self._tail else raw
+            try:
+                _, used = codecs.utf_8_decode(data, "strict", final)
+                chunk = data[:used]
+            except UnicodeDecodeError:
+                text, used = codecs.utf_8_decode(data, "replace", final)
+                self.replaced += text.count("\ufffd") - data[:used].count(b"\xef\xbf\xbd")
+                chunk = text.encode("utf-8")
+            self._tail = data[used:]
             self._done = final
-            if "\ufffd" in text:
-                self.replaced += text.count("\ufffd") - raw.count(b"\xef\xbf\xbd")
-            if self._at_start and text:
-                text = text.removeprefix("\ufeff")
+            if self._at_start and chunk:
+                chunk = chunk.removeprefix(b"\xef\xbb\xbf")
                 self._at_start = False
-            self._pending = text.encode("utf-8")
+            self._pending = memoryview(chunk)
 
     def readinto(self, buffer) -> int:
         self._fill(len(buffer))

@@ -17,6 +17,7 @@ compute kernels and one byte-level translation, so that gigabytes stream through
 
 from __future__ import annotations
 
+import functools
 import unicodedata
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -151,14 +152,54 @@ def _nfc_trigger_pattern() -> str:
     unicodedata, about half a second, and only when non-ASCII text turns up)."""
     global _nfc_pattern
     if _nfc_pattern is None:
-        changed = [
-            code
-            for code in _codes_with_decompositions()
-            if unicodedata.normalize("NFC", chr(code)) != chr(code)
-        ]
-        ranges = [r"\p{M}", r"\x{1100}-\x{11ff}"] + [f"\\x{{{code:x}}}" for code in changed]
-        _nfc_pattern = "[" + "".join(ranges) + "]"
+        _nfc_pattern = "[\\p{M}" + _nfc_letters() + "]"
     return _nfc_pattern
+
+
+@functools.lru_cache(maxsize=1)
+def _nfc_letters() -> str:
+    """RE2 class items for Hangul jamo and the characters that NFC changes."""
+    changed = [
+        code
+        for code in _codes_with_decompositions()
+        if unicodedata.normalize("NFC", chr(code)) != chr(code)
+    ]
+    return r"\x{1100}-\x{11ff}" + "".join(f"\\x{{{code:x}}}" for code in changed)
+
+
+#: Blocks whose plain letters (category L, unchanged by NFC) take the fast path: Latin, Greek,
+#: Cyrillic, Armenian, Hebrew, kana, CJK ideographs and Hangul syllables.
+_PLAIN_BLOCKS = (
+    (0x80, 0x58F),
+    (0x5D0, 0x5EA),
+    (0x3041, 0x30FF),
+    (0x4E00, 0x9FFF),
+    (0xAC00, 0xD7A3),
+)
+
+
+@functools.lru_cache(maxsize=1)
+def _unusual_pattern() -> str:
+    """RE2 class of the non-ASCII characters that are not plain letters of the common blocks:
+    separators, marks, digits, symbols, letters that NFC changes, other scripts. A text without
+    them (e.g. plain accented words) needs neither NFC nor the Unicode separator pass. The class
+    is explicit ranges (no \\p{..}) so that it compiles in well under a millisecond."""
+    ranges = []
+    for low, high in _PLAIN_BLOCKS:
+        start = None
+        for code in range(low, high + 2):
+            ch = chr(code)
+            plain = (
+                code <= high
+                and unicodedata.category(ch)[0] == "L"
+                and unicodedata.normalize("NFC", ch) == ch
+            )
+            if plain and start is None:
+                start = code
+            elif not plain and start is not None:
+                ranges.append(f"\\x{{{start:x}}}-\\x{{{code - 1:x}}}")
+                start = None
+    return "[^\\x00-\\x7f" + "".join(ranges) + "]"
 
 
 def tokenize_array(
@@ -170,20 +211,27 @@ def tokenize_array(
     """Tokenize an Arrow array of documents into lines of tokens (see the module docstring)."""
     texts = _as_plain_strings(texts)
     ascii_only = _is_all_ascii(texts)
-    if not ascii_only and pc.any(pc.match_substring_regex(texts, _nfc_trigger_pattern())).as_py():
-        texts = pc.utf8_normalize(texts, "NFC")
+    unusual = None  # documents with characters that need the Unicode passes
+    if not ascii_only:
+        unusual = pc.match_substring_regex(texts, _unusual_pattern())
+        if not pc.any(unusual).as_py():
+            unusual = None
+    if unusual is not None:
+        needs_nfc = pc.match_substring_regex(texts, _nfc_trigger_pattern())
+        if pc.any(needs_nfc).as_py():
+            normalized = pc.utf8_normalize(texts.filter(needs_nfc), "NFC")
+            texts = pc.replace_with_mask(texts, needs_nfc, normalized)
     if not keep_case:
         texts = pc.ascii_lower(texts) if ascii_only else pc.utf8_lower(texts)
     texts = _translate(texts, _SPACE_TABLE if pretokenized else _WORD_TABLE)
     split = pc.split_pattern(texts, "\n")
     lines = pc.list_flatten(split)
     doc_index = pc.list_parent_indices(split).to_numpy(zero_copy_only=False).astype(np.int64)
-    if not ascii_only:  # non-ASCII separators (curly quotes, dashes, no-break spaces, ...)
+    if unusual is not None:  # non-ASCII separators (curly quotes, dashes, no-break spaces, ...)
         pattern = _NON_ASCII_SPACE if pretokenized else _NON_ASCII_NON_WORD
-        has_separator = pc.match_substring_regex(lines, pattern)
-        if pc.any(has_separator).as_py():
-            cleaned = pc.replace_substring_regex(lines.filter(has_separator), pattern, " ")
-            lines = pc.replace_with_mask(lines, has_separator, cleaned)
+        line_mask = pa.array(unusual.to_numpy(zero_copy_only=False)[doc_index])
+        cleaned = pc.replace_substring_regex(lines.filter(line_mask), pattern, " ")
+        lines = pc.replace_with_mask(lines, line_mask, cleaned)
     lines = pc.utf8_trim(lines, " ")
     has_tokens = pc.greater(pc.binary_length(lines), 0)
     if not pc.all(has_tokens).as_py():
