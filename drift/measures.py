@@ -133,15 +133,13 @@ def union_rows(a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 def gathered_similarities(
     word_vectors: np.ndarray, candidates: np.ndarray, ids: np.ndarray
 ) -> np.ndarray:
-    """``word_vectors[i] . candidates[ids[i, j]]`` for every i, j (float64)."""
+    """``word_vectors[i] . candidates[ids[i, j]]`` for every i, j (computed in the vectors'
+    float32, returned as float64)."""
     out = np.empty(ids.shape, dtype=np.float64)
     for start in range(0, len(ids), GATHER_ROWS):
         stop = start + GATHER_ROWS
-        out[start:stop] = np.einsum(
-            "id,ijd->ij",
-            word_vectors[start:stop].astype(np.float64),
-            candidates[ids[start:stop]].astype(np.float64),
-        )
+        near = candidates[ids[start:stop]]
+        out[start:stop] = np.einsum("id,ijd->ij", word_vectors[start:stop], near)
     return out
 
 
