@@ -580,7 +580,9 @@ def _first_pass(
                 if len(totals.bad.examples) < 3 and example not in totals.bad.examples:
                     totals.bad.examples.append(example)
             if number == 0 and not skip_bad_dates and outcome.bad.count == outcome.rows:
-                raise totals.bad.error(reader.time_col, first_only=True)
+                raise totals.bad.error(
+                    reader.time_col, first_only=True, text_files=reader.fmt == "txt"
+                )
             if outcome.day_tokens is not None:
                 totals.day_tokens.append(outcome.day_tokens)
             for part in outcome.parts:
@@ -706,7 +708,12 @@ def summary_table(summary: pd.DataFrame, title: str | None = None):
 
     table = Table(title=title)
     for column in SUMMARY_COLUMNS:
-        table.add_column(column, justify="left" if column in ("label", "start", "end") else "right")
+        table.add_column(
+            column,
+            justify="left" if column in ("label", "start", "end") else "right",
+            no_wrap=column in ("label", "start", "end"),
+            min_width=max([len(column)] + [len(str(v)) for v in summary[column]]),
+        )
     for row in summary.itertuples(index=False):
         table.add_row(
             str(row.label),
@@ -731,6 +738,11 @@ def _warn(message: str) -> None:
     )
 
 
+def _count(number: int, noun: str) -> str:
+    """'1 document', '2,000 documents'."""
+    return f"{number:,} {noun}" + ("" if number == 1 else "s")
+
+
 def slice_warnings(summary: pd.DataFrame) -> list[str]:
     """Warnings about slice sizes: small slices (common practice: about a million tokens or more)
     and sizes that differ more than tenfold."""
@@ -738,20 +750,18 @@ def slice_warnings(summary: pd.DataFrame) -> list[str]:
     small = summary[summary["tokens"] < SMALL_SLICE_TOKENS]
     if len(small):
         names = ", ".join(small["label"].astype(str).head(8)) + (" ..." if len(small) > 8 else "")
-        which = (
-            f"slice {names} has"
-            if len(small) == 1
-            else f"all {len(small)} slices have"
-            if len(small) == len(summary)
-            else f"{len(small)} of {len(summary)} slices have"
-        )
+        if len(small) == 1:
+            which = f"slice {names} has"
+        elif len(small) == len(summary):
+            which = (
+                f"{'both' if len(small) == 2 else 'all ' + str(len(small))} slices ({names}) have"
+            )
+        else:
+            which = f"{len(small)} of {len(summary)} slices ({names}) have"
         messages.append(
-            f"{which} under a million tokens ({names}); vectors trained on small slices are "
-            "unstable (common practice: a million tokens or more per slice), so consider wider "
-            "slices such as --by decade."
-            if len(small) > 1
-            else f"{which} under a million tokens; vectors trained on small slices are unstable "
-            "(common practice: a million tokens or more per slice), so consider wider slices."
+            f"{which} under a million tokens; vectors trained on small slices are unstable "
+            "(common practice: a million tokens or more per slice), so consider wider slices "
+            "(--by) or more text."
         )
     if len(summary) > 1 and summary["tokens"].min() > 0:
         smallest, largest = (
@@ -793,7 +803,7 @@ def _check_read(
             f"{name} has no documents ({detail}); give a file with one document per row."
         )
     if totals.bad.count and (not skip_bad_dates or totals.bad.count == totals.rows):
-        raise totals.bad.error(reader.time_col, total=totals.rows)
+        raise totals.bad.error(reader.time_col, total=totals.rows, text_files=reader.fmt == "txt")
     if not any_tokens:
         raise DriftError(
             f"{name} has {totals.rows:,} documents but no words in them; check --text-col "
@@ -891,19 +901,17 @@ def slice_archive(
     messages = slice_warnings(summary)
     if totals["bad_dates_skipped"]:
         messages.append(
-            f"{totals['bad_dates_skipped']:,} documents had dates that do not parse and were "
-            "left out "
-            "(--skip-bad-dates)."
+            f"{_count(totals['bad_dates_skipped'], 'document')} whose date does not parse "
+            "left out (--skip-bad-dates)."
         )
     if totals["outside_edges"]:
         messages.append(
-            f"{totals['outside_edges']:,} documents fall outside the --by edges and were left out."
+            f"{_count(totals['outside_edges'], 'document')} outside the --by edges left out."
         )
     if totals["replaced_characters"]:
         messages.append(
-            f"{totals['replaced_characters']:,} undecodable bytes in {source.name} were replaced "
-            "by U+FFFD "
-            "(the input is read as UTF-8)."
+            f"{_count(totals['replaced_characters'], 'undecodable byte sequence')} in "
+            f"{source.name} replaced by U+FFFD (the input is read as UTF-8)."
         )
     for message in messages:
         _warn(message)

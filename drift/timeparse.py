@@ -193,16 +193,36 @@ class BadDates:
             if shown not in self.examples:
                 self.examples.append(shown)
 
-    def error(self, column: str, total: int | None = None, first_only: bool = False) -> DriftError:
-        """The DriftError that reports these bad values."""
+    def error(
+        self,
+        column: str,
+        total: int | None = None,
+        first_only: bool = False,
+        text_files: bool = False,
+    ) -> DriftError:
+        """The DriftError that reports these bad values (``text_files``: dates of .txt files)."""
         examples = ", ".join(self.examples)
+        if text_files:
+            if first_only:
+                problem = f"None of the first {self.count:,} text files has a date that parses"
+            else:
+                problem = (
+                    f"{self.count:,} of {total or self.count:,} text files have no date that parses"
+                )
+            return DriftError(
+                f"{problem} (e.g. {examples}); put a year or ISO date in their file or folder "
+                "names, list them in an index.csv (file, date), or drop them with --skip-bad-dates."
+            )
         if first_only:
             problem = (
                 f"None of the first {self.count:,} values in the time column '{column}' is a date"
             )
         else:
             amount = f"{self.count:,} of {total:,} values" if total else f"{self.count:,} values"
-            problem = f"{amount} in the time column '{column}' are not dates"
+            if self.count == 1:
+                amount = amount.removesuffix("values") + ("values" if total else "value")
+            verb = "is not a date" if self.count == 1 else "are not dates"
+            problem = f"{amount} in the time column '{column}' {verb}"
         return DriftError(
             f"{problem} (e.g. {examples}); give their "
             "layout with --date-format (e.g. '%d/%m/%Y'), choose another column with --time-col, "

@@ -149,7 +149,7 @@ def test_dates_that_do_not_parse(tmp_path, capsys):
     )
     assert "--skip-bad-dates" in err and "--date-format" in err
     code, out, err = run_cli([path, "--out", tmp_path / "run", "--skip-bad-dates", "-q"], capsys)
-    assert code == 0 and "2 documents had dates that do not parse" in err
+    assert code == 0 and "2 documents whose date does not parse left out" in err
     code, out, _ = run_cli(
         [path, "--out", tmp_path / "run2", "--skip-bad-dates", "--date-format", "%d/%m/%Y", "-q"],
         capsys,
@@ -161,7 +161,7 @@ def test_undecodable_bytes_are_replaced_not_fatal(tmp_path, capsys):
     path = tmp_path / "latin.csv"
     path.write_bytes(b"date,text\n1990,na\xefve caf\xe9\n1991,plain\n")
     code, out, err = run_cli([path, "--out", tmp_path / "run", "-q"], capsys)
-    assert code == 0 and "2 undecodable bytes" in err
+    assert code == 0 and "2 undecodable byte sequences" in err
 
 
 def test_truncated_gzip(tmp_path, capsys):

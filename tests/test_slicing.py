@@ -400,7 +400,7 @@ def test_bad_dates_are_an_error_with_count_and_examples(tmp_path):
         slice_archive(path, tmp_path / "run", quiet=True)
     summary = slice_archive(path, tmp_path / "run", skip_bad_dates=True, quiet=True)
     assert summary.attrs["totals"]["bad_dates_skipped"] == 3
-    assert any("3 documents had dates that do not parse" in w for w in summary.attrs["warnings"])
+    assert any("3 documents whose date does not parse" in w for w in summary.attrs["warnings"])
     assert summary["label"].tolist() == ["1990", "1991", "1992"]
 
 
@@ -441,7 +441,7 @@ def test_undecodable_bytes_are_counted_in_the_run(tmp_path):
     path.write_bytes(b"date,text\n1990,caf\xe9 ok\n1991,fine\n")
     summary = slice_archive(path, tmp_path / "run", quiet=True)
     assert summary.attrs["totals"]["replaced_characters"] == 1
-    assert any("1 undecodable bytes" in w for w in summary.attrs["warnings"])
+    assert any("1 undecodable byte sequence in" in w for w in summary.attrs["warnings"])
     assert counts_as_counters(tmp_path / "run")["1990"] == Counter({"caf": 1, "ok": 1})
 
 
@@ -481,3 +481,14 @@ def test_size_warnings():
     assert (
         slice_warnings(pd.DataFrame({"label": ["a", "b"], "tokens": [2_000_000, 3_000_000]})) == []
     )
+
+
+def test_text_files_without_dates(tmp_path):
+    folder = tmp_path / "notes"
+    folder.mkdir()
+    (folder / "1990-05-01.txt").write_text("dated note", encoding="utf-8")
+    (folder / "misc.txt").write_text("undated note", encoding="utf-8")
+    with pytest.raises(DriftError, match=r"1 of 2 text files have no date that parses .*misc.txt"):
+        slice_archive(folder, tmp_path / "run", quiet=True)
+    summary = slice_archive(folder, tmp_path / "run", skip_bad_dates=True, quiet=True)
+    assert summary["label"].tolist() == ["1990"]

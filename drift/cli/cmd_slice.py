@@ -93,4 +93,9 @@ def slice_command(
         quiet=quiet,
     )
     title = f"Slices in {out}" + (" (reused)" if summary.attrs.get("reused") else "")
-    Console().print(summary_table(summary, title=title))
+    table = summary_table(summary, title=title)
+    console = Console()
+    needed = console.measure(table, options=console.options.update_width(1000)).maximum
+    if needed > console.width:  # never crop the table (e.g. long date-range labels in a pipe)
+        console = Console(width=needed)
+    console.print(table)
