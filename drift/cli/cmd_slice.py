@@ -71,7 +71,10 @@ def slice_command(
         False, "--quiet", "-q", help="No progress bar or notes (warnings still print)."
     ),
 ) -> None:
-    """Cut a dated archive into time slices: RUN/slices/<label>.txt, summary.csv, counts.parquet."""
+    """Cut a dated archive into time slices of tokenized text, with word counts per slice.
+
+    Writes RUN/slices/<label>.txt, RUN/slices/summary.csv, RUN/counts.parquet and RUN/run.json.
+    """
     from rich.console import Console
 
     from drift.slicing import slice_archive, summary_table
