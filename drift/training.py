@@ -22,15 +22,17 @@ from collections.abc import Callable
 from contextlib import ExitStack
 from dataclasses import asdict, dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
 
 from drift import engines, runfolder
 from drift.errors import DriftError, close_matches
 from drift.progress import progress_bars
 from drift.runfolder import RunPaths
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 ARCHITECTURES = ("skipgram", "cbow")
 CONTROL_LABELS = ("control-a", "control-b")
@@ -39,6 +41,8 @@ MODEL_FORMAT = 1
 CONTROL_FORMAT = 1
 RESULT_COLUMNS = ["group", "label", "seed", "path", "vocabulary", "seconds", "reused"]
 _LABEL_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
+#: Modules a local pool worker imports once, before its first task.
+POOL_PRELOAD = ("drift.training", "gensim.models.word2vec")
 _SEED_LIMIT = 2**32  # gensim seeds numpy's RandomState, which takes 0 .. 2**32 - 1
 
 
@@ -569,6 +573,8 @@ def train_run(
     Returns one row per model: ``group`` ('slice' or 'control'), ``label``, ``seed``, ``path``,
     ``vocabulary`` (words kept), ``seconds`` (training time) and ``reused``.
     """
+    import pandas as pd  # here, not at the top: pool workers import this module and need no pandas
+
     started = time.perf_counter()
     params = validate_params(
         architecture=architecture,
@@ -629,6 +635,7 @@ def train_run(
                             processes=processes,
                             scheduler=scheduler,
                             on_event=None if quiet else bars.on_event,
+                            preload=POOL_PRELOAD,
                         )
                     )
                 if pair and control_record is None:

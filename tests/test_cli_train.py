@@ -128,7 +128,7 @@ def _children(pid: int) -> list:
 
 @pytest.mark.slow
 def test_a_killed_run_resumes_without_retraining_finished_models(run):
-    command = [sys.executable, "-m", "drift", "train", str(run), "--dim", "24", "--epochs", "3",
+    command = [sys.executable, "-m", "drift", "train", str(run), "--dim", "8", "--epochs", "2",
                "--min-count", "2", "--seeds", "2", "--workers", "2", "--quiet"]
     process = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=subprocess.PIPE)
     deadline = time.monotonic() + 120
