@@ -853,6 +853,11 @@ def slice_archive(
     rule = parse_by(by)
     budget = parse_balance(balance)
     reader = open_source(source, fmt, time_col, text_col)
+    if source.is_dir() and Path(out).resolve().is_relative_to(source.resolve()):
+        raise DriftError(
+            f"--out {out} is inside the source folder {source}, so its slices would be read as "
+            "documents next time; choose a run folder outside it."
+        )
     paths = runfolder.prepare_run_folder(Path(out))
     params = {
         "format": reader.fmt,

@@ -492,3 +492,11 @@ def test_text_files_without_dates(tmp_path):
         slice_archive(folder, tmp_path / "run", quiet=True)
     summary = slice_archive(folder, tmp_path / "run", skip_bad_dates=True, quiet=True)
     assert summary["label"].tolist() == ["1990"]
+
+
+def test_run_folder_inside_a_source_folder_is_refused(tmp_path):
+    folder = tmp_path / "notes"
+    folder.mkdir()
+    (folder / "1990.txt").write_text("a note", encoding="utf-8")
+    with pytest.raises(DriftError, match="inside the source folder"):
+        slice_archive(folder, folder / "run", quiet=True)
