@@ -500,3 +500,30 @@ def test_run_folder_inside_a_source_folder_is_refused(tmp_path):
     (folder / "1990.txt").write_text("a note", encoding="utf-8")
     with pytest.raises(DriftError, match="inside the source folder"):
         slice_archive(folder, folder / "run", quiet=True)
+
+
+def test_many_slices_with_few_open_files(tmp_path, monkeypatch):
+    monkeypatch.setattr(slicing, "_MAX_OPEN_FILES", 3)
+    monkeypatch.setattr(readers, "BATCH_BYTES", 1 << 12)
+    frame = pd.DataFrame(
+        {
+            "year": [1900 + i % 40 for i in range(800)],
+            "text": [f"w{i % 7} x{i % 40}" for i in range(800)],
+        }
+    )
+    path = tmp_path / "years.csv"
+    frame.to_csv(path, index=False)
+    summary = slice_archive(path, tmp_path / "run", quiet=True)
+    assert len(summary) == 40 and (summary["documents"] == 20).all()
+    for label in ("1900", "1939"):
+        assert slice_file_counts(tmp_path / "run", label) == Counter(
+            token for text in frame["text"][frame["year"] == int(label)] for token in tokenize(text)
+        )
+
+
+def test_progress_bar_unless_quiet(lee_csv, tmp_path, monkeypatch, capsys):
+    monkeypatch.setattr(slicing, "PROGRESS_MIN_BYTES", 0)
+    slice_archive(lee_csv, tmp_path / "a", by="decade", quiet=False)
+    assert "Reading lee.csv" in capsys.readouterr().err
+    slice_archive(lee_csv, tmp_path / "b", by="decade", quiet=True)
+    assert "Reading" not in capsys.readouterr().err
