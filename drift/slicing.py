@@ -8,10 +8,11 @@ contract says, ``slices/<label>.txt``, ``slices/summary.csv``, ``counts.parquet`
 
 Slices (``by``): ``year``, ``decade``, ``Ny`` (N-year bins aligned on multiples of N, so ``5y``
 gives 1990-1994, 1995-1999, ...), ``edges:Y1,Y2,...`` (bins [Y1, Y2), [Y2, Y3), ...; years or
-ISO dates) and ``even:K`` (K slices of about equal token count, cut at the finest date unit the
-data has: year, month or day; this needs a second pass over a temporary copy of the tokenized
-text). Documents are tokenized on two threads (Arrow kernels release the GIL) and written in
-input order, so results do not depend on timing.
+ISO dates) and ``even:K`` (K slices of about equal token count, cut between years when every
+date is a year, between months when every date is a month, else between days; this needs a
+second pass over a temporary copy of the tokenized text). Documents are tokenized on two
+threads (Arrow kernels release the GIL) and written in input order, so results do not depend on
+timing.
 
 Balancing (``balance``) down-samples the lines of each slice, at random with a fixed seed, to
 the smallest slice's token count (``"smallest"``) or to a given number of tokens; the ``dropped``
@@ -346,6 +347,7 @@ class _Part:
     tokens: int
     line_tokens: np.ndarray
     doc_starts: np.ndarray
+    longest_line: int
 
 
 @dataclass
@@ -408,6 +410,7 @@ def _split_by_key(
                 tokens=int(token_offsets[b] - token_offsets[a]),
                 line_tokens=token_counts[a:b].astype(np.uint16),
                 doc_starts=doc_starts[a:b],
+                longest_line=int(np.diff(offsets[a : b + 1]).max()),
             )
         )
     counts = count_batch_words(tokens, bounds) if count_words and bounds else None
@@ -467,8 +470,10 @@ def _process_batch(batch: DocBatch, settings: _Settings) -> _BatchOutcome:
     return _BatchOutcome(rows, bad, outside, empty, parts, counts, day_tokens)
 
 
-def _ordered_map(fn: Callable, items: Iterable, workers: int = WORKERS) -> Iterator:
-    """``map(fn, items)`` on ``workers`` threads, results in input order, a few items ahead."""
+def _ordered_map(fn: Callable, items: Iterable, workers: int | None = None) -> Iterator:
+    """``map(fn, items)`` on ``workers`` threads (default WORKERS), results in input order, a
+    few items ahead."""
+    workers = WORKERS if workers is None else workers
     if workers <= 1:
         yield from map(fn, items)
         return
@@ -501,6 +506,7 @@ class _SliceFiles:
         self.folder.mkdir(parents=True, exist_ok=True)
         self.keep_lines = keep_lines
         self.tallies: dict[int, _Tally] = {}
+        self.longest_line = 0  # bytes, for reading the files back in large enough blocks
         self._open: collections.OrderedDict[int, Any] = collections.OrderedDict()
 
     def path(self, key: int) -> Path:
@@ -520,6 +526,7 @@ class _SliceFiles:
         tally = self.tallies.setdefault(part.key, _Tally())
         tally.documents += part.documents
         tally.tokens += part.tokens
+        self.longest_line = max(self.longest_line, part.longest_line)
         if self.keep_lines:
             tally.line_tokens.append(part.line_tokens)
             tally.doc_starts.append(part.doc_starts)
@@ -530,12 +537,15 @@ class _SliceFiles:
 
 
 def _read_lines(
-    path: Path, columns: list[str], types: dict[str, pa.DataType]
+    path: Path, columns: list[str], types: dict[str, pa.DataType], longest_line: int
 ) -> Iterator[pa.RecordBatch]:
-    """Stream a tab-separated work file (no quoting) as record batches."""
+    """Stream a tab-separated work file (no quoting) as record batches; blocks hold at least
+    two of its longest lines (pyarrow keeps every row inside one block)."""
     with pacsv.open_csv(
         path,
-        read_options=pacsv.ReadOptions(column_names=columns, block_size=4 << 20),
+        read_options=pacsv.ReadOptions(
+            column_names=columns, block_size=max(4 << 20, 2 * longest_line + 1024)
+        ),
         parse_options=pacsv.ParseOptions(
             delimiter="\t", quote_char=False, double_quote=False, escape_char=False
         ),
@@ -622,7 +632,7 @@ def _second_pass_even(
 
     def batches() -> Iterator[pa.RecordBatch]:
         for year in sorted(year_files.tallies):
-            yield from _read_lines(year_files.path(year), columns, types)
+            yield from _read_lines(year_files.path(year), columns, types, year_files.longest_line)
 
     total = sum(year_files.path(year).stat().st_size for year in year_files.tallies)
     with progress_bars(quiet or total < PROGRESS_MIN_BYTES) as progress:
@@ -636,6 +646,22 @@ def _second_pass_even(
             if batch_counts is not None:
                 counts.add(batch_counts)
     files.close()
+
+
+def lines_within_budget(line_tokens: np.ndarray, order: np.ndarray, budget: int) -> np.ndarray:
+    """Lines taken in ``order`` while they fit: each line is kept if its tokens fit in what is
+    left of ``budget`` (a line that does not fit is skipped, later ones may still fit)."""
+    taken = []
+    candidates = order
+    left = int(budget)
+    while left > 0 and len(candidates):
+        candidates = candidates[line_tokens[candidates] <= left]  # lines that can still fit
+        cumulative = np.cumsum(line_tokens[candidates])
+        fitting = int(np.searchsorted(cumulative, left, side="right"))
+        taken.append(candidates[:fitting])
+        left -= int(cumulative[fitting - 1]) if fitting else 0
+        candidates = candidates[fitting + 1 :]  # the next line did not fit and never will
+    return np.concatenate(taken) if taken else np.zeros(0, dtype=np.int64)
 
 
 def _balance(
@@ -654,14 +680,13 @@ def _balance(
         line_tokens = np.concatenate(tally.line_tokens).astype(np.int64)
         doc_starts = np.concatenate(tally.doc_starts)
         order = np.random.default_rng([seed, index]).permutation(len(line_tokens))
-        chosen = order[np.cumsum(line_tokens[order]) <= budget]
         keep = np.zeros(len(line_tokens), dtype=bool)
-        keep[chosen] = True
+        keep[lines_within_budget(line_tokens, order, budget)] = True
         counts.drop(key)
         source, target = files.path(key), files.path(key).with_suffix(".balanced")
         position = 0
         with open(target, "wb") as out:
-            for batch in _read_lines(source, ["line"], {"line": pa.string()}):
+            for batch in _read_lines(source, ["line"], {"line": pa.string()}, files.longest_line):
                 mask = keep[position : position + batch.num_rows]
                 position += batch.num_rows
                 lines = batch.column(0).filter(pa.array(mask))

@@ -527,3 +527,28 @@ def test_progress_bar_unless_quiet(lee_csv, tmp_path, monkeypatch, capsys):
     assert "Reading lee.csv" in capsys.readouterr().err
     slice_archive(lee_csv, tmp_path / "b", by="decade", quiet=True)
     assert "Reading" not in capsys.readouterr().err
+
+
+def test_lines_longer_than_a_read_block_survive_even_and_balance(tmp_path):
+    long_words = " ".join(f"{i:04d}" + "x" * 2000 for i in range(2500))  # one 5 MB line
+    texts = ["short text here"] * 20 + [long_words] + ["more short text"] * 20
+    years = [2001] * 20 + [2002] + [2003] * 20
+    path = tmp_path / "long.csv"
+    pd.DataFrame({"year": years, "text": texts}).to_csv(path, index=False)
+    summary = slice_archive(path, tmp_path / "run", by="even:2", balance="smallest", quiet=True)
+    assert summary["tokens"].sum() > 0 and (summary["tokens"] <= summary["tokens"].min()).all()
+    lines = [
+        line
+        for label in summary["label"]
+        for line in (tmp_path / "run" / "slices" / f"{label}.txt").read_text().splitlines()
+    ]
+    assert all(len(line.split()) <= MAX_LINE_TOKENS for line in lines)
+
+
+def test_lines_within_budget_is_greedy_in_random_order():
+    lengths = np.array([5, 50, 3, 4, 40, 2])
+    order = np.array([1, 0, 4, 2, 3, 5])
+    # 50 does not fit in 12; 5 fits (7 left); 40 does not; 3 fits (4 left); 4 fits (0 left)
+    assert sorted(slicing.lines_within_budget(lengths, order, 12).tolist()) == [0, 2, 3]
+    assert slicing.lines_within_budget(lengths, order, 1).tolist() == []
+    assert sorted(slicing.lines_within_budget(lengths, order, 10**6).tolist()) == list(range(6))
