@@ -34,6 +34,9 @@ class RunPaths:
 
     root: Path
 
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "root", Path(self.root))  # accept str as well
+
     @property
     def manifest(self) -> Path:
         return self.root / MANIFEST_NAME
@@ -126,6 +129,15 @@ def library_versions() -> dict[str, str]:
 # ---------------------------------------------------------------------------- atomic writes
 
 
+def _read_umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+_UMASK = _read_umask()  # read once at import: os.umask is process-wide, not thread-safe
+
+
 @contextlib.contextmanager
 def atomic_path(target: Path) -> Iterator[Path]:
     """Yield a temporary path beside ``target``; on success rename it onto ``target``.
@@ -137,6 +149,7 @@ def atomic_path(target: Path) -> Iterator[Path]:
     fd, tmp_name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
     os.close(fd)
     tmp = Path(tmp_name)
+    os.chmod(tmp, 0o666 & ~_UMASK)  # mkstemp makes 0600; results are for sharing
     try:
         yield tmp
         os.replace(tmp, target)
@@ -261,7 +274,7 @@ def forget_stage(root: Path, stage: str) -> None:
         write_json_atomic(RunPaths(Path(root)).manifest, manifest)
 
 
-# ---------------------------------------------------------------------------- folder checks and lock
+# ------------------------------------------------------------------- folder checks and lock
 
 
 def prepare_run_folder(root: Path) -> RunPaths:
@@ -279,10 +292,14 @@ def existing_run(root: Path, needs: str = "slices") -> RunPaths:
     root = Path(root)
     paths = RunPaths(root)
     if not root.is_dir():
-        raise DriftError(f"Run folder {root} does not exist; make it with 'drift slice SOURCE --out {root}'.")
+        raise DriftError(
+            f"Run folder {root} does not exist; make it with 'drift slice SOURCE --out {root}'."
+        )
     read_manifest(root)
     if needs == "slices" and not paths.slice_summary.exists():
-        raise DriftError(f"{root} has no slices yet; make them with 'drift slice SOURCE --out {root}'.")
+        raise DriftError(
+            f"{root} has no slices yet; make them with 'drift slice SOURCE --out {root}'."
+        )
     if needs == "models" and not paths.models_dir.is_dir():
         raise DriftError(f"{root} has no trained models yet; train them with 'drift train {root}'.")
     if needs == "scores" and not paths.scores_parquet.exists():
