@@ -39,7 +39,7 @@ CONTROL_LABELS = ("control-a", "control-b")
 #: Bumped when the way a model is trained or saved changes, so older models are retrained.
 MODEL_FORMAT = 1
 CONTROL_FORMAT = 1
-RESULT_COLUMNS = ["group", "label", "seed", "path", "vocabulary", "seconds", "reused"]
+RESULT_COLUMNS = ["group", "label", "seed", "path", "vocabulary", "seconds", "reused", "threads"]
 _LABEL_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
 #: Modules a local pool worker imports once, before its first task.
 POOL_PRELOAD = ("drift.training", "gensim.models.word2vec")
@@ -504,6 +504,7 @@ def _result_row(task: dict[str, Any], result: dict[str, Any], reused: bool) -> d
         "vocabulary": int(result.get("vocabulary", 0)),
         "seconds": float(result.get("seconds", 0.0)),
         "reused": reused,
+        "threads": int(result.get("threads", task["threads"])),
     }
 
 
@@ -549,6 +550,89 @@ class _TaskBars:
             self.progress.advance(self.overall)
 
 
+@dataclass
+class _Plan:
+    """What one call of train_run will do: every model, the finished ones, the ones to train."""
+
+    tasks: list[dict[str, Any]]
+    rows: dict[str, dict[str, Any]]
+    pending: list[dict[str, Any]]
+    control_record: dict[str, Any] | None
+
+
+def _plan_models(
+    paths: RunPaths,
+    params: TrainParams,
+    labels: list[str],
+    pair: list[str] | None,
+    shuffle_seed: int,
+) -> _Plan:
+    """Split the run's models into finished ones (same slice file, same parameters) and the rest.
+
+    Control models whose control slices must be rebuilt are all pending; their fingerprints are
+    filled in once the new control slices exist.
+    """
+    control_record = current_control_slices(paths, pair, shuffle_seed) if pair else None
+    tasks = _model_tasks(paths, params, labels, control=pair is not None)
+    rows: dict[str, dict[str, Any]] = {}
+    pending = []
+    for task in tasks:
+        if task["group"] == "control" and control_record is None:
+            pending.append(task)
+            continue
+        task["fingerprint"] = model_fingerprint(task["model"], Path(task["corpus"]))
+        done = finished_model(Path(task["output"]), task["fingerprint"])
+        if done is None:
+            pending.append(task)
+        else:
+            rows[task["key"]] = _result_row(task, done, reused=True)
+    return _Plan(tasks, rows, pending, control_record)
+
+
+def _train_pending(
+    paths: RunPaths,
+    plan: _Plan,
+    pair: list[str] | None,
+    shuffle_seed: int,
+    *,
+    engine: str,
+    scheduler: str | None,
+    processes: int,
+    quiet: bool,
+) -> None:
+    """Build the control slices if needed and train every pending model, with progress bars."""
+    with progress_bars(quiet) as progress, ExitStack() as stack:
+        overall = progress.add_task(
+            "train: models", total=len(plan.tasks), completed=len(plan.rows)
+        )
+        bars = _TaskBars(progress, overall)
+        runner = None
+        if plan.pending:  # connect first: an unreachable scheduler fails before any write
+            runner = stack.enter_context(
+                engines.open_engine(
+                    engine,
+                    processes=processes,
+                    scheduler=scheduler,
+                    on_event=None if quiet else bars.on_event,
+                    preload=POOL_PRELOAD,
+                )
+            )
+        if pair and plan.control_record is None:
+            progress.update(overall, description="train: pooling the control pair")
+            plan.control_record = build_control_slices(paths, pair, shuffle_seed)
+            progress.update(overall, description="train: models")
+        for task in plan.pending:
+            if task["fingerprint"] is None:
+                task["fingerprint"] = model_fingerprint(task["model"], Path(task["corpus"]))
+        # largest slices first, so that no long task starts last and runs alone
+        plan.pending.sort(key=lambda task: -Path(task["corpus"]).stat().st_size)
+        by_key = {task["key"]: task for task in plan.pending}
+        if runner is not None:
+            for result in runner.run(train_one_model, plan.pending):
+                plan.rows[result["key"]] = _result_row(by_key[result["key"]], result, False)
+                bars.done(result["key"])
+
+
 def train_run(
     run: str | Path,
     *,
@@ -571,7 +655,8 @@ def train_run(
     """Train every slice-by-seed model of a run (and the control pair), reusing finished ones.
 
     Returns one row per model: ``group`` ('slice' or 'control'), ``label``, ``seed``, ``path``,
-    ``vocabulary`` (words kept), ``seconds`` (training time) and ``reused``.
+    ``vocabulary`` (words kept), ``seconds`` (training time), ``reused`` and ``threads`` (gensim
+    threads of that model; 1 means the vectors are reproducible from the seed).
     """
     import pandas as pd  # here, not at the top: pool workers import this module and need no pandas
 
@@ -603,76 +688,23 @@ def train_run(
     with runfolder.run_lock(paths.root):
         if not runfolder.stage_is_current(paths.root, "train", stage_params, inputs):
             runfolder.forget_stage(paths.root, "train")  # never leave a record of other models
-        control_record = current_control_slices(paths, pair, shuffle_seed) if pair else None
-        tasks = _model_tasks(paths, params, labels, control)
-        rows: dict[str, dict[str, Any]] = {}
-        pending = []
-        for task in tasks:
-            if task["group"] == "control" and control_record is None:
-                pending.append(task)  # the control slices are rewritten, so every model retrains
-                continue
-            task["fingerprint"] = model_fingerprint(task["model"], Path(task["corpus"]))
-            done = finished_model(Path(task["output"]), task["fingerprint"])
-            if done is None:
-                pending.append(task)
-            else:
-                rows[task["key"]] = _result_row(task, done, reused=True)
-        processes, threads = engines.plan_workers(len(pending), cores)
-        if remote:
-            processes, threads = 0, int(workers) if workers else 1
-        for task in pending:
+        plan = _plan_models(paths, params, labels, pair, shuffle_seed)
+        processes, threads = engines.plan_workers(len(plan.pending), cores)
+        if remote:  # the cluster decides the processes; --workers is gensim threads per model
+            processes, threads = 0, cores if workers else 1
+        for task in plan.pending:
             task["threads"] = threads
-
-        with progress_bars(quiet) as progress:
-            overall = progress.add_task("train: models", total=len(tasks), completed=len(rows))
-            bars = _TaskBars(progress, overall)
-            with ExitStack() as stack:
-                runner = None
-                if pending:  # connect first: an unreachable scheduler fails before any write
-                    runner = stack.enter_context(
-                        engines.open_engine(
-                            engine,
-                            processes=processes,
-                            scheduler=scheduler,
-                            on_event=None if quiet else bars.on_event,
-                            preload=POOL_PRELOAD,
-                        )
-                    )
-                if pair and control_record is None:
-                    progress.update(overall, description="train: pooling the control pair")
-                    control_record = build_control_slices(paths, pair, shuffle_seed)
-                    progress.update(overall, description="train: models")
-                for task in pending:
-                    if task["fingerprint"] is None:
-                        task["fingerprint"] = model_fingerprint(task["model"], Path(task["corpus"]))
-                # largest slices first, so that no long task starts last and runs alone
-                pending.sort(key=lambda task: -Path(task["corpus"]).stat().st_size)
-                by_key = {task["key"]: task for task in pending}
-                if runner is not None:
-                    for result in runner.run(train_one_model, pending):
-                        rows[result["key"]] = _result_row(by_key[result["key"]], result, False)
-                        bars.done(result["key"])
-
-        control_summary = None
-        if pair and control_record is not None:
-            control_summary = {
-                "between": pair,
-                "shuffle_seed": shuffle_seed,
-                "labels": list(CONTROL_LABELS),
-                "lines": control_record["lines"],
-                "tokens": control_record["tokens"],
-            }
-        execution = {
-            "engine": engine,
-            "scheduler": scheduler if remote else ("LocalCluster" if engine == "dask" else None),
-            "workers": cores,
-            "processes": processes,
-            "threads_per_model": threads,
-            "deterministic": threads == 1,
-        }
-        outputs = runfolder.fingerprint_params(
-            {key: runfolder.fingerprint_file(Path(row["path"])) for key, row in rows.items()}
+        _train_pending(
+            paths,
+            plan,
+            pair,
+            shuffle_seed,
+            engine=engine,
+            scheduler=scheduler,
+            processes=processes,
+            quiet=quiet,
         )
+        rows = [plan.rows[task["key"]] for task in plan.tasks]
         runfolder.record_stage(
             paths.root,
             "train",
@@ -680,15 +712,37 @@ def train_run(
             inputs,
             time.perf_counter() - started,
             extra={
-                "control": control_summary,
+                "control": _control_summary(pair, shuffle_seed, plan.control_record),
                 "labels": labels,
-                "execution": execution,
-                "outputs": outputs,
-                "models": {"total": len(tasks), "trained": len(pending)},
+                "execution": {
+                    "engine": engine,
+                    "scheduler": scheduler or ("LocalCluster" if engine == "dask" else None),
+                    "workers": None if remote else cores,
+                    "processes": processes,
+                    "threads_per_model": sorted({row["threads"] for row in rows}),
+                },
+                "outputs": runfolder.fingerprint_params(
+                    {row["path"]: runfolder.fingerprint_file(Path(row["path"])) for row in rows}
+                ),
+                "models": {"total": len(plan.tasks), "trained": len(plan.pending)},
             },
         )
-    ordered = [rows[task["key"]] for task in tasks]
-    return pd.DataFrame(ordered, columns=RESULT_COLUMNS)
+    return pd.DataFrame(rows, columns=RESULT_COLUMNS)
+
+
+def _control_summary(
+    pair: list[str] | None, shuffle_seed: int, record: dict[str, Any] | None
+) -> dict[str, Any] | None:
+    """What run.json says about the control pair (None with --no-control)."""
+    if not pair or record is None:
+        return None
+    return {
+        "between": pair,
+        "shuffle_seed": shuffle_seed,
+        "labels": list(CONTROL_LABELS),
+        "lines": record["lines"],
+        "tokens": record["tokens"],
+    }
 
 
 # ---------------------------------------------------------------------------- reading results

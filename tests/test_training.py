@@ -77,7 +77,7 @@ def test_run_json_records_every_value_used(trained):
         "between": ["2001", "2003"],
     }
     assert record["execution"]["engine"] == "local"
-    assert record["execution"]["threads_per_model"] == 1
+    assert record["execution"]["threads_per_model"] == [1]
     assert record["control"]["between"] == ["2001", "2003"]
     assert training.trained_seeds(root) == [0, 1]
     info = training.control_info(root)
