@@ -62,10 +62,23 @@ def _model_files(root):
 
 
 @pytest.mark.slow
-def test_a_dask_local_cluster_gives_the_same_models_as_the_local_engine(local_run, tmp_path):
+def test_a_dask_local_cluster_gives_the_same_models_as_the_local_engine(
+    local_run, tmp_path, monkeypatch
+):
+    finished_steps = {}
+    original = training._TaskBars.on_event
+
+    def record(self, key, completed, total):
+        finished_steps[key] = max(completed, finished_steps.get(key, 0))
+        original(self, key, completed, total)
+
+    monkeypatch.setattr(training._TaskBars, "on_event", record)
     dask_root = lee_run(tmp_path / "dask")
-    table = training.train_run(dask_root, **SMALL, workers=2, engine="dask")
+    table = training.train_run(dask_root, **{**SMALL, "quiet": False}, workers=2, engine="dask")
     assert not table["reused"].any()
+    # progress events travel from the Dask workers to this process (not necessarily all of
+    # them before the results, so only their arrival is checked)
+    assert finished_steps
     assert _model_files(dask_root) == _model_files(local_run)
     assert runfolder.read_manifest(dask_root)["stages"]["train"]["execution"]["engine"] == "dask"
     for relative in _model_files(local_run):

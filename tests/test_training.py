@@ -169,6 +169,22 @@ def test_same_seed_gives_identical_vectors_with_one_thread(trained, tmp_path):
     assert not np.allclose(seed0.vectors, seed1.vectors)
 
 
+def test_every_task_reports_its_progress_from_the_worker_processes(trained, tmp_path, monkeypatch):
+    root = copy_run(trained[0], tmp_path / "run")
+    seen: dict[str, tuple[int, int]] = {}
+    original = training._TaskBars.on_event
+
+    def record(self, key, completed, total):
+        seen[key] = (completed, total)
+        original(self, key, completed, total)
+
+    monkeypatch.setattr(training._TaskBars, "on_event", record)
+    table = training.train_run(root, **{**TINY, "epochs": 2, "workers": 2, "quiet": False})
+    keys = {f"{g}/{label}/seed-{k}" for g, label, k in table[["group", "label", "seed"]].values}
+    # one step for the vocabulary, then one per epoch, all reported from the pool workers
+    assert seen == {key: (3, 3) for key in keys}
+
+
 def test_stable_hash_is_the_same_in_every_process():
     # gensim's default hashfxn is Python's hash(), salted per process unless PYTHONHASHSEED is set
     code = "from drift.training import stable_hash; print(stable_hash('river'))"
