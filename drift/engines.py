@@ -310,7 +310,7 @@ class DaskEngine:
             for task in tasks
         ]
         try:
-            for future in distributed.as_completed(futures):
+            for future in distributed.as_completed(futures, loop=self.client.loop):
                 yield future.result()
         finally:
             self.client.cancel([f for f in futures if not f.done()])

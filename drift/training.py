@@ -550,6 +550,15 @@ class _TaskBars:
             self.progress.advance(self.overall)
 
 
+def remove_stale_temporaries(paths: RunPaths) -> int:
+    """Delete temporary files that a killed run left behind (call while holding the run lock)."""
+    patterns = ("models/*/.*.tmp", "control/*/.*.tmp")
+    stale = [path for pattern in patterns for path in paths.root.glob(pattern)]
+    for path in stale:
+        path.unlink(missing_ok=True)
+    return len(stale)
+
+
 @dataclass
 class _Plan:
     """What one call of train_run will do: every model, the finished ones, the ones to train."""
@@ -688,6 +697,7 @@ def train_run(
     with runfolder.run_lock(paths.root):
         if not runfolder.stage_is_current(paths.root, "train", stage_params, inputs):
             runfolder.forget_stage(paths.root, "train")  # never leave a record of other models
+        remove_stale_temporaries(paths)
         plan = _plan_models(paths, params, labels, pair, shuffle_seed)
         processes, threads = engines.plan_workers(len(plan.pending), cores)
         if remote:  # the cluster decides the processes; --workers is gensim threads per model

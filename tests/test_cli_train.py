@@ -156,6 +156,7 @@ def test_a_killed_run_resumes_without_retraining_finished_models(run):
     assert f"{len(done_before)} reused" in rerun.stdout
     done_after = _finished(run)
     assert len(done_after) == expected
+    assert not list(run.rglob("*.tmp")), "temporary files of the killed run are left"
     for model, mtime in done_before.items():
         assert done_after[model] == mtime, f"{model} was trained again"
     for label in ("2001", "2002", "2003"):

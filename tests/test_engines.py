@@ -92,11 +92,38 @@ def test_a_dask_local_cluster_gives_the_same_models_as_the_local_engine(
         assert np.array_equal(ours.vectors, theirs.vectors)
 
 
+@pytest.fixture(scope="module")
+def scheduler_address():
+    """A running Dask scheduler (an in-process LocalCluster), as a cluster would be given."""
+    distributed = pytest.importorskip("distributed")
+    with distributed.LocalCluster(
+        n_workers=1, threads_per_worker=2, processes=False, dashboard_address=None
+    ) as cluster:
+        yield cluster.scheduler_address
+
+
 @pytest.mark.slow
-def test_an_error_on_a_dask_worker_reaches_the_caller(local_run, tmp_path):
+def test_a_scheduler_address_runs_the_same_models(local_run, tmp_path, scheduler_address):
+    root = lee_run(tmp_path / "remote")
+    table = training.train_run(
+        root, **SMALL, control=False, engine="dask", scheduler=scheduler_address
+    )
+    assert (table["threads"] == 1).all()  # one gensim thread per model unless --workers says
+    execution = runfolder.read_manifest(root)["stages"]["train"]["execution"]
+    assert execution["scheduler"] == scheduler_address
+    for label in ("2001", "2002", "2003"):
+        ours = training.load_vectors(local_run, label, 1)
+        theirs = training.load_vectors(root, label, 1)
+        assert np.array_equal(ours.vectors, theirs.vectors)
+
+
+@pytest.mark.slow
+def test_an_error_on_a_dask_worker_reaches_the_caller(local_run, tmp_path, scheduler_address):
     root = copy_run(local_run, tmp_path / "run")
     with pytest.raises(DriftError, match="no word that occurs at least"):
-        training.train_run(root, **{**SMALL, "min_count": 10**6}, workers=2, engine="dask")
+        training.train_run(
+            root, **{**SMALL, "min_count": 10**6}, engine="dask", scheduler=scheduler_address
+        )
 
 
 def _closed_port() -> int:

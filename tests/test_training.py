@@ -153,6 +153,15 @@ def test_unchanged_models_are_reused_and_changed_ones_retrained(trained, tmp_pat
     assert runfolder.read_manifest(root)["stages"]["train"]["params"]["epochs"] == 2
 
 
+def test_temporary_files_of_a_killed_run_are_cleared(trained, tmp_path):
+    root = copy_run(trained[0], tmp_path / "run")
+    left = RunPaths(root).model_file("2001", 0).parent / ".seed-0.kv.x1y2.tmp"
+    left.write_bytes(b"half a model")
+    assert training.train_run(root, **TINY)["reused"].all()
+    assert not left.exists()
+    assert len(training.load_vectors(root, "2001", 0)) > 0
+
+
 def test_same_seed_gives_identical_vectors_with_one_thread(trained, tmp_path):
     root = copy_run(trained[0], tmp_path / "run")
     for path in RunPaths(root).models_dir.rglob("*"):
