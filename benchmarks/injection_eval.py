@@ -43,7 +43,8 @@ def parse_args() -> argparse.Namespace:
     parser.add_argument(
         "--repeats", type=int, default=1, help="protocol seeds (new words, new slices)"
     )
-    parser.add_argument("--epochs", type=int, default=10)
+    parser.add_argument("--first-repeat", type=int, default=0, help="protocol seed to start at")
+    parser.add_argument("--epochs", type=int, default=5)
     parser.add_argument("--dim", type=int, default=50)
     parser.add_argument("--min-count", type=int, default=20)
     parser.add_argument("--seeds", type=int, default=1, help="training seeds per slice")
@@ -66,7 +67,7 @@ def main() -> None:
           f"(gensim test data: Wikipedia dump + lee_background.cor)")
     workroot = Path(args.out or tempfile.mkdtemp(prefix="drift-injection-"))
     injected_tables, null_tables = [], []
-    for repeat in range(args.repeats):
+    for repeat in range(args.first_repeat, args.first_repeat + args.repeats):
         settings = ProtocolSettings(seed=repeat)
         archive = plan_archive(documents, settings)
         print(f"repeat {repeat}: pairs {archive.pairs} shares {archive.shares}; "

@@ -228,8 +228,13 @@ def test_injected_targets_come_first(injected_run):
     archive, scores, _ = injected_run
     strong = archive.targets_with_share_at_least(0.5)
     by_z = ranked_words(scores, "z")
-    assert recall_at(by_z, strong, 10) >= 0.8
-    assert average_precision(by_z, archive.targets) >= 0.4
+    # About 1,450 words are ranked, so a random order gives average precision near 0.006 and
+    # recall at 10 near 0.007. Measured for this protocol seed: recall at 10 of the six targets
+    # with share >= 0.5 is 5/6, average precision 0.62; over four protocol seeds the benchmark
+    # (benchmarks/injection_eval.py) measured 0.54 and 0.39 on average, so the bounds below leave
+    # room for small numeric differences between machines.
+    assert recall_at(by_z, strong, 10) >= 0.5
+    assert average_precision(by_z, archive.targets) >= 0.3
     # Every injected target moves more than the typical untouched word.
     untouched = scores[~scores["word"].isin(archive.targets + archive.donors)]
     median_z = untouched["z"].median()
