@@ -1,12 +1,55 @@
 """drift: find which words changed meaning across a dated text archive, when, and how.
 
 Each pipeline stage is a library function that reads the previous stage's files in a run folder
-and writes its own (see DEVELOPERS.md). The command line is a thin layer over these functions.
+and writes its own (see DEVELOPERS.md); the command line is a thin layer over these functions::
+
+    import drift
+    drift.slice_archive("archive.csv.gz", "runs/a", by="decade")   # -> slice summary DataFrame
+    drift.train_run("runs/a")                                       # -> one row per model
+    scores = drift.rank_run("runs/a")                               # -> scores DataFrame
+    drift.chart_word("runs/a", scores["word"][0])                   # -> path of the HTML page
+    drift.build_report("runs/a")                                    # -> path of the report
+
+or all at once with :func:`run_all`. Functions are imported lazily, so ``import drift`` is cheap.
 """
+
+from __future__ import annotations
+
+import importlib
+from typing import Any
 
 from drift.errors import DriftError
 from drift.runfolder import RunPaths, package_version
 
 __version__ = package_version()
 
-__all__ = ["DriftError", "RunPaths", "__version__"]
+#: Public name -> module that defines it.
+_API = {
+    "slice_archive": "drift.slicing",
+    "read_summary": "drift.slicing",
+    "read_counts": "drift.slicing",
+    "slice_labels": "drift.slicing",
+    "train_run": "drift.training",
+    "load_vectors": "drift.training",
+    "rank_run": "drift.ranking",
+    "read_scores": "drift.ranking",
+    "read_timeline": "drift.ranking",
+    "read_terms": "drift.ranking",
+    "neighbours_by_slice": "drift.ranking",
+    "export_vectors": "drift.ranking",
+    "example_sentences": "drift.evidence",
+    "word_figure_set": "drift.report",
+    "chart_word": "drift.report",
+    "build_report": "drift.report",
+    "run_all": "drift.pipeline",
+    "run_demo": "drift.pipeline",
+    "calibrate": "drift.calibration",
+}
+
+__all__ = ["DriftError", "RunPaths", "__version__", *_API]
+
+
+def __getattr__(name: str) -> Any:
+    if name in _API:
+        return getattr(importlib.import_module(_API[name]), name)
+    raise AttributeError(f"module 'drift' has no attribute {name!r}")

@@ -7,7 +7,7 @@ from collections.abc import Iterable
 
 
 class DriftError(Exception):
-    """Bad usage or bad input: the message is one plain sentence saying what is wrong and what to do.
+    """Bad usage or bad input: one plain sentence saying what is wrong and what to do.
 
     The command line prints it without a traceback and exits with code 2.
     """
@@ -18,7 +18,9 @@ def close_matches(word: str, known: Iterable[str], n: int = 5) -> list[str]:
     return difflib.get_close_matches(word, list(known), n=n, cutoff=0.6)
 
 
-def unknown_word_error(word: str, known: Iterable[str], where: str = "the vocabulary") -> DriftError:
+def unknown_word_error(
+    word: str, known: Iterable[str], where: str = "the vocabulary"
+) -> DriftError:
     """A DriftError for a word that is not in ``known``, suggesting the closest known words."""
     suggestions = close_matches(word, known)
     hint = f"; did you mean {', '.join(suggestions)}?" if suggestions else "; check the spelling."

@@ -396,6 +396,23 @@ def examples_html(examples: pd.DataFrame, word: str, labels: Sequence[str]) -> s
     return "\n".join(parts)
 
 
+def word_figure_set(run: Path, word: str, *, k: int = 10) -> dict[str, go.Figure]:
+    """The plotly figures of ``word``'s page (``timeline``, ``neighbours``, ``frequency``), for
+    use in a script or notebook: ``word_figure_set(run, "tablet")["timeline"].show()``."""
+    data = load_run(Path(run))
+    _check_word(data, word)
+    row = data.score_row(word)
+    return charts.word_figures(
+        data.word_timeline(word),
+        ranking.neighbours_by_slice(run, word, k=k),
+        word=word,
+        slices=data.labels,
+        reference=data.reference,
+        change_point=None if row is None else row.get("change_point"),
+        k=k,
+    )
+
+
 def word_page(
     data: RunData,
     word: str,
