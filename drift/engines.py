@@ -15,7 +15,7 @@ import logging
 import os
 import signal
 import threading
-from collections.abc import Callable, Iterable, Iterator
+from collections.abc import Callable, Iterator
 from typing import Any, Protocol
 
 from drift.errors import DriftError
@@ -145,6 +145,14 @@ class LocalEngine:
         self.on_event = on_event
         self.preload = tuple(preload)
         self.description = f"local, {self.processes} process{'es' if self.processes > 1 else ''}"
+        self.context = pool_context(self.preload) if self.processes > 1 else None
+
+    def warm_up(self) -> None:
+        """Start the fork server now, so that it imports ``preload`` while the caller works."""
+        if self.context is not None and self.context.get_start_method() == "forkserver":
+            from multiprocessing import forkserver
+
+            forkserver.ensure_running()
 
     def run(self, function: TaskFunction, tasks: list[dict[str, Any]]) -> Iterator[dict[str, Any]]:
         if not tasks:
@@ -165,7 +173,7 @@ class LocalEngine:
         from concurrent.futures import ProcessPoolExecutor, as_completed
         from concurrent.futures.process import BrokenProcessPool
 
-        context = pool_context(self.preload)
+        context = self.context or pool_context(self.preload)
         events = context.Queue() if self.on_event is not None else None
         drain = None
         if events is not None:
@@ -343,7 +351,9 @@ def open_engine(
     ``preload``: modules the local pool workers import before their first task.
     """
     if kind == "local":
-        yield LocalEngine(processes, on_event, preload)
+        engine = LocalEngine(processes, on_event, preload)
+        engine.warm_up()
+        yield engine
         return
     if kind != "dask":
         raise DriftError(f"Unknown engine '{kind}'; choose one of {', '.join(ENGINES)}.")
@@ -353,8 +363,3 @@ def open_engine(
         yield engine
     finally:
         engine.close()
-
-
-def run_all(engine: Engine, function: TaskFunction, tasks: Iterable[dict[str, Any]]) -> list[dict]:
-    """Run every task and return the results in the order they finished."""
-    return list(engine.run(function, list(tasks)))

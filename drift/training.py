@@ -17,6 +17,7 @@ import hashlib
 import json
 import mmap
 import re
+import threading
 import time
 from collections.abc import Callable
 from contextlib import ExitStack
@@ -526,8 +527,6 @@ class _TaskBars:
     """One progress bar per running task plus the overall bar; safe to call from any thread."""
 
     def __init__(self, progress: Any, overall: Any) -> None:
-        import threading
-
         self.progress, self.overall = progress, overall
         self.bars: dict[str, Any] = {}
         self.finished: set[str] = set()
@@ -637,6 +636,8 @@ def _train_pending(
         plan.pending.sort(key=lambda task: -Path(task["corpus"]).stat().st_size)
         by_key = {task["key"]: task for task in plan.pending}
         if runner is not None:
+            # run.json records library versions; import them while the workers train
+            threading.Thread(target=runfolder.library_versions, daemon=True).start()
             for result in runner.run(train_one_model, plan.pending):
                 plan.rows[result["key"]] = _result_row(by_key[result["key"]], result, False)
                 bars.done(result["key"])
