@@ -4,7 +4,11 @@ Pellmarrow, its streets, its people and every sentence below are made up. The ar
 gazette articles, council minutes and letters to the editor dated 1950-2009 (about 15,000 word
 tokens a year, so about 150,000 a decade). Each document is mostly about one topic (the harbour,
 the weather, the market, the council, the theatre, the railway, ...); its sentences come from a
-few templates whose slots are filled from that topic's Zipf-distributed word lists.
+few templates whose slots are filled from that topic's Zipf-distributed word lists. Words that
+every topic would share are pinned down instead: each topic has its own place in town, day and
+month names occur only in the fixed last line of council minutes, and the letter writers' words
+for themselves only in the fixed first line of a letter (a rare word met beside every topic's
+words gets a vector that wanders with the mix of topics, and would look like a change of meaning).
 
 Planted on top, listed in planted.csv:
   shift      a word that moves from one topic's contexts to another's at its onset year,
@@ -245,18 +249,19 @@ TOPICS: tuple[Topic, ...] = (
 TIME_NOUNS = _words(
     "week month year season summer winter spring autumn morning evening night day"
 )
-GENERAL_NOUNS = _words(
-    "town borough district matter question meeting people news visitor resident family "
-    "neighbour friend report notice editor"
-)
+#: Who a letter writer says they are, in the letter's fixed opening line ("sir as a resident of
+#: this town ..."): the only place these words occur, so their contexts never follow the topic.
+GENERAL_NOUNS = _words("resident neighbour reader visitor householder")
 GENERAL_VERBS = _words(
     "mentioned noticed discussed praised criticised welcomed remembered visited "
     "inspected improved checked opened closed"
 )
 GENERAL_ADJECTIVES = _words("new old small large fine poor busy early local young great good")
-DAYS = _words(
-    "monday tuesday wednesday thursday friday saturday sunday january february march april "
-    "may june july august september october november december"
+#: Day and month names occur only in the fixed last sentence of council minutes ("the next
+#: meeting will be held on the first tuesday of march"), never beside a topic's words.
+WEEKDAYS = _words("monday tuesday wednesday thursday friday")
+MONTHS = _words(
+    "january february march april may june july august september october november december"
 )
 TITLES = _words("mr mrs miss alderman councillor captain doctor reverend")
 SURNAMES = _words(
@@ -264,11 +269,16 @@ SURNAMES = _words(
     "marrable nettleby ormsey pellow quillet rusking sarrow tavistan umberlay vossick "
     "wenlow yarrowby abbotrey"
 )
-PLACES = (
-    "tallowgate", "kelp lane", "fisher row", "gullstone point", "oss bridge", "brine street",
-    "marrow hill", "the saltings", "copperhythe", "windle green", "pellmarrow", "pellmarrow",
-    "the old ropewalk", "lanterns end",
-)
+#: Each topic's own part of town: a document names only the place of its main topic (a letter
+#: writer signs from there too), so a place's words keep one topic's contexts.
+PLACE_OF_TOPIC = {
+    "harbour": "fisher row", "weather": "gullstone point", "market": "brine street",
+    "council": "tallowgate", "theatre": "lanterns end", "railway": "oss bridge",
+    "school": "marrow hill", "church": "windle green", "farming": "the saltings",
+    "health": "copperhythe", "signals": "kelp lane", "shipyard": "the ropewalk",
+    "sport": "harrowfield",
+}
+PLACES = tuple(PLACE_OF_TOPIC.values())
 #: Letter writers sign with one of many invented surnames, each used only a few times.
 LETTER_SIGNATURES = tuple(
     head + tail
@@ -287,30 +297,30 @@ COMMITTEE_OF_TOPIC = {
 TOPIC_BY_NAME = {t.name: t for t in TOPICS}
 
 # --------------------------------------------------------------------------------------------
-# Sentence templates. Slots: {N} topic noun, {V} verb, {A} adjective, {G} general noun, {T} a time,
-# {P} a person, {L} a place, {D} a day or month. "a" becomes "an" before a vowel.
+# Sentence templates. Slots: {N} topic noun, {V} verb, {A} adjective, {T} a time, {P} a person,
+# {L} the topic's place. "a" becomes "an" before a vowel. The fixed opening and closing lines of
+# minutes and letters (make_document) carry the general nouns, day and month names.
 # --------------------------------------------------------------------------------------------
 
 GAZETTE_TEMPLATES = (
-    "the {A} {N} and the {N} were {V} at the {N} on {D}",
+    "the {A} {N} and the {N} were {V} at the {N} this {T}",
     "{P} said the {N} and the {A} {N} had been {V} near the {N}",
     "a {A} {N} {V} the {N} by the {N} and the {N}",
-    "there was talk of the {N} the {N} and the {N} in the {G}",
+    "there was talk in the town of the {N} the {N} and the {N}",
     "the {N} {V} the {A} {N} after the {N} of the {N}",
     "it is hoped that the {N} and the {N} will be {V} before the {T} is out",
     "members of the {N} {V} the {N} with a {A} {N} and a {N}",
-    "we are told that the {A} {N} and the {N} were {V} last {D}",
+    "we are told that the {A} {N} and the {N} were {V} last {T}",
     "this {T} the {N} of the {N} was {V} by {P}",
     "the {N} at {L} is {A} and the {N} is {A}",
     "{P} {V} the {N} and the {N} for the {N}",
-    "on {D} the {N} was {A} and the {N} {V} the {N}",
+    "that {T} the {N} was {A} and the {N} {V} the {N}",
     "nobody {V} the {N} or the {N} so well as {P}",
     "the {N} of the {N} has not been {V} since the {T}",
     "a {N} a {N} and a {A} {N} were {V} near the {N}",
     "as the {N} was {V} the {A} {N} {V} the {N}",
     "the {A} {N} and the {N} are still the pride of {L}",
     "readers will recall the {N} that {V} the {N} and the {N} last {T}",
-    "the {G} {V} the {A} {N} and the {N}",
     "the {N} {N} was {V} and the {N} {N} {V} the {N}",
     "at {L} the {N} {N} {V} the {A} {N} {N}",
     "the {N} {N} and the {N} {N} are {A} this {T}",
@@ -330,7 +340,7 @@ MINUTES_TEMPLATES = (
     "{P} reported on the {A} {N} and the {N}",
     "resolved that the {N} be {V} and the {N} {V}",
     "the clerk read a letter about the {N} the {N} and the {N}",
-    "it was agreed that the {A} {N} be {V} by the {G}",
+    "it was agreed that the {A} {N} be {V} by the committee",
     "{P} asked whether the {N} had been {V} at the {N}",
     "the {N} {N} was {V} and the {N} {N} {V}",
 )
@@ -373,7 +383,7 @@ PLANTED: tuple[Plant, ...] = (
           "The rowing gig of the harbour becomes a gig played by a band."),
     Plant("mouse", "shift", 1990, "farming", "signals", SHIFT_RATE, SHIFT_RATE, 2,
           "The barn mouse becomes the mouse beside the keyboard."),
-    Plant("tablet", "shift", 2000, "health", "school", SHIFT_RATE, SHIFT_RATE, 2,
+    Plant("tablet", "shift", 1995, "health", "school", SHIFT_RATE, SHIFT_RATE, 2,
           "A tablet from the chemist becomes a tablet in the classroom."),
     Plant("herring", "frequency", 1960, "harbour", "harbour", 36.0, 5.4, 10,
           "Herring stays a harbour word but falls about sevenfold as the shoals fail."),
@@ -475,7 +485,6 @@ class Sampler:
         self.adj_cum = {
             t.name: zipf_cumulative(len(t.adjectives), self.OTHER_EXPONENT) for t in TOPICS
         }
-        self.general_noun_cum = zipf_cumulative(len(GENERAL_NOUNS), self.OTHER_EXPONENT)
         self.time_noun_cum = zipf_cumulative(len(TIME_NOUNS), self.OTHER_EXPONENT)
         self.general_verb_cum = zipf_cumulative(len(GENERAL_VERBS), self.OTHER_EXPONENT)
         self.general_adj_cum = zipf_cumulative(len(GENERAL_ADJECTIVES), self.OTHER_EXPONENT)
@@ -521,16 +530,12 @@ class Sampler:
                     out.append(self.pick(topic.adjectives, self.adj_cum[topic.name]))
                 else:
                     out.append(self.pick(GENERAL_ADJECTIVES, self.general_adj_cum))
-            elif kind == "G":
-                out.append(self.pick(GENERAL_NOUNS, self.general_noun_cum))
             elif kind == "T":
                 out.append(self.pick(TIME_NOUNS, self.time_noun_cum))
             elif kind == "P":
                 out.extend(self.person().split())
             elif kind == "L":
-                out.extend(PLACES[self.draws.below(len(PLACES))].split())
-            elif kind == "D":
-                out.append(DAYS[self.draws.below(len(DAYS))])
+                out.extend(PLACE_OF_TOPIC[main].split())
             else:
                 raise ValueError(f"unknown slot {piece} in template {template!r}")
         return out
@@ -567,15 +572,22 @@ def make_document(sampler: Sampler, year: int, main: str) -> Document:
         doc.sentences += [opening, present]
         length += len(opening) + len(present)
     elif source == "letter":
-        doc.sentences.append(["sir"])
-        length += 1
+        who = GENERAL_NOUNS[draws.below(len(GENERAL_NOUNS))]
+        opening = f"i write as a {who} of this town of many years standing".split()
+        doc.sentences += [["sir"], opening]
+        length += 1 + len(opening)
     while length < target:
         sentence = sampler.fill(templates[draws.below(len(templates))], main, second)
         doc.sentences.append(sentence)
         length += len(sentence)
+    if source == "minutes":
+        weekday = WEEKDAYS[draws.below(len(WEEKDAYS))]
+        month = MONTHS[draws.below(len(MONTHS))]
+        doc.sentences.append(
+            f"the next meeting will be held on the first {weekday} of {month}".split())
     if source == "letter":
         closing = ["yours", "faithfully", LETTER_SIGNATURES[draws.below(len(LETTER_SIGNATURES))]]
-        closing += PLACES[draws.below(len(PLACES))].split()
+        closing += PLACE_OF_TOPIC[main].split()
         doc.sentences.append(closing)
     return doc
 
@@ -683,7 +695,8 @@ def plant_words(draws: Uniforms, docs: list[Document], year: int) -> None:
 PROPER = (
     set(SURNAMES)
     | set(LETTER_SIGNATURES)
-    | set(DAYS)
+    | set(WEEKDAYS)
+    | set(MONTHS)
     | {w for place in PLACES for w in place.split() if w != "the"}
 )
 TITLE_CASE = {"mr": "Mr", "mrs": "Mrs", "miss": "Miss", "alderman": "Alderman",
@@ -825,7 +838,9 @@ def topic_vocabulary() -> dict[str, tuple[str, ...]]:
     lists["time.nouns"] = TIME_NOUNS
     lists["general.verbs"] = GENERAL_VERBS
     lists["general.adjectives"] = GENERAL_ADJECTIVES
-    lists["days"] = DAYS
+    lists["weekdays"] = WEEKDAYS
+    lists["months"] = MONTHS
+    lists["places"] = tuple(w for place in PLACES for w in place.split() if w != "the")
     lists["titles"] = TITLES
     lists["surnames"] = SURNAMES
     lists["letter signatures"] = LETTER_SIGNATURES

@@ -235,6 +235,53 @@ def test_fading_words_are_absent_five_years_after_their_onset(planted, yearly_co
         assert count_in(yearly_counts, word, earlier) / len(earlier) >= 10, word
 
 
+# ---------------------------------------------------------------------------------------------
+# Words that every topic shares stay out of the topics' contexts
+# ---------------------------------------------------------------------------------------------
+
+MINUTES_CLOSING = re.compile(r" The next meeting will be held on the first (\w+) of (\w+)\.$")
+LETTER_OPENING = re.compile(r"^Sir, I write as an? (\w+) of this town of many years standing\. ")
+
+
+def test_day_and_month_names_occur_only_in_the_closing_line_of_minutes(generator, committed_csv):
+    """A rare word used beside every topic's words gets a noisy vector; these stay in one phrase."""
+    weekdays, months = set(generator.WEEKDAYS), set(generator.MONTHS)
+    closings = Counter()
+    for row in csv.DictReader(io.StringIO(committed_csv.decode("utf-8"))):
+        found = MINUTES_CLOSING.search(row["text"])
+        assert (found is not None) == (row["source"] == "minutes"), row["id"]
+        text = row["text"]
+        if found:
+            assert found[1].lower() in weekdays and found[2].lower() in months, found[0]
+            closings.update([found[1].lower(), found[2].lower()])
+            text = text[:found.start()]
+        rest = WORD.findall(text.lower())
+        assert not weekdays & set(rest), row["id"]
+        # "may" is also the verb of a letter template ("May I ask why ...")
+        assert not (months - {"may"}) & set(rest), row["id"]
+    assert set(closings) == weekdays | months
+
+
+def test_general_nouns_occur_only_in_the_opening_line_of_letters(generator, committed_csv):
+    general = set(generator.GENERAL_NOUNS)
+    for row in csv.DictReader(io.StringIO(committed_csv.decode("utf-8"))):
+        found = LETTER_OPENING.search(row["text"])
+        assert (found is not None) == (row["source"] == "letter"), row["id"]
+        text = row["text"]
+        if found:
+            assert found[1] in general, found[0]
+            text = text[found.end():]
+        assert not general & set(WORD.findall(text.lower())), row["id"]
+
+
+def test_each_place_is_named_among_its_own_topics_words(generator, documents):
+    vocabularies = {name: topic_words(generator, name) for name in generator.TOPIC_BY_NAME}
+    for topic, place in generator.PLACE_OF_TOPIC.items():
+        word = place.split()[-1]
+        hits = context_hits(documents, word, range(FIRST_YEAR, LAST_YEAR + 1), vocabularies)
+        assert share_of(hits, topic) > 0.9, (place, hits.most_common(3))
+
+
 def test_words_that_were_not_planted_keep_their_frequency(planted, yearly_counts):
     first = sum((yearly_counts[y] for y in range(1950, 1960)), Counter())
     last = sum((yearly_counts[y] for y in range(2000, 2010)), Counter())
