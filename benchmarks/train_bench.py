@@ -169,6 +169,12 @@ def main() -> None:
           "(target at least 1.7 on 2 cores)")  # fmt: skip
     print(f"bare 1 thread / {cores} threads wall time: {wall['bare-1'] / wall['bare']:.2f} "
           "(what this machine gives gensim itself)")  # fmt: skip
+    print("per round (the load from other work changes between rounds):")
+    for round_ in range(args.rounds):
+        w = {name: values[round_][0] for name, values in times.items()}
+        print(f"  round {round_ + 1}: drift/bare {w['drift'] / w['bare']:.2f}, "
+              f"drift 1 core/{cores} cores {w['drift-1'] / w['drift']:.2f}, "
+              f"bare 1 thread/{cores} threads {w['bare-1'] / w['bare']:.2f}")  # fmt: skip
 
 
 if __name__ == "__main__":
