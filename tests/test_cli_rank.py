@@ -175,10 +175,10 @@ def test_scores_table_compact_on_narrow_screens(run):
     params = rank_record(run)["params"]
     wide, narrow = scores_table(rows, params, True, 160), scores_table(rows, params, True, 80)
     assert [str(c.header) for c in wide.columns] == [
-        "#", "word", "displ.", "turnover", "local", "q", "count", "change", "gained", "lost",
+        "#", "word", "displ.", "turnover", "local", "z", "q", "count", "change", "gained", "lost",
     ]
     assert [str(c.header) for c in narrow.columns] == [
-        "#", "word", "displ.", "q", "count", "change", "gained",
+        "#", "word", "displ.", "z", "q", "count", "change", "gained",
     ]
     console = Console(width=80, record=True)
     console.print(narrow)

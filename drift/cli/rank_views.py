@@ -56,7 +56,12 @@ def scores_table(
     first, last = params.get("between", ["?", "?"])
     measure = params.get("measure", "score")
     table = Table(
-        title=f"Words that changed most from {first} to {last} (ranked by {measure})",
+        title=(
+            f"Words that changed most from {first} to {last} "
+            f"(ranked by z: {measure} beyond what frequency explains)"
+            if calibrated
+            else f"Words that changed most from {first} to {last} (ranked by {measure})"
+        ),
         caption=(
             f"q: Benjamini-Hochberg q against the control null; * significant at alpha "
             f"{params.get('alpha', 0.05)}. change: first slice after the change point "
@@ -74,6 +79,7 @@ def scores_table(
     lists = ["gained"] if compact else ["gained", "lost"]
     short = {"displacement": "displ.", "combined": "comb."}
     columns = [("#", "right"), ("word", "left")] + [(m, "right") for m in measures]
+    columns += [("z", "right")] if calibrated else []
     columns += [("q", "right"), ("count", "right"), ("change", "left")]
     for name, justify in columns:
         header = Text(short.get(name, name), style="bold underline" if name == measure else "bold")
@@ -86,6 +92,7 @@ def scores_table(
             Text(str(row.rank)),
             Text(str(row.word)),
             *(Text(_number(values["score" if m == measure else m])) for m in measures),
+            *([Text(_number(row.z, 1))] if calibrated else []),
             _q_cell(row),
             Text(f"{row.count_from}>{row.count_to}"),
             _change_cell(row),
