@@ -7,7 +7,10 @@ import sys
 from dataclasses import dataclass
 from pathlib import Path
 
+import pandas as pd
 import pytest
+
+from drift.pipeline import DEMO_DIR
 
 
 @dataclass(frozen=True)
@@ -31,3 +34,12 @@ def demo_run(tmp_path_factory: pytest.TempPathFactory) -> DemoRun:
     )
     assert done.returncode == 0, done.stderr
     return DemoRun(out, done.stdout, done.stderr)
+
+
+@pytest.fixture(scope="session")
+def small_demo_archive(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """Every fourth document of the demo archive, gzip-compressed: small enough for tiny models."""
+    frame = pd.read_csv(DEMO_DIR / "archive.csv.gz")
+    path = tmp_path_factory.mktemp("small") / "small.csv.gz"
+    frame.iloc[::4].to_csv(path, index=False)
+    return path

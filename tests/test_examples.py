@@ -6,21 +6,9 @@ import subprocess
 import sys
 from pathlib import Path
 
-import pandas as pd
 import pytest
 
-from drift.pipeline import DEMO_DIR
-
 EXAMPLES = sorted((Path(__file__).resolve().parent.parent / "notebooks_free_examples").glob("*.py"))
-
-
-@pytest.fixture(scope="module")
-def small_archive(tmp_path_factory) -> Path:
-    """Every fourth document of the demo archive."""
-    frame = pd.read_csv(DEMO_DIR / "archive.csv.gz")
-    path = tmp_path_factory.mktemp("examples") / "small.csv.gz"
-    frame.iloc[::4].to_csv(path, index=False)
-    return path
 
 
 def test_there_are_four_examples():
@@ -28,9 +16,9 @@ def test_there_are_four_examples():
 
 
 @pytest.mark.parametrize("script", EXAMPLES, ids=lambda p: p.stem)
-def test_example_runs(script, small_archive, tmp_path):
+def test_example_runs(script, small_demo_archive, tmp_path):
     done = subprocess.run(
-        [sys.executable, str(script), "--archive", str(small_archive), "--out",
+        [sys.executable, str(script), "--archive", str(small_demo_archive), "--out",
          str(tmp_path / "out"), "--quick"],
         capture_output=True, text=True, timeout=600,
     )

@@ -11,10 +11,6 @@ from __future__ import annotations
 import json
 import subprocess
 import sys
-from pathlib import Path
-
-import pandas as pd
-import pytest
 
 from drift.pipeline import DEMO_DIR, planted_words, run_all
 from drift.ranking import read_scores, read_terms
@@ -87,18 +83,9 @@ def test_a_rerun_reuses_every_finished_stage(demo_run):
     assert models["reused"].all()
 
 
-@pytest.fixture(scope="module")
-def small_archive(tmp_path_factory) -> Path:
-    """Every fifth document of the demo archive: small enough for tiny models."""
-    frame = pd.read_csv(DEMO_DIR / "archive.csv.gz")
-    path = tmp_path_factory.mktemp("small") / "small.csv"
-    frame.iloc[::5].to_csv(path, index=False)
-    return path
-
-
-def test_drift_run_goes_from_a_csv_to_a_report(small_archive, tmp_path):
+def test_drift_run_goes_from_a_csv_to_a_report(small_demo_archive, tmp_path):
     out = tmp_path / "run"
-    command = [sys.executable, "-m", "drift", "run", str(small_archive), "--out", str(out),
+    command = [sys.executable, "-m", "drift", "run", str(small_demo_archive), "--out", str(out),
                "--by", "decade", "--dim", "16", "--epochs", "1", "--seeds", "1",
                "--min-count", "5", "--top", "3", "--quiet"]
     done = subprocess.run(command, capture_output=True, text=True, timeout=600)
@@ -125,9 +112,9 @@ def test_drift_run_with_a_missing_source_exits_2(tmp_path):
     assert "nope.csv" in done.stderr
 
 
-def test_run_all_returns_the_tables_of_every_stage(small_archive, tmp_path):
+def test_run_all_returns_the_tables_of_every_stage(small_demo_archive, tmp_path):
     result = run_all(
-        small_archive, tmp_path / "run", slice_options={"by": "decade"},
+        small_demo_archive, tmp_path / "run", slice_options={"by": "decade"},
         train_options={"dim": 16, "epochs": 1, "seeds": 1, "min_count": 5}, report_top=2,
         quiet=True,
     )
