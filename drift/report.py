@@ -593,6 +593,11 @@ def report_page(data: RunData, links: dict[str, str], top: int) -> str:
         parts.append(figure_html(terms, "fig-terms"))
     terms_fig = parts[1].html if len(parts) > 1 else ""
     tokens = int(data.summary["tokens"].sum()) if "tokens" in data.summary else 0
+    order_note = (
+        "by z, how far each word moved beyond what words of its frequency move in the control"
+        if data.scores["z"].notna().any()
+        else "by score (no control in this run)"
+    )
     body = f"""
 <p class="muted">drift · overview report</p>
 <h1>{esc(data.root.name)}</h1>
@@ -600,8 +605,8 @@ def report_page(data: RunData, links: dict[str, str], top: int) -> str:
 {esc(a)} and {esc(b)}; {len(data.scores):,} words were measured in both.</p>
 {caution_html()}
 <h2 id="ranked">Most shifted words</h2>
-<p class="muted">The top {len(ranked)} by score; each word links to its page with timeline,
-neighbours and example sentences.</p>
+<p class="muted">The top {len(ranked)} {order_note}; each word links to its page with
+timeline, neighbours and example sentences.</p>
 {ranked_table_html(ranked, links, data.rank_params.get("measure"))}
 <h2 id="scatter">Change against frequency</h2>
 <p class="muted">Rare words move more by chance. The line is the control's typical displacement at
