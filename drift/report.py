@@ -396,21 +396,28 @@ def examples_html(examples: pd.DataFrame, word: str, labels: Sequence[str]) -> s
     return "\n".join(parts)
 
 
-def word_figure_set(run: Path, word: str, *, k: int = 10) -> dict[str, go.Figure]:
-    """The plotly figures of ``word``'s page (``timeline``, ``neighbours``, ``frequency``), for
-    use in a script or notebook: ``word_figure_set(run, "tablet")["timeline"].show()``."""
-    data = load_run(Path(run))
-    _check_word(data, word)
+def run_word_figures(
+    data: RunData, word: str, neighbours: pd.DataFrame, *, k: int = 10
+) -> dict[str, go.Figure]:
+    """The three figures of ``word`` from a loaded run and its neighbours per slice."""
     row = data.score_row(word)
     return charts.word_figures(
         data.word_timeline(word),
-        ranking.neighbours_by_slice(run, word, k=k),
+        neighbours,
         word=word,
         slices=data.labels,
         reference=data.reference,
         change_point=None if row is None else row.get("change_point"),
         k=k,
     )
+
+
+def word_figure_set(run: Path, word: str, *, k: int = 10) -> dict[str, go.Figure]:
+    """The plotly figures of ``word``'s page (``timeline``, ``neighbours``, ``frequency``), for
+    use in a script or notebook: ``word_figure_set(run, "tablet")["timeline"].show()``."""
+    data = load_run(Path(run))
+    _check_word(data, word)
+    return run_word_figures(data, word, ranking.neighbours_by_slice(run, word, k=k), k=k)
 
 
 def word_page(
@@ -424,15 +431,7 @@ def word_page(
 ) -> str:
     """The whole HTML page of one word; ``neighbours`` holds its top ``k`` per slice."""
     row = data.score_row(word)
-    figures = charts.word_figures(
-        data.word_timeline(word),
-        neighbours,
-        word=word,
-        slices=data.labels,
-        reference=data.reference,
-        change_point=None if row is None else row.get("change_point"),
-        k=k,
-    )
+    figures = run_word_figures(data, word, neighbours, k=k)
     parts = {name: figure_html(fig, f"fig-{name}") for name, fig in figures.items()}
     nav = '<nav><a href="../index.html">← overview report</a></nav>' if report_link else ""
     body = f"""
