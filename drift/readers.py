@@ -3,8 +3,12 @@
 A reader yields :class:`DocBatch` objects (a few MB of documents each: raw time values and texts)
 and never holds the whole archive in memory. Compression (gzip, bzip2, xz) is recognised from the
 file's first bytes; the table format from the extension, or from ``fmt``. Text is decoded as
-UTF-8; undecodable bytes are replaced by U+FFFD and counted (:attr:`Reader.replaced`), never fatal.
-A truncated or damaged compressed file is a :class:`~drift.errors.DriftError`.
+UTF-8 unless ``encoding`` names another codec. A file that is not UTF-8 and holds no valid UTF-8
+beyond ASCII is read as cp1252 (Windows Western European, a superset of Latin-1 for text), and the
+characters read that way are counted (:attr:`Reader.legacy`). Bytes that still do not decode are
+replaced by U+FFFD and counted (:attr:`Reader.replaced`), never fatal. A truncated or damaged
+compressed file, a binary file and a column that holds no text are a
+:class:`~drift.errors.DriftError`.
 """
 
 from __future__ import annotations
@@ -53,6 +57,59 @@ _COMPRESSION_SUFFIXES = {".gz": "gzip", ".gzip": "gzip", ".bz2": "bzip2", ".xz":
 _MAGIC = ((b"\x1f\x8b", "gzip"), (b"BZh", "bzip2"), (b"\xfd7zXZ\x00", "xz"))
 _TEXT_FILE_RE = re.compile(r"\.txt(\.(gz|bz2|xz))?$", re.IGNORECASE)
 _DAMAGED = (EOFError, OSError, zlib.error, lzma.LZMAError)
+#: The codec tried when a file is not UTF-8 (cp1252 decodes Latin-1 text the same, except for
+#: the C1 control range 0x80-0x9F, where it holds curly quotes and dashes that archives use).
+LEGACY_ENCODING = "cp1252"
+_UTF8_NAMES = {"utf-8", "utf8", "utf_8", "u8", "utf-8-sig", "utf_8_sig"}
+_DELIMITER_NAMES = {"tab": "\t", "\\t": "\t", "comma": ",", "semicolon": ";", "pipe": "|"}
+
+
+def _latin1_fallback(error: UnicodeDecodeError) -> tuple[str, int]:
+    """The five bytes cp1252 leaves undefined read as Latin-1 (never a failure)."""
+    return error.object[error.start : error.end].decode("latin-1"), error.end
+
+
+codecs.register_error("drift-latin1", _latin1_fallback)
+
+
+def printable(text: str, limit: int = 160) -> str:
+    """``text`` safe to print in one line: control, unprintable and replaced characters escaped
+    (``\\x00``, ``\\ufffd``), cut to ``limit`` characters."""
+    out = []
+    for char in text:
+        if char == "\ufffd" or (not char.isprintable() and char != " "):
+            code = ord(char)
+            out.append(f"\\x{code:02x}" if code < 0x100 else f"\\u{code:04x}")
+        else:
+            out.append(char)
+    shown = "".join(out)
+    return shown if len(shown) <= limit else shown[: limit - 3] + "..."
+
+
+def check_encoding(encoding: str | None) -> str | None:
+    """The codec name to use (None: UTF-8 with detection), or a DriftError for an unknown one."""
+    if encoding is None or not str(encoding).strip():
+        return None
+    try:
+        name = codecs.lookup(str(encoding).strip()).name
+    except LookupError:
+        raise DriftError(
+            f"--encoding {printable(str(encoding))} is not a known text encoding; use e.g. "
+            "utf-8, cp1252, latin-1 or utf-16."
+        ) from None
+    return "utf-8" if name in _UTF8_NAMES else name
+
+
+def check_delimiter(delimiter: str | None) -> str | None:
+    """The one-character field delimiter (``tab``, ``\\t``, ``;``, ``|``, ...) or None."""
+    if delimiter is None:
+        return None
+    value = _DELIMITER_NAMES.get(delimiter.strip().lower(), delimiter)
+    if len(value) != 1 or value in ('"', "\n", "\r"):
+        raise DriftError(
+            f"--delimiter {printable(delimiter)!r} must be one character, such as ';', '|' or tab."
+        )
+    return value
 
 
 #: Largest CSV block tried when rows are very long (pyarrow keeps each row inside one block).
@@ -149,12 +206,16 @@ class _CountingFile(io.RawIOBase):
 
 
 class _Utf8Stream(io.RawIOBase):
-    """Valid UTF-8 bytes from a (possibly compressed) file: bad bytes become U+FFFD and are counted.
+    """Valid UTF-8 bytes from a (possibly compressed) file in any encoding.
 
-    Damaged or truncated compressed data raises DriftError (also when read from inside pyarrow).
+    ``encoding`` None: UTF-8, except that a file whose first undecodable chunk comes before any
+    valid non-ASCII UTF-8 is read as :data:`LEGACY_ENCODING` from there on (``legacy`` counts
+    the non-ASCII characters read so); a UTF-16 byte order mark selects UTF-16. Bytes that do not
+    decode become U+FFFD and are counted (``replaced``). Damaged or truncated compressed data
+    raises DriftError (also when read from inside pyarrow).
     """
 
-    def __init__(self, path: Path, compression: str | None):
+    def __init__(self, path: Path, compression: str | None, encoding: str | None = None):
         self.path = path
         self.compression = compression
         self.counter = _CountingFile(path)
@@ -166,12 +227,22 @@ class _Utf8Stream(io.RawIOBase):
             self._source = lzma.LZMAFile(self.counter, mode="rb")
         else:
             self._source = io.BufferedReader(self.counter, 1 << 20)
+        self.encoding = encoding
+        self._detect = encoding is None
+        self._decoder = None if encoding in (None, "utf-8") else self._decoder_for(encoding)
         self._tail = b""
         self._pending = memoryview(b"")
         self._at_start = True
         self._done = False
+        self._saw_utf8 = False  # valid non-ASCII UTF-8 seen: the file is UTF-8 after all
         self.replaced = 0
+        self.legacy = 0
         self.failure: DriftError | None = None
+
+    @staticmethod
+    def _decoder_for(encoding: str):
+        errors = "drift-latin1" if encoding == LEGACY_ENCODING else "replace"
+        return codecs.getincrementaldecoder(encoding)(errors=errors)
 
     def readable(self) -> bool:
         return True
@@ -183,25 +254,55 @@ class _Utf8Stream(io.RawIOBase):
             kind = self.compression or "data"
             detail = str(exc) or exc.__class__.__name__
             self.failure = DriftError(
-                f"{self.path} is truncated or damaged ({kind}: {detail}); copy the file again "
-                "or decompress it to see where it breaks."
+                f"{self.path} is truncated or damaged ({kind}: {printable(detail)}); copy the "
+                "file again or decompress it to see where it breaks."
             )
             raise self.failure from None
 
+    def _decode_utf8(self, data: bytes, final: bool) -> tuple[bytes, int]:
+        """Pass valid UTF-8 through as it is; on bad bytes switch to the legacy codec (when
+        detecting and no valid non-ASCII UTF-8 came first) or replace them (counted)."""
+        try:
+            _, used = codecs.utf_8_decode(data, "strict", final)
+            chunk = data[:used]
+            if not self._saw_utf8 and not chunk.isascii():
+                self._saw_utf8 = True
+            return chunk, used
+        except UnicodeDecodeError:
+            pass
+        text, used = codecs.utf_8_decode(data, "replace", final)
+        genuine = data[:used].count(b"\xef\xbf\xbd")
+        bad = text.count("\ufffd") - genuine
+        valid_non_ascii = sum(1 for c in text if c >= "\x80") - bad
+        if self._detect and not self._saw_utf8 and valid_non_ascii == 0:
+            self.encoding = LEGACY_ENCODING
+            self._decoder = self._decoder_for(LEGACY_ENCODING)
+            return self._decode_other(data, final), len(data)
+        self._saw_utf8 = self._saw_utf8 or valid_non_ascii > 0
+        self.replaced += bad
+        return text.encode("utf-8"), used
+
+    def _decode_other(self, data: bytes, final: bool) -> bytes:
+        text = self._decoder.decode(data, final)
+        if self.encoding == LEGACY_ENCODING:
+            self.legacy += sum(1 for c in text if c >= "\x80")
+        else:
+            self.replaced += text.count("\ufffd")
+        return text.encode("utf-8")
+
     def _fill(self, size: int) -> None:
-        """Decode the next chunk: valid UTF-8 passes through as it is; a chunk with bad bytes is
-        decoded with U+FFFD replacements (counted) and encoded again."""
+        """Decode the next chunk into UTF-8 bytes."""
         while not self._pending and not self._done:
             raw = self._read_raw(max(size, 1 << 20))
             final = not raw
             data = self._tail + raw if self._tail else raw
-            try:
-                _, used = codecs.utf_8_decode(data, "strict", final)
-                chunk = data[:used]
-            except UnicodeDecodeError:
-                text, used = codecs.utf_8_decode(data, "replace", final)
-                self.replaced += text.count("\ufffd") - data[:used].count(b"\xef\xbf\xbd")
-                chunk = text.encode("utf-8")
+            if self._at_start and self._detect and data[:2] in (b"\xff\xfe", b"\xfe\xff"):
+                self.encoding = "utf-16"
+                self._decoder = self._decoder_for("utf-16")
+            if self._decoder is not None:
+                chunk, used = self._decode_other(data, final), len(data)
+            else:
+                chunk, used = self._decode_utf8(data, final)
             self._tail = data[used:]
             self._done = final
             if self._at_start and chunk:
@@ -242,7 +343,8 @@ def pick_column(
         if len(folded) == 1:
             return folded[0]
         raise DriftError(
-            f"{where} has no column '{given}' ({option}); its columns are: {', '.join(columns)}."
+            f"{where} has no column '{printable(given)}' ({option}); its columns are: "
+            f"{printable(', '.join(columns), limit=200)}{delimiter_hint(columns)}."
         )
     found = [c for c in columns if c.lower().strip() in candidates]
     if len(found) == 1:
@@ -251,10 +353,50 @@ def pick_column(
         problem = f"several columns could hold the {role} ({', '.join(found)})"
     else:
         problem = f"no column is called {', '.join(candidates)}"
+    shown = printable(", ".join(columns), limit=200)
     raise DriftError(
         f"Cannot tell which column of {where} holds the {role}: {problem}; name it with {option} "
-        f"(columns: {', '.join(columns)})."
+        f"(columns: {shown}){delimiter_hint(columns)}."
     )
+
+
+def delimiter_hint(columns: list[str]) -> str:
+    """A hint to give --delimiter when the header was read as one column holding ';', '|' or a
+    tab (the file is separated by that character)."""
+    if len(columns) != 1:
+        return ""
+    for char, name in ((";", "';'"), ("|", "'|'"), ("\t", "tab")):
+        if char in columns[0]:
+            return (
+                f"; the one column name holds {name}, so the file is probably separated by "
+                f"{name}: add --delimiter {name}"
+            )
+    return ""
+
+
+def check_text_type(kind: pa.DataType, column: str, role: str, where: str) -> None:
+    """Refuse a column whose values are lists, records or raw bytes (not one value per cell)."""
+    if pa.types.is_dictionary(kind):
+        kind = kind.value_type
+    nested = (
+        pa.types.is_list(kind)
+        or pa.types.is_large_list(kind)
+        or pa.types.is_fixed_size_list(kind)
+        or pa.types.is_struct(kind)
+        or pa.types.is_map(kind)
+        or pa.types.is_binary(kind)
+        or pa.types.is_large_binary(kind)
+    )
+    if not nested:
+        return
+    if role == "text":
+        fix = (
+            "join each list into one string per document (tokens joined by spaces can be read "
+            "with --pretokenized), or name another column with --text-col"
+        )
+    else:
+        fix = "store one date per document, or name another column with --time-col"
+    raise DriftError(f"The {role} column '{column}' of {where} holds {kind} values; {fix}.")
 
 
 # ---------------------------------------------------------------------------- readers
@@ -265,9 +407,10 @@ class Reader:
 
     fmt = ""
 
-    def __init__(self, path: Path, compression: str | None):
+    def __init__(self, path: Path, compression: str | None, encoding: str | None = None):
         self.path = path
         self.compression = compression
+        self.encoding = encoding
         self.time_col = ""
         self.text_col = ""
         self.columns: list[str] = []
@@ -287,15 +430,55 @@ class Reader:
         """Undecodable bytes replaced by U+FFFD so far."""
         return sum(s.replaced for s in self._streams)
 
+    @property
+    def legacy(self) -> int:
+        """Characters read as :data:`LEGACY_ENCODING` because the file is not UTF-8."""
+        return sum(s.legacy for s in self._streams)
+
+    @property
+    def encoding_used(self) -> str:
+        """The codec the text was read with (after detection)."""
+        found = {s.encoding for s in self._streams if s.encoding}
+        return self.encoding or (found.pop() if len(found) == 1 else "utf-8")
+
+    def notes(self) -> list[str]:
+        """Warnings about how the source was read (call after reading it)."""
+        if not self.legacy:
+            return []
+        return [
+            f"{self.path.name} is not UTF-8: {self.legacy:,} non-ASCII characters were read as "
+            f"{LEGACY_ENCODING} (Windows Western European, which covers Latin-1 text); if they "
+            "look wrong, name the file's encoding with --encoding."
+        ]
+
     def _open_text_stream(
         self, path: Path | None = None, compression: str | None = None, probe: bool = False
     ) -> _Utf8Stream:
         """A decoded stream of the source (or of ``path``); a ``probe`` (reading the header) is
         not counted in progress or replaced characters."""
-        stream = _Utf8Stream(path or self.path, compression if path else self.compression)
+        stream = _Utf8Stream(
+            path or self.path, compression if path else self.compression, self.encoding
+        )
         if not probe:
             self._streams.append(stream)
         return stream
+
+    def _check_not_binary(self) -> None:
+        """Refuse a file whose first bytes (after decompression) hold NUL bytes, unless they are
+        expected in its encoding (UTF-16)."""
+        stream = _Utf8Stream(self.path, self.compression, self.encoding)
+        try:
+            head = stream._read_raw(1 << 13)
+        finally:
+            stream.close()
+        utf16 = head[:2] in (b"\xff\xfe", b"\xfe\xff") or "16" in (self.encoding or "")
+        utf32 = "32" in (self.encoding or "")
+        offset = head.find(b"\x00")
+        if offset >= 0 and not (utf16 or utf32):
+            raise DriftError(
+                f"{self.path} looks like a binary file, not text (a NUL byte at offset "
+                f"{offset}); check the path, or name the format with --format."
+            )
 
     def batches(self) -> Iterator[DocBatch]:  # pragma: no cover - overridden
         raise NotImplementedError
@@ -304,9 +487,18 @@ class Reader:
 class CsvReader(Reader):
     """CSV or TSV through pyarrow's streaming CSV reader (quoted fields may hold line breaks)."""
 
-    def __init__(self, path: Path, compression: str | None, delimiter: str, time_col, text_col):
-        super().__init__(path, compression)
+    def __init__(
+        self,
+        path: Path,
+        compression: str | None,
+        delimiter: str,
+        time_col,
+        text_col,
+        encoding: str | None = None,
+    ):
+        super().__init__(path, compression, encoding)
         self.fmt = "tsv" if delimiter == "\t" else "csv"
+        self._check_not_binary()
         self._parse = pacsv.ParseOptions(delimiter=delimiter, newlines_in_values=True)
         self.columns = self._header()
         self.time_col = pick_column(
@@ -346,11 +538,9 @@ class CsvReader(Reader):
                 f"{self.path} is empty; give a {self.fmt.upper()} file with a header row and "
                 "documents."
             )
-        if len(message) > 160:
-            message = message[:157] + "..."
         return DriftError(
-            f"{self.path} is not a well-formed {self.fmt.upper()} file ({message}); check its "
-            "delimiter and quoting, or name the format with --format."
+            f"{self.path} is not a well-formed {self.fmt.upper()} file ({printable(message)}); "
+            "check its delimiter (--delimiter) and quoting, or name the format with --format."
         )
 
     def _header(self) -> list[str]:
@@ -393,7 +583,7 @@ class CsvReader(Reader):
                     except StopIteration:
                         self._done_bytes += stream.counter.position
                         return
-                    except (pa.ArrowInvalid, OSError) as exc:
+                    except (pa.ArrowException, OSError) as exc:
                         raise self._error(exc, stream) from None
                     if skip >= batch.num_rows:
                         skip -= batch.num_rows
@@ -413,8 +603,11 @@ class JsonLinesReader(Reader):
 
     fmt = "jsonl"
 
-    def __init__(self, path: Path, compression: str | None, time_col, text_col):
-        super().__init__(path, compression)
+    def __init__(
+        self, path: Path, compression: str | None, time_col, text_col, encoding: str | None = None
+    ):
+        super().__init__(path, compression, encoding)
+        self._check_not_binary()
         self.columns = self._first_keys()
         self.time_col = pick_column(
             self.columns, time_col, TIME_COLUMN_NAMES, "time", "--time-col", self.path.name
@@ -444,8 +637,8 @@ class JsonLinesReader(Reader):
             if number == 1 and line.lstrip().startswith(b"["):
                 raise array from None
             raise DriftError(
-                f"Line {number} of {self.path} is not valid JSON ({exc.msg}); fix or remove that "
-                "line."
+                f"Line {number} of {self.path} is not valid JSON ({printable(exc.msg)}); fix or "
+                "remove that line."
             ) from None
         if isinstance(record, list) and number == 1:
             raise array
@@ -454,6 +647,14 @@ class JsonLinesReader(Reader):
                 f"Line {number} of {self.path} is not a JSON object; write one object per line."
             )
         return record
+
+    def _nested(self, number: int, value: object, column: str, role: str) -> DriftError:
+        kind = "a list" if isinstance(value, list) else "an object"
+        fix = " (tokens joined by spaces for --pretokenized)" if role == "text" else ""
+        return DriftError(
+            f"Line {number} of {self.path}: the {role} field '{column}' holds {kind}, not one "
+            f"value; store one {role} string per document{fix}."
+        )
 
     def _first_keys(self) -> list[str]:
         lines = self._lines(probe=True)
@@ -474,6 +675,12 @@ class JsonLinesReader(Reader):
             record = self._record(number, line)
             when = record.get(self.time_col)
             text = record.get(self.text_col)
+            for value, column, role in (
+                (text, self.text_col, "text"),
+                (when, self.time_col, "time"),
+            ):
+                if isinstance(value, list | dict):
+                    raise self._nested(number, value, column, role)
             times.append(None if when is None else str(when))
             texts.append("" if text is None else text if isinstance(text, str) else str(text))
             size += len(line)
@@ -503,6 +710,9 @@ class ParquetReader(Reader):
         self.text_col = pick_column(
             self.columns, text_col, TEXT_COLUMN_NAMES, "text", "--text-col", self.path.name
         )
+        schema = self._file.schema_arrow
+        for column, role in ((self.text_col, "text"), (self.time_col, "time")):
+            check_text_type(schema.field(column).type, column, role, self.path.name)
         self._rows_done = 0
 
     def _open(self) -> pq.ParquetFile:
@@ -516,16 +726,17 @@ class ParquetReader(Reader):
                     shutil.copyfileobj(source, out, 1 << 20)
             except _DAMAGED as exc:
                 raise DriftError(
-                    f"{self.path} is truncated or damaged ({self.compression}: {exc}); copy the "
-                    "file again."
+                    f"{self.path} is truncated or damaged ({self.compression}: "
+                    f"{printable(str(exc))}); copy the file again."
                 ) from None
         if target.stat().st_size == 0:
             raise DriftError(f"{self.path} is empty; give a Parquet file with documents.")
         try:
             return pq.ParquetFile(target)
-        except (pa.ArrowInvalid, OSError) as exc:
+        except (pa.ArrowException, OSError) as exc:
             raise DriftError(
-                f"{self.path} is not a readable Parquet file ({exc}); check the file or --format."
+                f"{self.path} is not a readable Parquet file ({printable(str(exc))}); check the "
+                "file or --format."
             ) from None
 
     def position(self) -> int:
@@ -546,9 +757,10 @@ class ParquetReader(Reader):
             ):
                 self._rows_done += batch.num_rows
                 yield DocBatch(batch.column(0), batch.column(1))
-        except (pa.ArrowInvalid, OSError) as exc:
+        except (pa.ArrowException, OSError) as exc:
             raise DriftError(
-                f"{self.path} is not a readable Parquet file ({exc}); check the file."
+                f"{self.path} is not a readable Parquet file ({printable(str(exc))}); check the "
+                "file."
             ) from None
         finally:
             if self._tmpdir is not None:
@@ -557,47 +769,77 @@ class ParquetReader(Reader):
 
 # ---------------------------------------------------------------------------- folders of text files
 
-_NAME_DATE_PATTERNS = (
-    re.compile(r"(?<!\d)(\d{4})[-_.](\d{2})[-_.](\d{2})(?!\d)"),
-    re.compile(r"(?<!\d)(\d{4})(\d{2})(\d{2})(?!\d)"),
-    re.compile(r"(?<!\d)(\d{4})[-_.](\d{2})(?!\d)"),
-    re.compile(r"(?<!\d)(\d{4})(?!\d)"),
+#: A date in a name must be a whole token: no letter or digit right before or after it (``_``,
+#: ``-``, ``.``, spaces and brackets separate tokens), so ``note1002`` or ``scan2048`` hold none.
+_EDGE_BEFORE = r"(?<![^\W_])"
+_EDGE_AFTER = r"(?![^\W_])"
+_NAME_DATE_PATTERNS = tuple(
+    re.compile(_EDGE_BEFORE + body + _EDGE_AFTER)
+    for body in (
+        r"(\d{4})[-_.](\d{2})[-_.](\d{2})",
+        r"(\d{4})(\d{2})(\d{2})",
+        r"(\d{4})[-_.](\d{2})",
+        r"(\d{4})",
+    )
 )
 
 
-def date_from_name(relative: str) -> str | None:
-    """A date found in a file's name, else in its folders' names (innermost first).
-
-    ``1990-03-01`` / ``19900301`` / ``1990_03`` / ``1990`` (years 1000 to 2999); None if none.
-    """
-    parts = Path(relative).parts
-    names = [_TEXT_FILE_RE.sub("", parts[-1])] + list(reversed(parts[:-1]))
-    for name in names:
-        for pattern in _NAME_DATE_PATTERNS:
-            for match in pattern.finditer(name):
-                numbers = [int(g) for g in match.groups()]
-                if not 1000 <= numbers[0] <= 2999:
-                    continue
-                if len(numbers) > 1 and not 1 <= numbers[1] <= 12:
-                    continue
-                if len(numbers) > 2 and not 1 <= numbers[2] <= 31:
-                    continue
-                return "-".join(g for g in match.groups())
+def date_in_name(name: str) -> str | None:
+    """The first whole-token date in one file or folder name (years 1000 to 2999), or None:
+    ``1990-03-01`` / ``19900301`` / ``1990_03`` / ``1990``."""
+    for pattern in _NAME_DATE_PATTERNS:
+        for match in pattern.finditer(name):
+            numbers = [int(g) for g in match.groups()]
+            if not 1000 <= numbers[0] <= 2999:
+                continue
+            if len(numbers) > 1 and not 1 <= numbers[1] <= 12:
+                continue
+            if len(numbers) > 2 and not 1 <= numbers[2] <= 31:
+                continue
+            return "-".join(match.groups())
     return None
+
+
+def name_and_folder_dates(relative: str) -> tuple[str | None, str | None]:
+    """The date in a file's own name and the date of its innermost dated folder."""
+    parts = Path(relative).parts
+    own = date_in_name(_TEXT_FILE_RE.sub("", parts[-1]))
+    folder = next((d for d in map(date_in_name, reversed(parts[:-1])) if d), None)
+    return own, folder
+
+
+def date_from_name(relative: str) -> str | None:
+    """A file's date from its path: the date in its own name, else its innermost dated folder's.
+
+    Only whole tokens count (see :func:`date_in_name`); None when neither holds a date.
+    """
+    own, folder = name_and_folder_dates(relative)
+    return own or folder
+
+
+def dates_disagree(own: str | None, folder: str | None) -> bool:
+    """True when a file's name and its folder give different dates (``1905`` and
+    ``1905-03-02`` agree: the folder's date is a prefix of the file's)."""
+    if not own or not folder:
+        return False
+    return not (own.startswith(folder) or folder.startswith(own))
 
 
 class TextFolderReader(Reader):
     """A folder of .txt files (also .txt.gz/.bz2/.xz), one document per file.
 
-    A file's date comes from a small CSV index in the folder (``index.csv``, or the only .csv file
-    at its top level: a file-name column and a date column) when it lists the file, else from a
-    date in the file's name or its folders' names. A single .txt file is read the same way.
+    A file's date, first rule that gives one: (1) a small CSV index in the folder (``index.csv``,
+    or the only .csv file at its top level: a file-name column and a date column) that lists the
+    file; (2) a date in the file's own name; (3) a date in its innermost dated folder's name. Only
+    whole tokens count as dates in names (``1905``, ``1905-03-02``, ``letter_1905.txt``; not
+    ``note1002.txt``). Files whose name and folder give different dates are listed in
+    :meth:`notes` (the name wins). A single .txt file is read the same way.
     """
 
     fmt = "txt"
 
-    def __init__(self, path: Path, time_col, text_col):
-        super().__init__(path, None)
+    def __init__(self, path: Path, time_col, text_col, encoding: str | None = None):
+        super().__init__(path, None, encoding)
         root = path if path.is_dir() else path.parent
         self.root = root
         if path.is_dir():
@@ -619,6 +861,10 @@ class TextFolderReader(Reader):
         self.index = self._read_index(time_col) if path.is_dir() else {}
         self._total = sum(p.stat().st_size for p in self.files)
         self._replaced_done = 0
+        self._legacy_done = 0
+        self.legacy_files: list[str] = []
+        self.disagreements: list[tuple[str, str, str]] = []  # (file, name date, folder date)
+        self.dates = {file: self._date_for(file) for file in self.files}
 
     @property
     def total_bytes(self) -> int:
@@ -655,7 +901,41 @@ class TextFolderReader(Reader):
         for key in (relative, file.name, _TEXT_FILE_RE.sub("", file.name)):
             if key in self.index:
                 return self.index[key]
-        return date_from_name(relative) or f"(no date in {relative})"
+        own, folder = name_and_folder_dates(relative)
+        if dates_disagree(own, folder):
+            self.disagreements.append((relative, str(own), str(folder)))
+        return own or folder or f"(no date in {relative})"
+
+    @property
+    def legacy(self) -> int:
+        return self._legacy_done + sum(s.legacy for s in self._streams)
+
+    def notes(self) -> list[str]:
+        """Files whose name and folder disagree on the date, and files read as cp1252."""
+        messages = []
+        if self.disagreements:
+            shown = "; ".join(
+                f"{printable(f)} dated {own}, folder says {folder}"
+                for f, own, folder in self.disagreements[:5]
+            )
+            more = len(self.disagreements) - 5
+            messages.append(
+                f"{len(self.disagreements):,} file{'s' if len(self.disagreements) > 1 else ''} "
+                f"whose name and folder give different dates were dated by the file name "
+                f"({shown}{f'; and {more:,} more' if more > 0 else ''}); to date them otherwise, "
+                "list them in an index.csv (file, date)."
+            )
+        if self.legacy_files:
+            shown = ", ".join(printable(f) for f in self.legacy_files[:5])
+            more = len(self.legacy_files) - 5
+            messages.append(
+                f"{len(self.legacy_files):,} text file{'s' if len(self.legacy_files) > 1 else ''} "
+                f"not in UTF-8 ({shown}{f' and {more:,} more' if more > 0 else ''}): "
+                f"{self.legacy:,} non-ASCII characters were read as {LEGACY_ENCODING} (Windows "
+                "Western European, which covers Latin-1 text); if they look wrong, name the "
+                "files' encoding with --encoding."
+            )
+        return messages
 
     def _pieces(self, file: Path) -> Iterator[str]:
         """The file's text in pieces of about BATCH_BYTES, cut after a line break."""
@@ -672,6 +952,9 @@ class TextFolderReader(Reader):
         finally:
             self._done_bytes += file.stat().st_size
             self._replaced_done += stream.replaced
+            self._legacy_done += stream.legacy
+            if stream.legacy:
+                self.legacy_files.append(file.relative_to(self.root).as_posix())
             self._streams.remove(stream)
             stream.close()
 
@@ -684,8 +967,10 @@ class TextFolderReader(Reader):
         texts: list[str] = []
         size = 0
         continues = False
+        self._replaced_done = self._legacy_done = 0  # each pass counts afresh
+        self.legacy_files = []
         for file in self.files:
-            when = self._date_for(file)
+            when = self.dates[file]
             pieces = 0
             for piece in self._pieces(file):
                 if pieces > 0 and not texts:
@@ -714,19 +999,36 @@ def open_source(
     fmt: str | None = None,
     time_col: str | None = None,
     text_col: str | None = None,
+    *,
+    encoding: str | None = None,
+    delimiter: str | None = None,
 ) -> Reader:
-    """A reader for ``path`` with its format, compression and time/text columns resolved."""
+    """A reader for ``path`` with its format, compression and time/text columns resolved.
+
+    ``encoding``: the text's codec (default: UTF-8, with cp1252 detected when a file is not
+    UTF-8); ``delimiter``: the field separator of CSV files (default ``,``; tab for TSV).
+    """
     path = Path(path)
     if not path.exists():
         raise DriftError(f"There is no file or folder at {path}; check the path.")
     fmt = detect_format(path, fmt)
+    encoding = check_encoding(encoding)
+    delimiter = check_delimiter(delimiter)
+    if delimiter is not None and fmt not in ("csv", "tsv"):
+        raise DriftError(
+            f"--delimiter applies to CSV and TSV files, not {fmt}; leave it out for {path.name}."
+        )
     if fmt == "txt":
-        return TextFolderReader(path, time_col, text_col)
+        return TextFolderReader(path, time_col, text_col, encoding)
     if path.stat().st_size == 0:
         raise DriftError(f"{path} is empty; give a file that holds documents.")
     compression = detect_compression(path)
     if fmt in ("csv", "tsv"):
-        return CsvReader(path, compression, "\t" if fmt == "tsv" else ",", time_col, text_col)
+        sep = delimiter or ("\t" if fmt == "tsv" else ",")
+        return CsvReader(path, compression, sep, time_col, text_col, encoding)
+    if encoding is not None:
+        if fmt == "parquet":
+            raise DriftError("--encoding does not apply to Parquet files (they store UTF-8).")
     if fmt == "jsonl":
-        return JsonLinesReader(path, compression, time_col, text_col)
+        return JsonLinesReader(path, compression, time_col, text_col, encoding)
     return ParquetReader(path, compression, time_col, text_col)

@@ -866,8 +866,12 @@ def slice_archive(
     pretokenized: bool = False,
     seed: int = 0,
     quiet: bool = False,
+    encoding: str | None = None,
+    delimiter: str | None = None,
 ) -> pd.DataFrame:
     """Cut ``source`` into time slices in the run folder ``out`` and return the slice summary.
+
+    ``encoding`` and ``delimiter`` are passed to :func:`drift.readers.open_source`.
 
     The summary has the columns of slices/summary.csv; ``summary.attrs`` holds ``reused`` (the
     slices were already current), ``warnings`` and the run's ``totals`` (documents read, bad
@@ -877,7 +881,9 @@ def slice_archive(
     source = Path(source)
     rule = parse_by(by)
     budget = parse_balance(balance)
-    reader = open_source(source, fmt, time_col, text_col)
+    reader = open_source(
+        source, fmt, time_col, text_col, encoding=encoding, delimiter=delimiter
+    )
     if source.is_dir() and Path(out).resolve().is_relative_to(source.resolve()):
         raise DriftError(
             f"--out {out} is inside the source folder {source}, so its slices would be read as "
@@ -895,6 +901,8 @@ def slice_archive(
         "keep_case": bool(keep_case),
         "pretokenized": bool(pretokenized),
         "seed": int(seed),
+        "encoding": reader.encoding,
+        "delimiter": delimiter,
     }
     with runfolder.run_lock(paths.root):
         inputs = runfolder.fingerprint_path(source)
@@ -928,7 +936,7 @@ def slice_archive(
                 "timings": timings,
             },
         )
-    messages = slice_warnings(summary)
+    messages = slice_warnings(summary) + reader.notes()
     if totals["bad_dates_skipped"]:
         messages.append(
             f"{_count(totals['bad_dates_skipped'], 'document')} whose date does not parse "
@@ -941,7 +949,8 @@ def slice_archive(
     if totals["replaced_characters"]:
         messages.append(
             f"{_count(totals['replaced_characters'], 'undecodable byte sequence')} in "
-            f"{source.name} replaced by U+FFFD (the input is read as UTF-8)."
+            f"{source.name} replaced by U+FFFD (the input is read as "
+            f"{reader.encoding_used}; name another with --encoding)."
         )
     for message in messages:
         _warn(message)
@@ -1031,5 +1040,6 @@ def _run(
         "outside_edges": totals.outside,
         "empty_documents": totals.empty,
         "replaced_characters": reader.replaced,
+        "legacy_characters": reader.legacy,
     }
     return summary, totals_out, timings

@@ -158,10 +158,69 @@ def test_dates_that_do_not_parse(tmp_path, capsys):
 
 
 def test_undecodable_bytes_are_replaced_not_fatal(tmp_path, capsys):
-    path = tmp_path / "latin.csv"
-    path.write_bytes(b"date,text\n1990,na\xefve caf\xe9\n1991,plain\n")
+    # valid UTF-8 (the e-acute) comes first, so the file is UTF-8 with two broken bytes
+    path = tmp_path / "mixed.csv"
+    path.write_bytes(b"date,text\n1990,caf\xc3\xa9\n1991,na\xefve caf\xe9\n")
     code, out, err = run_cli([path, "--out", tmp_path / "run", "-q"], capsys)
-    assert code == 0 and "2 undecodable byte sequences" in err
+    assert code == 0 and "2 undecodable byte sequences" in err and "read as utf-8" in err
+
+
+def test_a_latin1_file_is_detected_and_reported_with_a_count(tmp_path, capsys):
+    path = tmp_path / "latin.csv"
+    path.write_bytes("date,text\n1990,café était naïve\n1991,plain\n".encode("latin-1"))
+    code, out, err = run_cli([path, "--out", tmp_path / "run", "-q"], capsys)
+    assert code == 0, err
+    assert "not UTF-8: 3 non-ASCII characters were read as cp1252" in err
+    text = (tmp_path / "run" / "slices" / "1990.txt").read_text(encoding="utf-8")
+    assert text.split() == ["café", "était", "naïve"]  # not "caf tait"
+    code, out, err = run_cli(
+        [path, "--out", tmp_path / "run2", "-q", "--encoding", "latin-1"], capsys
+    )
+    assert code == 0 and "cp1252" not in err and "undecodable" not in err
+    assert (tmp_path / "run2" / "slices" / "1990.txt").read_text(encoding="utf-8").split()[0] == (
+        "café"
+    )
+    assert_bad_input(
+        [path, "--out", tmp_path / "r3", "--encoding", "klingon"],
+        capsys,
+        "not a known text encoding",
+    )
+
+
+def test_semicolon_file_gets_a_hint_and_reads_with_delimiter(tmp_path, capsys):
+    path = tmp_path / "export.csv"
+    path.write_text("date;text\n1990;one two\n1991;three four\n", encoding="utf-8")
+    assert_bad_input([path, "--out", tmp_path / "run"], capsys, "add --delimiter ';'")
+    code, out, err = run_cli([path, "--out", tmp_path / "run", "-q", "--delimiter", ";"], capsys)
+    assert code == 0, err
+    assert (tmp_path / "run" / "slices" / "1991.txt").read_text().split() == ["three", "four"]
+    piped = tmp_path / "piped.csv"
+    piped.write_text("date|text\n1990|a\n", encoding="utf-8")
+    assert_bad_input([piped, "--out", tmp_path / "r2"], capsys, "add --delimiter '|'")
+    assert_bad_input(
+        [path, "--out", tmp_path / "r3", "--delimiter", ";;"], capsys, "must be one character"
+    )
+
+
+def test_parquet_text_column_of_lists_exits_2_naming_column_and_type(tmp_path, capsys):
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    path = tmp_path / "tokens.parquet"
+    pq.write_table(pa.table({"date": ["1990", "1991"], "text": [["a", "b"], ["c"]]}), path)
+    err = assert_bad_input([path, "--out", tmp_path / "run"], capsys, "'text'", "list<")
+    assert "--pretokenized" in err
+
+
+def test_binary_file_bytes_are_escaped_in_the_message(tmp_path, capsys):
+    path = tmp_path / "picture.csv"
+    path.write_bytes(b"\x89PNG\r\n\x1a\n\x00\x00\x00\rIHDR\x00\x07\xff\xfe")
+    err = assert_bad_input([path, "--out", tmp_path / "run"], capsys, "binary file")
+    assert all(ch.isprintable() for ch in err.strip())
+    weird = tmp_path / "weird.csv"
+    weird.write_bytes(b"da\x1bte\x07,te\xffxt\n1990,a\n")
+    err = assert_bad_input([weird, "--out", tmp_path / "r2"], capsys, "\\x1b", "\\x07")
+    assert all(ch.isprintable() for ch in err.strip())
 
 
 def test_truncated_gzip(tmp_path, capsys):

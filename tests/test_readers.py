@@ -331,7 +331,73 @@ def test_missing_source_and_folder_without_text_files(tmp_path):
         ("2001/chapter_0001.txt", "2001"),
         ("1990-13-45.txt", "1990"),
         ("notes.txt", None),
+        # digits inside a longer token are never a date; the folder decides
+        ("1905/note1002.txt", "1905"),
+        ("1905/scan2048.txt", "1905"),
+        ("1905/1907-03-02.txt", "1907-03-02"),
+        ("box 12/letter (1907).txt", "1907"),
+        ("x1905y/a.txt", None),
+        ("1905s/a.txt", None),
     ],
 )
 def test_date_from_name(relative, expected):
     assert date_from_name(relative) == expected
+
+
+def test_folder_dates_precedence_and_disagreement_warning(tmp_path):
+    folder = tmp_path / "papers"
+    (folder / "1905").mkdir(parents=True)
+    for name in ("note1002.txt", "scan2048.txt", "1907-03-02.txt", "1905-06-01 minutes.txt"):
+        (folder / "1905" / name).write_text(f"text of {name}", encoding="utf-8")
+    (folder / "1905" / "indexed1907.txt").write_text("by the index", encoding="utf-8")
+    (folder / "index.csv").write_text("file,date\n1905/indexed1907.txt,1911\n", encoding="utf-8")
+    reader = open_source(folder)
+    dated = {f.name: d for f, d in reader.dates.items()}
+    assert dated == {
+        "note1002.txt": "1905",  # not 1002
+        "scan2048.txt": "1905",  # not 2048
+        "1907-03-02.txt": "1907-03-02",  # the name wins over the folder ...
+        "1905-06-01 minutes.txt": "1905-06-01",
+        "indexed1907.txt": "1911",  # ... and the index over both
+    }
+    notes = reader.notes()
+    assert len(notes) == 1
+    assert "1 file whose name and folder give different dates" in notes[0]
+    assert "1905/1907-03-02.txt dated 1907-03-02, folder says 1905" in notes[0]
+
+
+def test_text_folder_of_latin1_files_lists_them(tmp_path):
+    folder = tmp_path / "letters"
+    folder.mkdir()
+    (folder / "1901.txt").write_bytes("Grüße aus Köln".encode("latin-1"))
+    (folder / "1902.txt").write_text("Grüße aus Köln", encoding="utf-8")
+    reader = open_source(folder)
+    _, texts = read_all(reader)
+    assert texts == ["Grüße aus Köln", "Grüße aus Köln"]
+    (note,) = reader.notes()
+    assert note.startswith("1 text file not in UTF-8 (1901.txt)") and "3 non-ASCII" in note
+
+
+def test_utf16_with_a_byte_order_mark_and_explicit_encodings(tmp_path):
+    path = tmp_path / "wide.csv"
+    path.write_bytes("date,text\n1990,Grüße\n".encode("utf-16"))
+    assert read_all(open_source(path)) == (["1990"], ["Grüße"])
+    path = tmp_path / "cyr.csv"
+    path.write_bytes("date,text\n1990,привет\n".encode("cp1251"))
+    assert read_all(open_source(path, encoding="cp1251")) == (["1990"], ["привет"])
+    with pytest.raises(DriftError, match="not a known text encoding"):
+        open_source(path, encoding="nope")
+    with pytest.raises(DriftError, match="--delimiter applies to CSV"):
+        open_source(write_table(tmp_path / "d.jsonl", "jsonl"), delimiter=";")
+
+
+def test_jsonl_text_field_holding_a_list_is_a_clear_error(tmp_path):
+    path = tmp_path / "tok.jsonl"
+    path.write_text('{"date": "1990", "text": ["a", "b"]}\n', encoding="utf-8")
+    with pytest.raises(DriftError, match="Line 1 .* the text field 'text' holds a list"):
+        read_all(open_source(path))
+
+
+def test_printable_escapes_control_and_replaced_characters():
+    assert readers.printable("a\x00b\x1b\ufffdc\u200bd") == "a\\x00b\\x1b\\ufffdc\\u200bd"
+    assert readers.printable("x" * 300, limit=10) == "xxxxxxx..."

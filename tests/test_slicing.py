@@ -437,12 +437,22 @@ def test_empty_input_cases(tmp_path):
 
 
 def test_undecodable_bytes_are_counted_in_the_run(tmp_path):
-    path = tmp_path / "bytes.csv"
-    path.write_bytes(b"date,text\n1990,caf\xe9 ok\n1991,fine\n")
+    path = tmp_path / "bytes.csv"  # UTF-8 (the first e-acute) with one stray Latin-1 byte
+    path.write_bytes(b"date,text\n1990,caf\xc3\xa9 ok\n1991,caf\xe9 fine\n")
     summary = slice_archive(path, tmp_path / "run", quiet=True)
     assert summary.attrs["totals"]["replaced_characters"] == 1
     assert any("1 undecodable byte sequence in" in w for w in summary.attrs["warnings"])
-    assert counts_as_counters(tmp_path / "run")["1990"] == Counter({"caf": 1, "ok": 1})
+    assert counts_as_counters(tmp_path / "run")["1991"] == Counter({"caf": 1, "fine": 1})
+
+
+def test_a_latin1_archive_keeps_its_words_whole(tmp_path):
+    path = tmp_path / "bytes.csv"
+    path.write_bytes(b"date,text\n1990,caf\xe9 \xe9tait ok\n1991,fine\n")
+    summary = slice_archive(path, tmp_path / "run", quiet=True)
+    assert summary.attrs["totals"]["replaced_characters"] == 0
+    assert summary.attrs["totals"]["legacy_characters"] == 2
+    assert any("read as cp1252" in w for w in summary.attrs["warnings"])
+    assert counts_as_counters(tmp_path / "run")["1990"] == Counter({"café": 1, "était": 1, "ok": 1})
 
 
 def test_every_source_format_gives_the_same_slices(tmp_path):

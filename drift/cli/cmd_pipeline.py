@@ -37,6 +37,10 @@ def run_command(
     time_col: str = typer.Option(None, "--time-col", help="Column with the dates."),
     text_col: str = typer.Option(None, "--text-col", help="Column with the text."),
     date_format: str = typer.Option(None, "--date-format", help="strptime layout of the dates."),
+    encoding: str = typer.Option(None, "--encoding", help="Text encoding, e.g. cp1252 "
+                                 "(default: UTF-8; cp1252 when a file is not UTF-8)."),
+    delimiter: str = typer.Option(None, "--delimiter",
+                                  help="Field separator of a CSV file, e.g. ';', '|' or tab."),
     skip_bad_dates: bool = typer.Option(False, "--skip-bad-dates",
                                         help="Drop documents whose date does not parse."),
     by: str = typer.Option("year", "--by",
@@ -82,7 +86,7 @@ def run_command(
             "fmt": fmt, "time_col": time_col, "text_col": text_col, "date_format": date_format,
             "skip_bad_dates": skip_bad_dates, "by": by, "keep_case": keep_case,
             "pretokenized": pretokenized,
-            "balance": balance_option,
+            "balance": balance_option, "encoding": encoding, "delimiter": delimiter,
         },
         train_options={
             "architecture": architecture, "dim": dim, "window": window, "epochs": epochs,

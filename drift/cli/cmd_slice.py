@@ -51,6 +51,15 @@ def slice_command(
     date_format: str = typer.Option(
         None, "--date-format", help="strptime layout of the dates, e.g. '%d/%m/%Y'."
     ),
+    encoding: str = typer.Option(
+        None,
+        "--encoding",
+        help="Text encoding, e.g. cp1252 or latin-1 (default: UTF-8; cp1252 when a file is not "
+        "UTF-8).",
+    ),
+    delimiter: str = typer.Option(
+        None, "--delimiter", help="Field separator of a CSV file, e.g. ';', '|' or tab."
+    ),
     skip_bad_dates: bool = typer.Option(
         False, "--skip-bad-dates", help="Drop documents whose date does not parse."
     ),
@@ -94,6 +103,8 @@ def slice_command(
         pretokenized=pretokenized,
         seed=seed,
         quiet=quiet,
+        encoding=encoding,
+        delimiter=delimiter,
     )
     title = f"Slices in {out}" + (" (reused)" if summary.attrs.get("reused") else "")
     table = summary_table(summary, title=title)
