@@ -41,14 +41,16 @@ def run_all(
     slice_options: dict[str, Any] | None = None,
     train_options: dict[str, Any] | None = None,
     rank_options: dict[str, Any] | None = None,
-    report_top: int = 20,
+    report_options: dict[str, Any] | None = None,
+    report_top: int | None = None,
     quiet: bool = False,
 ) -> RunResult:
     """Slice ``source`` into ``out``, train, rank and write the HTML report.
 
     The option dictionaries are passed as keyword arguments to
-    :func:`drift.slicing.slice_archive`, :func:`drift.training.train_run` and
-    :func:`drift.ranking.rank_run`.
+    :func:`drift.slicing.slice_archive`, :func:`drift.training.train_run`,
+    :func:`drift.ranking.rank_run` and :func:`drift.report.build_report` (their names and
+    defaults: :mod:`drift.options`); ``report_top`` is short for ``report_options={"top": N}``.
     """
     import time
 
@@ -71,7 +73,10 @@ def run_all(
     seconds["rank"] = time.perf_counter() - started
 
     started = time.perf_counter()
-    report = build_report(out, top=report_top)
+    report_options = dict(report_options or {})
+    if report_top is not None:
+        report_options["top"] = report_top
+    report = build_report(out, **report_options)
     seconds["report"] = time.perf_counter() - started
     return RunResult(Path(out), summary, models, scores, Path(report), seconds)
 

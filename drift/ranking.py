@@ -35,7 +35,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from drift import runfolder
+from drift import options, runfolder
 from drift.alignment import AnchorSpec, SliceVectors, align_onto, parse_anchors, prepare_vectors
 from drift.changepoint import change_points
 from drift.errors import DriftError, unknown_word_error
@@ -48,16 +48,14 @@ from drift.measures import (
     mean_and_spread,
     top_k_neighbours,
 )
+from drift.options import ChartOptions, RankOptions, ViewOptions, default
 from drift.progress import progress_bars, stderr_console
 
-#: Neighbours per word for turnover and local change. Chosen by benchmarks/injection_eval.py
-#: (synthetic change injection on gensim's real text, 4 protocol seeds): k = 50 gave turnover and
-#: the combined measure a higher average precision than 25 or 10; local change was about even.
-DEFAULT_K = 50
-#: The measure that ranks words by default: in the same benchmark displacement had the highest
-#: (or tied) average precision of the injected changes, and it needs no k.
-DEFAULT_MEASURE = "displacement"
-MEASURES = ("displacement", "turnover", "local", "combined")
+#: Neighbours per word for turnover and local change (why 50: see drift.options.RankOptions).
+DEFAULT_K: int = default(RankOptions, "k")
+#: The measure that ranks words by default (why: see drift.options.RankOptions).
+DEFAULT_MEASURE: str = default(RankOptions, "measure")
+MEASURES = options.MEASURES
 #: At most this many neighbours gained and lost are listed per word (strongest first).
 NEIGHBOURS_LISTED = 10
 CONTROL_NAMES = ("control-a", "control-b")
@@ -167,35 +165,13 @@ def resolve_slices(
 ) -> tuple[str, str, str]:
     """The compared pair (first and last slice by default) and the reference (first slice)."""
 
-    def known(label: str, option: str) -> str:
-        label = str(label)
-        if label not in labels:
-            raise DriftError(
-                f"{option} {label} is not a slice of this run; its slices are {', '.join(labels)}."
-            )
-        return label
-
-    if between is None or len(between) == 0:
-        slice_from, slice_to = labels[0], labels[-1]
-    else:
-        if len(between) != 2:
-            raise DriftError("--between takes two slice labels, e.g. --between 1990 2000.")
-        slice_from, slice_to = known(between[0], "--between"), known(between[1], "--between")
-        if slice_from == slice_to:
-            raise DriftError(
-                f"--between names slice {slice_from} twice; give two different slices."
-            )
-    ref = labels[0] if reference is None else known(reference, "--reference")
+    slice_from, slice_to = options.check_between(labels, between)
+    ref = labels[0] if reference is None else options.check_label(reference, labels, "--reference")
     return slice_from, slice_to, ref
 
 
 def _check_options(measure: str, k: int, alpha: float) -> None:
-    if measure not in MEASURES:
-        raise DriftError(f"--measure {measure} is unknown; choose one of {', '.join(MEASURES)}.")
-    if isinstance(k, bool) or not isinstance(k, int | np.integer) or k < 1:
-        raise DriftError(f"--k must be a whole number of at least 1 (got {k}).")
-    if not 0.0 < float(alpha) < 1.0:
-        raise DriftError(f"--alpha must lie strictly between 0 and 1 (got {alpha}); use e.g. 0.05.")
+    RankOptions(measure=measure, k=k, alpha=alpha)
 
 
 def _anchor_record(raw: Any, spec: AnchorSpec) -> Any:
@@ -565,7 +541,7 @@ def rank_run(
     reference: str | None = None,
     measure: str = DEFAULT_MEASURE,
     k: int = DEFAULT_K,
-    alpha: float = 0.05,
+    alpha: float = default(RankOptions, "alpha"),
     anchors: str | int | Sequence[str] | None = None,
     quiet: bool = False,
 ) -> pd.DataFrame:
@@ -828,13 +804,16 @@ def slice_labels(run: str | Path) -> list[str]:
 
 
 def top_rows(
-    scores: pd.DataFrame, top: int = 30, all_rows: bool = False, min_count: int = 0
+    scores: pd.DataFrame,
+    top: int = default(ViewOptions, "top"),
+    all_rows: bool = False,
+    min_count: int = 0,
 ) -> pd.DataFrame:
     """The rows to show: best first, words seen at least ``min_count`` times in both slices."""
     if top < 1 and not all_rows:
         raise DriftError(f"--top must be at least 1 (got {top}); use --all to show every word.")
     if min_count < 0:
-        raise DriftError(f"--min-count must be 0 or more (got {min_count}).")
+        raise DriftError(f"--min-count-shown must be 0 or more (got {min_count}).")
     shown = scores[(scores["count_from"] >= min_count) & (scores["count_to"] >= min_count)]
     shown = shown.sort_values("rank", kind="stable")
     return shown if all_rows else shown.head(top)
@@ -849,15 +828,16 @@ def rows_as_json(rows: pd.DataFrame) -> str:
 # ---------------------------------------------------------------------------- neighbours, export
 
 
-def neighbours_by_slice(run: str | Path, word: str, k: int = 10) -> pd.DataFrame:
+def neighbours_by_slice(
+    run: str | Path, word: str, k: int = default(ChartOptions, "k")
+) -> pd.DataFrame:
     """The ``k`` nearest candidate words of ``word`` in every slice that knows it.
 
     Columns slice, rank, neighbour, similarity. The similarity is the cosine of the prepared
     vectors averaged over seeds (every seed's similarity to every candidate, then the k best of
     the average); the candidates are the words every slice knows, as in the rank stage.
     """
-    if isinstance(k, bool) or not isinstance(k, int | np.integer) or k < 1:
-        raise DriftError(f"--k must be a whole number of at least 1 (got {k}).")
+    k = options.check_k(k, "--neighbours")
     inputs = read_run_inputs(run)
     per_seed = {
         seed: {label: load_slice_vectors(inputs.paths, label, seed) for label in inputs.labels}
@@ -895,7 +875,7 @@ def neighbours_by_slice(run: str | Path, word: str, k: int = 10) -> pd.DataFrame
     return pd.concat(frames, ignore_index=True)
 
 
-EXPORT_FORMATS = ("word2vec", "npz")
+EXPORT_FORMATS = options.VECTOR_FORMATS
 
 
 def export_vectors(
@@ -913,8 +893,7 @@ def export_vectors(
     (gensim's ``save_word2vec_format``) or ``<label>.npz`` with arrays ``words``, ``vectors``,
     ``counts``. ``reference`` and ``anchors`` default to those of the last ``drift rank``.
     """
-    if fmt not in EXPORT_FORMATS:
-        raise DriftError(f"--format {fmt} is unknown for export; choose word2vec or npz.")
+    options.check_choice(fmt, EXPORT_FORMATS, "--vector-format")
     inputs = read_run_inputs(run)
     recorded = inputs.manifest.get("stages", {}).get("rank", {}).get("params", {})
     reference = reference if reference is not None else recorded.get("reference")

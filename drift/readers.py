@@ -165,10 +165,10 @@ def detect_format(path: Path, fmt: str | None = None) -> str:
         if fmt == "ndjson":
             fmt = "jsonl"
         if fmt not in FORMATS:
-            raise DriftError(f"Unknown --format '{fmt}'; use one of {', '.join(FORMATS)}.")
+            raise DriftError(f"Unknown --input-format '{fmt}'; use one of {', '.join(FORMATS)}.")
         if path.is_dir() and fmt != "txt":
             raise DriftError(
-                f"{path} is a folder; only --format txt reads folders (of .txt files)."
+                f"{path} is a folder; only --input-format txt reads folders (of .txt files)."
             )
         return fmt
     if path.is_dir():
@@ -177,7 +177,7 @@ def detect_format(path: Path, fmt: str | None = None) -> str:
     if suffix in _EXTENSIONS:
         return _EXTENSIONS[suffix]
     raise DriftError(
-        f"Cannot tell the format of {path.name} from its extension; name it with --format "
+        f"Cannot tell the format of {path.name} from its extension; name it with --input-format "
         f"({', '.join(FORMATS)})."
     )
 
@@ -477,7 +477,7 @@ class Reader:
         if offset >= 0 and not (utf16 or utf32):
             raise DriftError(
                 f"{self.path} looks like a binary file, not text (a NUL byte at offset "
-                f"{offset}); check the path, or name the format with --format."
+                f"{offset}); check the path, or name the format with --input-format."
             )
 
     def batches(self) -> Iterator[DocBatch]:  # pragma: no cover - overridden
@@ -540,7 +540,7 @@ class CsvReader(Reader):
             )
         return DriftError(
             f"{self.path} is not a well-formed {self.fmt.upper()} file ({printable(message)}); "
-            "check its delimiter (--delimiter) and quoting, or name the format with --format."
+            "check its delimiter (--delimiter) and quoting, or name the format with --input-format."
         )
 
     def _header(self) -> list[str]:
@@ -736,7 +736,7 @@ class ParquetReader(Reader):
         except (pa.ArrowException, OSError) as exc:
             raise DriftError(
                 f"{self.path} is not a readable Parquet file ({printable(str(exc))}); check the "
-                "file or --format."
+                "file or --input-format."
             ) from None
 
     def position(self) -> int:

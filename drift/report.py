@@ -30,6 +30,7 @@ import plotly.graph_objects as go
 
 from drift import charts, evidence, ranking, runfolder
 from drift.errors import DriftError, unknown_word_error
+from drift.options import ReportOptions
 from drift.runfolder import RunPaths
 
 CAUTION = (
@@ -703,13 +704,16 @@ def _write_word_pages(
     return written
 
 
-def chart_word(run: Path, word: str, *, k: int = 10, examples: int = 3, seed: int = 0) -> Path:
+_REPORT = ReportOptions()  # the defaults of chart_word's and build_report's keyword arguments
+
+
+def chart_word(
+    run: Path, word: str, *, k: int = _REPORT.k, examples: int = _REPORT.examples,
+    seed: int = _REPORT.seed,
+) -> Path:
     """Write the HTML page of ``word`` into RUN/charts/words/ and return its path."""
     run = Path(run)
-    if k < 1:
-        raise DriftError(f"The number of neighbours k must be 1 or more, not {k}.")
-    if examples < 0:
-        raise DriftError(f"The number of examples per slice must be 0 or more, not {examples}.")
+    ReportOptions(k=k, examples=examples, seed=seed)
     data = load_run(run)
     _check_word(data, word)
     paths = RunPaths(run)
@@ -723,12 +727,12 @@ def chart_word(run: Path, word: str, *, k: int = 10, examples: int = 3, seed: in
 
 
 def build_report(
-    run: Path, *, top: int = 20, k: int = 10, examples: int = 3, seed: int = 0
+    run: Path, *, top: int = _REPORT.top, k: int = _REPORT.k, examples: int = _REPORT.examples,
+    seed: int = _REPORT.seed,
 ) -> Path:
     """Write RUN/charts/index.html and the pages of the ``top`` ranked words; return the index."""
     run = Path(run)
-    if top < 0:
-        raise DriftError(f"--top must be 0 or more, not {top}.")
+    ReportOptions(top=top, k=k, examples=examples, seed=seed)
     started = time.perf_counter()
     data = load_run(run)
     paths = RunPaths(run)

@@ -42,6 +42,7 @@ import pyarrow.parquet as pq
 
 from drift import runfolder
 from drift.errors import DriftError
+from drift.options import SliceOptions
 from drift.progress import progress_bars, stderr_console
 from drift.readers import DocBatch, Reader, open_source
 from drift.timeparse import BadDates, day_to_iso, iso_to_day, parse_times, year_of
@@ -851,23 +852,26 @@ def _check_edges(rule: SliceRule, files: _SliceFiles) -> None:
         )
 
 
+_SLICE = SliceOptions()  # the defaults of slice_archive's keyword arguments
+
+
 def slice_archive(
     source: Path | str,
     out: Path | str,
     *,
-    fmt: str | None = None,
-    time_col: str | None = None,
-    text_col: str | None = None,
-    date_format: str | None = None,
-    skip_bad_dates: bool = False,
-    by: str = "year",
-    balance: str | int | None = None,
-    keep_case: bool = False,
-    pretokenized: bool = False,
-    seed: int = 0,
+    fmt: str | None = _SLICE.fmt,
+    time_col: str | None = _SLICE.time_col,
+    text_col: str | None = _SLICE.text_col,
+    date_format: str | None = _SLICE.date_format,
+    skip_bad_dates: bool = _SLICE.skip_bad_dates,
+    by: str = _SLICE.by,
+    balance: str | int | None = _SLICE.balance,
+    keep_case: bool = _SLICE.keep_case,
+    pretokenized: bool = _SLICE.pretokenized,
+    seed: int = _SLICE.seed,
     quiet: bool = False,
-    encoding: str | None = None,
-    delimiter: str | None = None,
+    encoding: str | None = _SLICE.encoding,
+    delimiter: str | None = _SLICE.delimiter,
 ) -> pd.DataFrame:
     """Cut ``source`` into time slices in the run folder ``out`` and return the slice summary.
 

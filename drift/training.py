@@ -27,15 +27,16 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from drift import engines, runfolder
+from drift import engines, options, runfolder
 from drift.errors import DriftError, close_matches
+from drift.options import TrainOptions, check_between
 from drift.progress import progress_bars
 from drift.runfolder import RunPaths
 
 if TYPE_CHECKING:
     import pandas as pd
 
-ARCHITECTURES = ("skipgram", "cbow")
+ARCHITECTURES = options.ARCHITECTURES
 CONTROL_LABELS = ("control-a", "control-b")
 #: Bumped when the way a model is trained or saved changes, so older models are retrained.
 MODEL_FORMAT = 1
@@ -86,34 +87,10 @@ def validate_params(
     base_seed: int,
 ) -> TrainParams:
     """Check every training parameter, raising a DriftError that names the first bad one."""
-    if architecture not in ARCHITECTURES:
-        raise DriftError(
-            f"--architecture must be one of {', '.join(ARCHITECTURES)} (got '{architecture}')."
-        )
-    checks = [
-        (dim >= 2, f"--dim must be at least 2 (got {dim}); 50 to 300 is the usual range."),
-        (window >= 1, f"--window must be at least 1 (got {window}); 5 is a common choice."),
-        (
-            negative >= 1,
-            f"--negative must be at least 1 (got {negative}): drift trains with negative "
-            "sampling; 5 to 20 noise words is the usual range.",
-        ),
-        (
-            0 <= sample < 1,
-            f"--sample must be at least 0 and below 1 (got {sample}); 1e-3 to 1e-5 is usual, "
-            "0 turns sub-sampling off.",
-        ),
-        (epochs >= 1, f"--epochs must be at least 1 (got {epochs})."),
-        (min_count >= 1, f"--min-count must be at least 1 (got {min_count})."),
-        (seeds >= 1, f"--seeds must be at least 1 (got {seeds}); 2 or more measure seed noise."),
-        (
-            0 <= base_seed and base_seed + seeds <= _SEED_LIMIT,
-            f"The base seed must be between 0 and {_SEED_LIMIT - 1 - seeds} (got {base_seed}).",
-        ),
-    ]
-    for ok, message in checks:
-        if not ok:
-            raise DriftError(message)
+    TrainOptions(
+        architecture=architecture, dim=dim, window=window, negative=negative, sample=sample,
+        epochs=epochs, min_count=min_count, seeds=seeds, base_seed=base_seed,
+    )
     return TrainParams(
         architecture=architecture,
         dim=int(dim),
@@ -175,19 +152,7 @@ def resolve_between(labels: list[str], between: tuple[str, str] | list[str] | No
                 "from; slice into two or more periods or pass --no-control."
             )
         return [labels[0], labels[-1]]
-    pair = [str(label) for label in between]
-    if len(pair) != 2:
-        raise DriftError(f"--between takes two slice labels (got {len(pair)}).")
-    for label in pair:
-        if label not in labels:
-            hint = close_matches(label, labels, n=3)
-            suggestion = f"did you mean {', '.join(hint)}? " if hint else ""
-            raise DriftError(
-                f"Slice '{label}' is not in this run; {suggestion}"
-                f"the slices are {', '.join(labels)}."
-            )
-    if pair[0] == pair[1]:
-        raise DriftError(f"--between needs two different slices (got {pair[0]} twice).")
+    pair = check_between(labels, between)
     return pair
 
 
@@ -643,23 +608,26 @@ def _train_pending(
                 bars.done(result["key"])
 
 
+_TRAIN = TrainOptions()  # the defaults of train_run's keyword arguments
+
+
 def train_run(
     run: str | Path,
     *,
-    architecture: str = "skipgram",
-    dim: int = 100,
-    window: int = 5,
-    negative: int = 5,
-    sample: float = 1e-3,
-    epochs: int = 5,
-    min_count: int = 20,
-    seeds: int = 2,
-    workers: int | None = None,
+    architecture: str = _TRAIN.architecture,
+    dim: int = _TRAIN.dim,
+    window: int = _TRAIN.window,
+    negative: int = _TRAIN.negative,
+    sample: float = _TRAIN.sample,
+    epochs: int = _TRAIN.epochs,
+    min_count: int = _TRAIN.min_count,
+    seeds: int = _TRAIN.seeds,
+    workers: int | None = _TRAIN.workers,
     between: tuple[str, str] | list[str] | None = None,
     control: bool = True,
-    engine: str = "local",
-    scheduler: str | None = None,
-    base_seed: int = 1,
+    engine: str = _TRAIN.engine,
+    scheduler: str | None = _TRAIN.scheduler,
+    base_seed: int = _TRAIN.base_seed,
     quiet: bool = False,
 ) -> pd.DataFrame:
     """Train every slice-by-seed model of a run (and the control pair), reusing finished ones.
@@ -682,10 +650,7 @@ def train_run(
         seeds=seeds,
         base_seed=base_seed,
     )
-    if engine not in engines.ENGINES:
-        raise DriftError(f"--engine must be one of {', '.join(engines.ENGINES)} (got '{engine}').")
-    if scheduler and engine != "dask":
-        raise DriftError("--scheduler only applies with --engine dask; add --engine dask.")
+    TrainOptions(engine=engine, scheduler=scheduler, workers=workers)
     remote = engine == "dask" and bool(scheduler)
     cores = _resolve_workers(workers)
     paths = runfolder.existing_run(Path(run), needs="slices")

@@ -16,6 +16,8 @@ from drift.cli import main
 
 LABELS = ("2001", "2002", "2003")
 MOVED = ["harbour", "signal", "current"]
+JSON = ("--output-format", "json")
+CSV = ("--output-format", "csv")
 
 
 @pytest.fixture(scope="module")
@@ -55,7 +57,7 @@ def _drift(args, capsys):
 
 
 def test_rank_json_rows(run, capsys):
-    args = ["rank", run, "--k", "8", "--format", "json", "--top", "5", "-q"]
+    args = ["rank", run, "--k", "8", *JSON, "--top", "5", "-q"]
     code, out, err = _drift(args, capsys)
     assert code == 0, err
     rows = json.loads(out)
@@ -70,7 +72,7 @@ def test_rank_json_rows(run, capsys):
 
 
 def test_rank_json_nan_is_null(run, capsys, tmp_path):
-    code, out, _ = _drift(["rank", run, "--k", "8", "--format", "json", "--all", "-q"], capsys)
+    code, out, _ = _drift(["rank", run, "--k", "8", *JSON, "--all", "-q"], capsys)
     assert code == 0
     rows = json.loads(out)  # NaN would not parse as strict JSON
     assert len(rows) == 304
@@ -79,7 +81,7 @@ def test_rank_json_nan_is_null(run, capsys, tmp_path):
 
 def test_rank_csv_and_min_count(run, capsys):
     code, out, _ = _drift(
-        ["rank", run, "--k", "8", "--format", "csv", "--all", "--min-count", "100", "-q"], capsys
+        ["rank", run, "--k", "8", *CSV, "--all", "--min-count-shown", "100", "-q"], capsys
     )
     assert code == 0
     table = pd.read_csv(io.StringIO(out))
@@ -99,7 +101,7 @@ def test_rank_table_shows_words_as_typed(run, capsys):
 def test_rank_options_between_reference_measure(run, capsys):
     code, out, err = _drift(
         ["rank", run, "--k", "8", "--between", "2002", "2003", "--reference", "2002",
-         "--measure", "turnover", "--anchors", "100", "--format", "json", "--top", "3", "-q"],
+         "--measure", "turnover", "--anchors", "100", *JSON, "--top", "3", "-q"],
         capsys,
     )
     assert code == 0, err
@@ -115,7 +117,7 @@ def test_rank_options_between_reference_measure(run, capsys):
     [
         (["--between", "2001", "2009"], "--between 2009 is not a slice of this run"),
         (["--measure", "speed"], "--measure speed is unknown"),
-        (["--format", "xml"], "--format xml is unknown"),
+        (["--output-format", "xml"], "--output-format xml is unknown"),
         (["--anchors", "missing-file.txt"], "neither a number of words nor an existing"),
         (["--alpha", "0"], "--alpha must lie strictly between 0 and 1"),
         (["--top", "0"], "--top must be at least 1"),
@@ -134,11 +136,11 @@ def test_rank_missing_run_exits_2(tmp_path, capsys):
 
 
 def test_neighbours_table_and_json(run, capsys):
-    code, out, _ = _drift(["neighbours", run, "harbour", "--k", "4"], capsys)
+    code, out, _ = _drift(["neighbours", run, "harbour", "--neighbours", "4"], capsys)
     assert code == 0
     assert "Nearest neighbours of 'harbour' per slice" in out
     assert all(label in out for label in LABELS)
-    code, out, _ = _drift(["neighbours", run, "harbour", "--k", "4", "--format", "json"], capsys)
+    code, out, _ = _drift(["neighbours", run, "harbour", "--neighbours", "4", *JSON], capsys)
     rows = json.loads(out)
     assert len(rows) == 12 and {r["slice"] for r in rows} == set(LABELS)
 
@@ -150,37 +152,122 @@ def test_neighbours_unknown_word_suggests_close_ones(run, capsys):
 
 
 def test_export_word2vec_and_npz(run, capsys, tmp_path):
-    code, out, _ = _drift(["export", run, "--format", "word2vec", "--out", tmp_path / "w"], capsys)
+    code, out, _ = _drift(["export", run, "--vector-format", "word2vec", "-o", tmp_path / "w"],
+                          capsys)
     assert code == 0
     files = out.split()
     assert [p.rsplit("/", 1)[-1] for p in files] == ["2001.txt", "2002.txt", "2003.txt"]
     first = KeyedVectors.load_word2vec_format(files[0])
     second = KeyedVectors.load_word2vec_format(files[1])
     assert first["w0"] @ second["w0"] > 0.95  # aligned onto the reference slice
-    code, out, _ = _drift(["export", run, "--format", "npz", "--out", tmp_path / "n"], capsys)
+    code, out, _ = _drift(["export", run, "--vector-format", "npz", "-o", tmp_path / "n"], capsys)
     assert code == 0
     with np.load(out.split()[0]) as data:
         assert data["vectors"].shape == (304, 12)
-    code, _, err = _drift(["export", run, "--format", "glove", "--out", tmp_path / "g"], capsys)
-    assert code == 2 and "unknown for export" in err
+    code, _, err = _drift(["export", run, "--vector-format", "glove", "-o", tmp_path / "g"], capsys)
+    assert code == 2 and "--vector-format glove is unknown" in err
 
 
-def test_scores_table_compact_on_narrow_screens(run):
+def _render(table, width):
     from rich.console import Console
 
+    console = Console(width=width, record=True)
+    console.print(table)
+    return console.export_text()
+
+
+def test_scores_table_fits_80_columns_without_cutting_words(run):
+    from drift.cli.rank_views import DROP_ORDER, SHOWN_NEIGHBOURS, scores_table
+    from drift.ranking import rank_record, rank_run
+
+    rows = rank_run(run, k=8, quiet=True).head(4).copy()
+    rows.loc[rows.index[0], "word"] = "counterrevolutionaries"  # longer than any column's share
+    rows.loc[rows.index[1], "gained"] = "telecommunications harbour signal current w1 w2 w3"
+    params = rank_record(run)["params"]
+    table = scores_table(rows, params, True, 80)
+    text = _render(table, 80)
+    assert max(len(line) for line in text.splitlines()) <= 80
+    tokens = set(text.split())
+    assert set(rows["word"]) <= tokens  # every word whole, on one line
+    headers = [str(c.header) for c in table.columns]
+    if "gained" in headers:  # neighbour lists wrap between words, never inside one
+        shown = "telecommunications harbour signal current w1".split()[:SHOWN_NEIGHBOURS]
+        assert set(shown) <= tokens
+    if "count" in headers:
+        assert f"{rows['count_from'].iloc[0]} → {rows['count_to'].iloc[0]}" in text
+    # whole columns go, in the stated order, and the caption names them
+    every = ["#", "word", "displ.", "turnover", "local", "z", "q", "count", "change", "gained",
+             "lost"]
+    dropped = [name for name in every if name not in headers]
+    names = {"displ.": "displacement"}
+    dropped = [names.get(name, name) for name in dropped]
+    assert dropped, "80 columns cannot hold every column of this table"
+    in_order = [key for key in DROP_ORDER if key != "displacement"][: len(dropped)]
+    assert sorted(dropped) == sorted(in_order)
+    assert f"Not shown at this width: {', '.join(in_order)} (" in table.caption.plain
+    assert {"#", "word", "displ.", "q"} <= set(headers)
+
+
+def test_scores_table_whole_when_no_width(run):
     from drift.cli.rank_views import scores_table
     from drift.ranking import rank_record, rank_run
 
     rows = rank_run(run, k=8, quiet=True).head(3)
-    params = rank_record(run)["params"]
-    wide, narrow = scores_table(rows, params, True, 160), scores_table(rows, params, True, 80)
-    assert [str(c.header) for c in wide.columns] == [
+    table = scores_table(rows, rank_record(run)["params"], True, None)
+    assert [str(c.header) for c in table.columns] == [
         "#", "word", "displ.", "turnover", "local", "z", "q", "count", "change", "gained", "lost",
     ]
-    assert [str(c.header) for c in narrow.columns] == [
-        "#", "word", "displ.", "z", "q", "count", "change", "gained",
-    ]
-    console = Console(width=80, record=True)
-    console.print(narrow)
-    text = console.export_text()
-    assert all(word in text for word in rows["word"]), text
+    assert "Not shown" not in table.caption.plain
+    first = rows.iloc[0]
+    assert f"{first['count_from']} → {first['count_to']}" in _render(table, 400)
+
+
+@pytest.mark.parametrize("command", [["rank", "--k", "8", "--top", "3", "-q"],
+                                     ["neighbours", "harbour", "--neighbours", "3"]])
+def test_piped_tables_are_whole(run, capsys, tmp_path, command):
+    """Into a pipe (capsys is not a terminal) or a file a table keeps every column and word."""
+    name, *rest = command
+    code, out, _ = _drift([name, run, *rest], capsys)
+    assert code == 0
+    assert "Not shown" not in out and "not shown" not in out
+    assert "\x1b[" not in out  # no colour codes
+    code, _, _ = _drift([name, run, *rest, "-o", tmp_path / "table.txt"], capsys)
+    assert code == 0 and (tmp_path / "table.txt").read_text(encoding="utf-8") == out
+    if name == "rank":
+        assert all(h in out for h in ("local", "turnover", "lost", "change"))
+        assert len(max(out.splitlines(), key=len)) > 80
+    else:
+        assert all(label in out for label in LABELS)
+
+
+def test_neighbours_table_drops_inner_slices_first(run):
+    from drift.cli.rank_views import neighbours_table
+    from drift.ranking import neighbours_by_slice
+
+    frame = neighbours_by_slice(run, "harbour", k=3)
+    table = neighbours_table("harbour", frame, list(LABELS), 40)
+    text = _render(table, 40)
+    assert max(len(line) for line in text.splitlines()) <= 40
+    headers = [str(c.header) for c in table.columns]
+    assert headers == ["#", "2001", "2003"]
+    assert "Slices not shown at this width: 2002" in table.caption.plain
+    for neighbour in frame[frame["slice"] != "2002"]["neighbour"]:
+        assert neighbour in text.split()  # the word and its similarity may wrap apart, not the word
+
+
+def test_rank_output_file_csv(run, capsys, tmp_path):
+    target = tmp_path / "top.csv"
+    code, out, _ = _drift(
+        ["rank", run, "--k", "8", "--top", "4", *CSV, "-o", target, "-q"],
+        capsys,
+    )
+    assert code == 0 and out == ""
+    assert len(pd.read_csv(target)) == 4
+
+
+def test_slices_drop_from_the_middle_outwards():
+    from drift.cli.rank_views import _slice_drop_order
+
+    decades = ["1950s", "1960s", "1970s", "1980s", "1990s", "2000s"]
+    assert _slice_drop_order(decades) == ("1970s", "1980s", "1960s", "1990s")
+    assert _slice_drop_order(decades[:2]) == ()

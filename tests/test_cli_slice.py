@@ -98,10 +98,12 @@ def test_unknown_format(tmp_path, capsys):
     path = tmp_path / "data.xlsx"
     path.write_text("x")
     assert_bad_input(
-        [path, "--out", tmp_path / "run"], capsys, "Cannot tell the format", "--format"
+        [path, "--out", tmp_path / "run"], capsys, "Cannot tell the format", "--input-format"
     )
     assert_bad_input(
-        [path, "--out", tmp_path / "run", "--format", "xls"], capsys, "Unknown --format 'xls'"
+        [path, "--out", tmp_path / "run", "--input-format", "xls"],
+        capsys,
+        "Unknown --input-format 'xls'",
     )
 
 

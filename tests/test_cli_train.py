@@ -68,7 +68,7 @@ def test_no_control_says_ranking_will_have_no_p_values(run, capsys):
 def test_cbow_and_other_values_are_recorded(run, capsys):
     args = ["train", str(run), "--architecture", "cbow", "--dim", "6", "--window", "3",
             "--negative", "2", "--sample", "0", "--epochs", "1", "--min-count", "3",
-            "--seeds", "1", "--workers", "1", "--base-seed", "7", "--no-control", "-q"]
+            "--seeds", "1", "--workers", "1", "--seed", "7", "--no-control", "-q"]
     code, _, err = drift(args, capsys)
     assert code == 0, err
     params = runfolder.read_manifest(run)["stages"]["train"]["params"]
@@ -80,12 +80,12 @@ def test_cbow_and_other_values_are_recorded(run, capsys):
 @pytest.mark.parametrize(
     ("args", "says"),
     [
-        (["--dim", "1"], "--dim must be at least 2"),
-        (["--window", "0"], "--window must be at least 1"),
-        (["--negative", "0"], "--negative must be at least 1"),
+        (["--dim", "1"], "--dim must be a whole number of at least 2"),
+        (["--window", "0"], "--window must be a whole number of at least 1"),
+        (["--negative", "0"], "--negative must be a whole number of at least 1"),
         (["--min-count", "100000"], "lower --min-count"),
-        (["--between", "2001", "1999"], "'1999' is not in this run"),
-        (["--engine", "spark"], "--engine must be one of local, dask"),
+        (["--between", "2001", "1999"], "--between 1999 is not a slice of this run"),
+        (["--engine", "spark"], "--engine spark is unknown; choose one of local, dask"),
     ],
 )
 def test_bad_input_exits_2_with_one_sentence(run, capsys, args, says):
@@ -118,32 +118,55 @@ def _finished(root: Path) -> dict[str, int]:
     return found
 
 
-def _children(pid: int) -> list:
-    try:
-        import psutil
-    except ImportError:  # the check of leftover workers is skipped without psutil
-        return []
-    return psutil.Process(pid).children(recursive=True)
+#: Runs `drift train` and kills its own process (SIGKILL: no clean-up runs) right after the
+#: parent has received the KILL_AFTER-th finished model: a kill at a known point, not a race.
+_KILLED_TRAIN = """
+import os, signal, sys
+from drift import training
+from drift.cli import main
+
+received = 0
+keep = training._result_row
+
+
+def result_row(*args, **kwargs):
+    global received
+    row = keep(*args, **kwargs)
+    received += 1
+    if received == int(os.environ["KILL_AFTER"]):
+        os.kill(os.getpid(), signal.SIGKILL)
+    return row
+
+
+training._result_row = result_row
+main(sys.argv[1:])
+"""
 
 
 @pytest.mark.slow
 def test_a_killed_run_resumes_without_retraining_finished_models(run):
-    command = [sys.executable, "-m", "drift", "train", str(run), "--dim", "8", "--epochs", "2",
-               "--min-count", "2", "--seeds", "2", "--workers", "2", "--quiet"]
-    process = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=subprocess.PIPE)
-    deadline = time.monotonic() + 120
-    while not _finished(run) and time.monotonic() < deadline and process.poll() is None:
-        time.sleep(0.05)
-    workers = _children(process.pid)
-    os.kill(process.pid, signal.SIGKILL)
-    process.wait()
+    import psutil
+
+    args = ["train", str(run), "--dim", "8", "--epochs", "2", "--min-count", "2", "--seeds", "2",
+            "--workers", "2", "--quiet"]
+    env = {**os.environ, "KILL_AFTER": "2"}
+    process = psutil.Popen([sys.executable, "-c", _KILLED_TRAIN, *args], env=env,
+                           stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    workers: set = set()
+    while process.poll() is None:  # note the pool workers while the parent lives
+        try:
+            workers.update(process.children(recursive=True))
+        except psutil.NoSuchProcess:
+            break
+        time.sleep(0.02)
+    assert process.returncode == -signal.SIGKILL, process.stderr.read().decode()
     # pool workers notice that their parent is gone and stop (one may finish its model first)
-    for worker in workers:
-        worker.wait(timeout=15)
+    gone, alive = psutil.wait_procs(list(workers), timeout=30)
+    assert not alive, f"workers left running after the kill: {alive}"
     done_before = _finished(run)
-    assert done_before, "no model finished before the kill"
     expected = 10  # 3 slices x 2 seeds + the control pair x 2 seeds
-    assert len(done_before) < expected, "the run finished before it could be killed"
+    # the 2 the parent received, and any a worker finished before it noticed
+    assert 2 <= len(done_before) < expected
 
     # nothing half-written where a finished model is expected: every .kv present loads
     from gensim.models import KeyedVectors
@@ -151,6 +174,7 @@ def test_a_killed_run_resumes_without_retraining_finished_models(run):
     for model in run.rglob("*.kv"):
         assert len(KeyedVectors.load(str(model))) > 0
 
+    command = [sys.executable, "-m", "drift", *args]
     rerun = subprocess.run(command, capture_output=True, text=True, timeout=300)
     assert rerun.returncode == 0, rerun.stderr
     assert f"{len(done_before)} reused" in rerun.stdout

@@ -92,7 +92,7 @@ def test_drift_run_goes_from_a_csv_to_a_report(small_demo_archive, tmp_path):
     assert done.returncode == 0, done.stderr
     assert (out / "charts" / "index.html").exists()
     ranked = subprocess.run(
-        [sys.executable, "-m", "drift", "rank", str(out), "--format", "json", "--top", "5"],
+        [sys.executable, "-m", "drift", "rank", str(out), "--output-format", "json", "--top", "5"],
         capture_output=True, text=True, timeout=300,
     )
     rows = json.loads(ranked.stdout)

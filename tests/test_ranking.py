@@ -241,7 +241,7 @@ def test_between_reference_and_anchors(geometry_run, tmp_path):
 @pytest.mark.parametrize(
     ("options", "message"),
     [
-        ({"between": ["2001", "1999"]}, "1999 is not a slice of this run; its slices are 2001, 2"),
+        ({"between": ["2001", "1999"]}, "1999 is not a slice of this run; the slices are 2001, 2"),
         ({"between": ["2002", "2002"]}, "names slice 2002 twice"),
         ({"between": ["2002"]}, "takes two slice labels"),
         ({"reference": "1990"}, "--reference 1990 is not a slice"),
@@ -317,7 +317,7 @@ def test_export_aligned_vectors(geometry_run, tmp_path):
         words = data["words"].tolist()
         np.testing.assert_allclose(data["vectors"][words.index("w0")], last["w0"], atol=1e-6)
         assert data["counts"][words.index("newword")] == 300
-    with pytest.raises(DriftError, match="unknown for export"):
+    with pytest.raises(DriftError, match="--vector-format .* is unknown"):
         export_vectors(root, tmp_path / "x", "glove")
     (tmp_path / "file").write_text("x")
     with pytest.raises(DriftError, match="is a file"):
@@ -332,7 +332,7 @@ def test_top_rows_filters(geometry_run):
     assert (frequent[["count_from", "count_to"]] >= 1000).all().all()
     with pytest.raises(DriftError, match="--top must be at least 1"):
         top_rows(scores, top=0)
-    with pytest.raises(DriftError, match="--min-count must be 0 or more"):
+    with pytest.raises(DriftError, match="--min-count-shown must be 0 or more"):
         top_rows(scores, min_count=-1)
 
 

@@ -198,9 +198,9 @@ def test_format_detection_and_override(tmp_path):
     assert detect_format(tmp_path) == "txt"
     with pytest.raises(DriftError, match="Cannot tell the format"):
         detect_format(Path("a.dat"))
-    with pytest.raises(DriftError, match="Unknown --format 'xls'"):
+    with pytest.raises(DriftError, match="Unknown --input-format 'xls'"):
         detect_format(Path("a.csv"), "xls")
-    with pytest.raises(DriftError, match="only --format txt reads folders"):
+    with pytest.raises(DriftError, match="only --input-format txt reads folders"):
         detect_format(tmp_path, "csv")
     # compression is recognised from the content, whatever the name says
     path = tmp_path / "plain-name.dat"

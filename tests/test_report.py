@@ -250,9 +250,9 @@ def test_missing_folder_is_a_clear_error(tmp_path):
 @pytest.mark.parametrize(
     "call, message",
     [
-        (lambda run: report.chart_word(run, WORD, k=0), "k must be 1 or more"),
-        (lambda run: report.chart_word(run, WORD, examples=-1), "0 or more"),
-        (lambda run: report.build_report(run, top=-1), "--top must be 0 or more"),
+        (lambda run: report.chart_word(run, WORD, k=0), "--neighbours must be a whole number"),
+        (lambda run: report.chart_word(run, WORD, examples=-1), "--examples must be a whole"),
+        (lambda run: report.build_report(run, top=-1), "--top must be a whole number"),
     ],
 )
 def test_bad_numbers_are_clear_errors(run, call, message):

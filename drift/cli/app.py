@@ -14,6 +14,29 @@ app = typer.Typer(
 )
 
 
+#: Help texts of the options every command spells the same way.
+QUIET_HELP = "No progress bars or notes (warnings still print)."
+OPEN_HELP = "Open the page in the default browser."
+
+
+def _show_version(value: bool) -> None:
+    if value:
+        from drift import __version__
+
+        typer.echo(f"drift {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def _main(
+    version: bool = typer.Option(
+        False, "--version", help="Print drift's version and exit.", callback=_show_version,
+        is_eager=True,
+    ),
+) -> None:
+    """Find which words changed meaning across a dated text archive, when, and how."""
+
+
 def open_in_browser(path: str) -> None:
     """Open a local HTML file in the default browser (used by --open)."""
     import webbrowser

@@ -2,12 +2,15 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
 from pathlib import Path
 
 import typer
 
-from drift.cli.app import app
+from drift.cli.app import QUIET_HELP
+from drift.cli.options_cli import command
 from drift.errors import DriftError
+from drift.options import SliceOptions
 
 _EXTRA_ARGS = {"allow_extra_args": True}
 
@@ -31,7 +34,7 @@ def _is_count(text: str) -> bool:
     return text.replace("_", "").replace(",", "").isdigit()
 
 
-@app.command("slice", context_settings=_EXTRA_ARGS)
+@command("slice", context_settings=_EXTRA_ARGS)
 def slice_command(
     ctx: typer.Context,
     source: str = typer.Argument(
@@ -39,77 +42,18 @@ def slice_command(
         help="CSV, TSV, JSON Lines, Parquet, or a folder of .txt files; may be .gz, .bz2 or .xz.",
     ),
     out: Path = typer.Option(..., "--out", "-o", help="Run folder to write (made if missing)."),
-    fmt: str = typer.Option(
-        None, "--format", help="csv, tsv, jsonl, parquet or txt (default: from the extension)."
-    ),
-    time_col: str = typer.Option(
-        None, "--time-col", help="Column with the dates (default: date, time, year or timestamp)."
-    ),
-    text_col: str = typer.Option(
-        None, "--text-col", help="Column with the text (default: text, body or content)."
-    ),
-    date_format: str = typer.Option(
-        None, "--date-format", help="strptime layout of the dates, e.g. '%d/%m/%Y'."
-    ),
-    encoding: str = typer.Option(
-        None,
-        "--encoding",
-        help="Text encoding, e.g. cp1252 or latin-1 (default: UTF-8; cp1252 when a file is not "
-        "UTF-8).",
-    ),
-    delimiter: str = typer.Option(
-        None, "--delimiter", help="Field separator of a CSV file, e.g. ';', '|' or tab."
-    ),
-    skip_bad_dates: bool = typer.Option(
-        False, "--skip-bad-dates", help="Drop documents whose date does not parse."
-    ),
-    by: str = typer.Option(
-        "year", "--by", help="year, decade, Ny (e.g. 5y), edges:1990,2000,2010 or even:K."
-    ),
-    balance: bool = typer.Option(
-        False,
-        "--balance",
-        help="Down-sample every slice to the smallest slice's tokens; '--balance N' to N tokens.",
-    ),
-    keep_case: bool = typer.Option(
-        False, "--keep-case", help="Keep upper case (default: lower-case every token)."
-    ),
-    pretokenized: bool = typer.Option(False, "--pretokenized", help="Split on white space only."),
-    seed: int = typer.Option(0, "--seed", help="Seed of the random down-sampling of --balance."),
-    quiet: bool = typer.Option(
-        False, "--quiet", "-q", help="No progress bar or notes (warnings still print)."
-    ),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help=QUIET_HELP),
+    options: SliceOptions = SliceOptions(),
 ) -> None:
     """Cut a dated archive into time slices of tokenized text, with word counts per slice.
 
     Writes RUN/slices/<label>.txt, RUN/slices/summary.csv, RUN/counts.parquet and RUN/run.json.
     """
-    from rich.console import Console
-
+    from drift.cli.rank_views import print_table
     from drift.slicing import slice_archive, summary_table
 
-    balance_option, source = balance_value(balance, list(ctx.args), source)
-    summary = slice_archive(
-        Path(source),
-        out,
-        fmt=fmt,
-        time_col=time_col,
-        text_col=text_col,
-        date_format=date_format,
-        skip_bad_dates=skip_bad_dates,
-        by=by,
-        balance=balance_option,
-        keep_case=keep_case,
-        pretokenized=pretokenized,
-        seed=seed,
-        quiet=quiet,
-        encoding=encoding,
-        delimiter=delimiter,
-    )
+    balance, source = balance_value(bool(options.balance), list(ctx.args), source)
+    options = replace(options, balance=balance)
+    summary = slice_archive(Path(source), out, quiet=quiet, **options.kwargs())
     title = f"Slices in {out}" + (" (reused)" if summary.attrs.get("reused") else "")
-    table = summary_table(summary, title=title)
-    console = Console()
-    needed = console.measure(table, options=console.options.update_width(1000)).maximum
-    if needed > console.width:  # never crop the table (e.g. long date-range labels in a pipe)
-        console = Console(width=needed)
-    console.print(table)
+    print_table(lambda width: summary_table(summary, title=title))

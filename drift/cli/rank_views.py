@@ -1,4 +1,11 @@
-"""How the rank commands look in a terminal: rich tables of scores and of neighbours.
+"""How commands look in a terminal: tables that fit the screen, and the same rule for pipes.
+
+* On a terminal a table fits its width: no word is ever cut; when the columns do not fit, whole
+  columns are dropped in a stated order (:data:`DROP_ORDER`) and a footnote names them; lists of
+  neighbours wrap between words.
+* Into a file or a pipe (or ``-o FILE``) a table is printed whole, at the width it needs, without
+  colour, so that nothing is dropped or cropped; ``--output-format csv`` or ``json`` give rows for
+  programs instead. Every command that prints a table follows this rule (:func:`print_table`).
 
 Words are data from strangers: every cell is a :class:`rich.text.Text`, so a word such as
 ``[bold]`` is shown as typed and never read as console markup.
@@ -7,16 +14,87 @@ Words are data from strangers: every cell is a :class:`rich.text.Text`, so a wor
 from __future__ import annotations
 
 import math
-from typing import Any
+import sys
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import IO, Any
 
 import pandas as pd
+from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
-#: Neighbours shown per cell in the scores table (the files hold all of them).
-SHOWN_NEIGHBOURS = 4
-#: Narrower screens get the compact scores table.
-COMPACT_WIDTH = 130
+#: Neighbours shown per cell in the scores table, strongest first (the files hold up to 10).
+SHOWN_NEIGHBOURS = 5
+#: Columns of the scores table dropped first when the screen is too narrow, in this order.
+#: The rank, the word, the ranking measure and q are never dropped.
+DROP_ORDER = ("local", "turnover", "displacement", "lost", "change", "count", "gained", "z")
+#: Arrow between the counts in the two compared slices (``163 → 165``).
+ARROW = "→"
+#: Room a column takes besides its text: one space of padding each side and one rule.
+_COLUMN_EXTRA = 3
+#: Wrapped lists never get narrower than this (or than their longest word).
+_LIST_MIN = 12
+
+
+@dataclass
+class _Column:
+    key: str
+    header: str
+    justify: str = "right"
+    cells: list[Text] = field(default_factory=list)
+    wraps: bool = False  # a list of words that may wrap between words
+    underline: bool = False
+
+    def natural(self) -> int:
+        return max([len(self.header)] + [c.cell_len for c in self.cells])
+
+    def narrowest(self) -> int:
+        """The least width that cuts no word: the longest word for wrapping lists."""
+        if not self.wraps:
+            return self.natural()
+        longest = max([len(self.header)] + [len(w) for c in self.cells for w in c.plain.split()])
+        return min(self.natural(), max(longest, _LIST_MIN))
+
+
+def _fit(
+    columns: list[_Column], width: int, order: tuple[str, ...]
+) -> tuple[list[_Column], list[str]]:
+    """Drop columns in ``order`` until the rest fit ``width``; return (kept, dropped keys)."""
+    kept = list(columns)
+    dropped: list[str] = []
+
+    def needed() -> int:
+        return sum(c.narrowest() + _COLUMN_EXTRA for c in kept) + 1
+
+    for key in order:
+        if needed() <= width:
+            break
+        if any(c.key == key for c in kept):
+            kept = [c for c in kept if c.key != key]
+            dropped.append(key)
+    return kept, dropped
+
+
+def _table(columns: list[_Column], title: Any, notes: list[str]) -> Table:
+    table = Table(title=title, title_justify="left", caption_justify="left")
+    for column in columns:
+        header = Text(column.header, style="bold underline" if column.underline else "bold")
+        if column.wraps:
+            table.add_column(
+                header, justify=column.justify, overflow="fold", min_width=column.narrowest()
+            )
+        else:
+            table.add_column(header, justify=column.justify, no_wrap=True)
+    for cells in zip(*(c.cells for c in columns), strict=True):
+        table.add_row(*cells)
+    if notes:
+        table.caption = Text(" ".join(notes))
+    return table
+
+
+# ---------------------------------------------------------------------------- cells
 
 
 def _number(value: Any, digits: int = 3) -> str:
@@ -40,82 +118,173 @@ def _change_cell(row: Any) -> Text:
     return Text(f"{row.change_point} ({row.change_step:+.2f})")
 
 
+def count_cell(count_from: Any, count_to: Any) -> Text:
+    """The counts in the two compared slices, e.g. ``163 → 165``."""
+    return Text(f"{count_from} {ARROW} {count_to}")
+
+
 def _first_words(value: Any) -> Text:
     words = value.split() if isinstance(value, str) else []
-    more = len(words) - SHOWN_NEIGHBOURS
-    shown = " ".join(words[:SHOWN_NEIGHBOURS]) + (f" +{more}" if more > 0 else "")
-    return Text(shown or "-")
+    return Text(" ".join(words[:SHOWN_NEIGHBOURS]) or "-")
+
+
+# ---------------------------------------------------------------------------- scores
 
 
 def scores_table(
-    rows: pd.DataFrame, params: dict[str, Any], calibrated: bool, width: int = 160
+    rows: pd.DataFrame, params: dict[str, Any], calibrated: bool, width: int | None = 160
 ) -> Table:
-    """The top words: rank, word, the measures (the ranking one underlined), q, counts, change
-    point and the strongest neighbours gained and lost. Below ``COMPACT_WIDTH`` columns of
-    screen only the ranking measure and the neighbours gained are shown."""
+    """The top words: rank, word, the measures (the ranking one underlined), z, q, counts,
+    change point and the strongest neighbours gained and lost.
+
+    With ``width`` the table fits that many columns of screen: columns are dropped in
+    :data:`DROP_ORDER` and the caption names them. ``width=None`` keeps every column.
+    """
     first, last = params.get("between", ["?", "?"])
     measure = params.get("measure", "score")
-    table = Table(
-        title=(
-            f"Words that changed most from {first} to {last} "
-            f"(ranked by z: {measure} beyond what frequency explains)"
-            if calibrated
-            else f"Words that changed most from {first} to {last} (ranked by {measure})"
-        ),
-        caption=(
-            f"q: Benjamini-Hochberg q against the control null; * significant at alpha "
-            f"{params.get('alpha', 0.05)}. change: first slice after the change point "
-            f"(step in distance from {params.get('reference', first)})."
-            if calibrated
-            else "No control pair in this run: no z, p or q; the ranking is descriptive."
-        ),
-        title_justify="left",
-        caption_justify="left",
-    )
-    compact = width < COMPACT_WIDTH
-    measures = [measure] if compact else ["displacement", "turnover", "local"]
+    short = {"displacement": "displ.", "combined": "comb."}
+    measures = ["displacement", "turnover", "local"]
     if measure not in measures:
         measures.insert(0, measure)
-    lists = ["gained"] if compact else ["gained", "lost"]
-    short = {"displacement": "displ.", "combined": "comb."}
-    columns = [("#", "right"), ("word", "left")] + [(m, "right") for m in measures]
-    columns += [("z", "right")] if calibrated else []
-    columns += [("q", "right"), ("count", "right"), ("change", "left")]
-    for name, justify in columns:
-        header = Text(short.get(name, name), style="bold underline" if name == measure else "bold")
-        table.add_column(header, justify=justify, no_wrap=True)
-    for name in lists:
-        table.add_column(Text(name, style="bold"), overflow="fold", ratio=1, min_width=12)
+    columns = [_Column("#", "#"), _Column("word", "word", justify="left")]
+    columns += [_Column(m, short.get(m, m), underline=m == measure) for m in measures]
+    columns += [_Column("z", "z")] if calibrated else []
+    columns += [
+        _Column("q", "q"),
+        _Column("count", "count"),
+        _Column("change", "change", justify="left"),
+    ]
+    columns += [_Column(name, name, justify="left", wraps=True) for name in ("gained", "lost")]
+    cell = {c.key: c.cells for c in columns}
     for row in rows.itertuples(index=False):
         values = row._asdict()
-        table.add_row(
-            Text(str(row.rank)),
-            Text(str(row.word)),
-            *(Text(_number(values["score" if m == measure else m])) for m in measures),
-            *([Text(_number(row.z, 1))] if calibrated else []),
-            _q_cell(row),
-            Text(f"{row.count_from}>{row.count_to}"),
-            _change_cell(row),
-            *(_first_words(getattr(row, name)) for name in lists),
+        cell["#"].append(Text(str(row.rank)))
+        cell["word"].append(Text(str(row.word)))
+        for m in measures:
+            cell[m].append(Text(_number(values["score" if m == measure else m])))
+        if calibrated:
+            cell["z"].append(Text(_number(row.z, 1)))
+        cell["q"].append(_q_cell(row))
+        cell["count"].append(count_cell(row.count_from, row.count_to))
+        cell["change"].append(_change_cell(row))
+        cell["gained"].append(_first_words(row.gained))
+        cell["lost"].append(_first_words(row.lost))
+    order = tuple(key for key in DROP_ORDER if key != measure)
+    kept, dropped = _fit(columns, width, order) if width else (columns, [])
+    shown = {c.key for c in kept}
+    notes = [
+        f"z: {measure} beyond what the word's frequency explains (control null); q: "
+        f"Benjamini-Hochberg q, * significant at alpha {params.get('alpha', 0.05)}."
+        if calibrated
+        else "No control pair in this run: no z, p or q; the ranking is descriptive."
+    ]
+    if "count" in shown:
+        notes.append(f"count: occurrences in {first} {ARROW} {last}.")
+    if "change" in shown:
+        notes.append(
+            f"change: first slice after the change point (step in distance from "
+            f"{params.get('reference', first)})."
         )
-    return table
+    if shown & {"gained", "lost"}:
+        notes.append(
+            f"{', '.join(k for k in ('gained', 'lost') if k in shown)}: neighbours, "
+            f"strongest first (at most {SHOWN_NEIGHBOURS} shown; scores.csv has them all)."
+        )
+    if dropped:
+        notes.append(
+            f"Not shown at this width: {', '.join(dropped)} "
+            "(a wider screen, -o FILE or --output-format csv shows them)."
+        )
+    title = (
+        f"Words that changed most from {first} to {last} "
+        f"(ranked by z: {measure} beyond what frequency explains)"
+        if calibrated
+        else f"Words that changed most from {first} to {last} (ranked by {measure})"
+    )
+    return _table(kept, title, notes)
 
 
-def neighbours_table(word: str, frame: pd.DataFrame, labels: list[str]) -> Table:
-    """One column per slice, one row per neighbour rank: 'neighbour similarity'."""
-    table = Table(title=Text(f"Nearest neighbours of '{word}' per slice"), title_justify="left")
-    table.add_column("#", justify="right")
+# ---------------------------------------------------------------------------- neighbours
+
+
+def _slice_drop_order(shown: list[str]) -> tuple[str, ...]:
+    """Slices dropped first on narrow screens: the inner ones, from the middle outwards; the first
+    and the last slice stay."""
+    inner = shown[1:-1]
+    middle = (len(inner) - 1) / 2
+    return tuple(sorted(inner, key=lambda label: abs(inner.index(label) - middle)))
+
+
+def neighbours_table(
+    word: str, frame: pd.DataFrame, labels: list[str], width: int | None = None
+) -> Table:
+    """One column per slice, one row per neighbour rank: 'neighbour similarity'.
+
+    With ``width`` the table fits: cells wrap between the word and its similarity, then inner
+    slices are dropped (from the middle outwards) and the caption names them.
+    """
     shown = [label for label in labels if label in set(frame["slice"])]
-    for label in shown:
-        table.add_column(label, overflow="fold")
     depth = int(frame["rank"].max()) if len(frame) else 0
     cells = {
         (r.slice, int(r.rank)): f"{r.neighbour} {r.similarity:.2f}" for r in frame.itertuples()
     }
-    for rank in range(1, depth + 1):
-        table.add_row(Text(str(rank)), *(Text(cells.get((label, rank), "")) for label in shown))
+    columns = [_Column("#", "#", cells=[Text(str(rank)) for rank in range(1, depth + 1)])]
+    for label in shown:
+        column = _Column(label, label, justify="left", wraps=True)
+        column.cells = [Text(cells.get((label, rank), "")) for rank in range(1, depth + 1)]
+        columns.append(column)
+    kept, dropped = _fit(columns, width, _slice_drop_order(shown)) if width else (columns, [])
+    notes = []
     absent = [label for label in labels if label not in shown]
     if absent:
-        table.caption = Text(f"Not in the vocabulary of: {', '.join(absent)}")
-        table.caption_justify = "left"
-    return table
+        notes.append(f"Not in the vocabulary of: {', '.join(absent)}.")
+    if dropped:
+        notes.append(
+            f"Slices not shown at this width: {', '.join(dropped)} "
+            "(a wider screen, -o FILE or --output-format csv shows them)."
+        )
+    return _table(kept, Text(f"Nearest neighbours of '{word}' per slice"), notes)
+
+
+# ---------------------------------------------------------------------------- printing
+
+
+def _natural_width(table_factory: Callable[[int | None], Any]) -> tuple[Any, int]:
+    table = table_factory(None)
+    probe = Console(width=10_000)
+    return table, probe.measure(table).maximum
+
+
+def print_table(table_factory: Callable[[int | None], Any], handle: IO[str] | None = None) -> None:
+    """Print a table: fitted to the terminal, or whole (every column, its own width) into a file
+    or a pipe. ``table_factory(width)`` builds the table for ``width`` columns (None: all)."""
+    stream = handle if handle is not None else sys.stdout
+    console = Console(file=stream)
+    if handle is None and console.is_terminal:
+        console.print(table_factory(console.width))
+        return
+    table, needed = _natural_width(table_factory)
+    Console(file=stream, width=max(needed, 20), no_color=True, highlight=False).print(table)
+
+
+def print_rows(
+    rows: pd.DataFrame,
+    fmt: str,
+    table_factory: Callable[[int | None], Any],
+    out: Path | None = None,
+) -> None:
+    """Print rows as csv, json (an array of row objects) or a table, on stdout or into ``out``."""
+    from drift.ranking import rows_as_json
+
+    handle = None if out is None else Path(out).open("w", encoding="utf-8", newline="")
+    stream = handle if handle is not None else sys.stdout
+    try:
+        if fmt == "csv":
+            stream.write(rows.to_csv(index=False))
+        elif fmt == "json":
+            stream.write(rows_as_json(rows) + "\n")
+        else:
+            print_table(table_factory, handle)
+    finally:
+        if handle is not None:
+            handle.close()
