@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import io
 import json
+import shutil
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -21,7 +23,7 @@ CSV = ("--output-format", "csv")
 
 
 @pytest.fixture(scope="module")
-def run(tmp_path_factory):
+def pristine_run(tmp_path_factory):
     """Three rotated, noisy copies of one random geometry; three words move in 2003; a word
     made of markup shows up in every slice. Two seeds and a control pair without change."""
     rng = np.random.default_rng(21)
@@ -43,6 +45,13 @@ def run(tmp_path_factory):
     control = {name: (words, [noisy(base), noisy(base)], counts)
                for name in ("control-a", "control-b")}
     return write_array_run(tmp_path_factory.mktemp("cli") / "run", slices, control)
+
+
+@pytest.fixture
+def run(pristine_run, tmp_path):
+    """A copy of the run for each test: a test that ranks with other options changes the folder,
+    and no other test may see that."""
+    return Path(shutil.copytree(pristine_run, tmp_path / "run"))
 
 
 def _drift(args, capsys):
