@@ -9,7 +9,17 @@ from collections.abc import Iterable
 class DriftError(Exception):
     """Bad usage or bad input: one plain sentence saying what is wrong and what to do.
 
-    The command line prints it without a traceback and exits with code 2.
+    Every public function raises it for a problem the user can fix; the command line prints
+    the sentence without a traceback and exits with code 2.
+
+    Examples
+    --------
+    >>> import drift
+    >>> try:
+    ...     drift.rank_run(workdir / "nowhere")
+    ... except drift.DriftError as error:
+    ...     print(error)
+    Run folder .../nowhere does not exist; make it with 'drift slice SOURCE --out .../nowhere'.
     """
 
 

@@ -16,7 +16,10 @@ import pandas as pd
 
 from drift import ranking
 from drift.errors import DriftError
+from drift.options import ChartOptions
 from drift.runfolder import RunPaths
+
+_CHART = ChartOptions()  # the one seed's default
 
 #: Tokens kept on each side of the word when a line (up to 10,000 tokens) is cut to a passage.
 CONTEXT_TOKENS = 20
@@ -110,10 +113,40 @@ def examples_for_words(
     return pd.DataFrame(rows, columns=["word", "slice", "line", "sentence"])
 
 
-def example_sentences(run: Path, word: str, per_slice: int = 3, seed: int = 0) -> pd.DataFrame:
+def example_sentences(
+    run: Path, word: str, per_slice: int = 3, seed: int = _CHART.seed
+) -> pd.DataFrame:
     """Up to ``per_slice`` passages holding ``word`` from each slice, drawn reproducibly.
 
-    Returns a DataFrame with columns ``slice, line, sentence``.
+    Parameters
+    ----------
+    run : str or Path
+        A run folder sliced with :func:`drift.slice_archive`.
+    word : str
+        The word, as tokenized (lower case unless the run keeps case).
+    per_slice : int
+        Passages drawn from each slice at most.
+    seed : int
+        Seed of the draw: the same seed gives the same passages.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``slice, line, sentence``: the slice label, the line of the slice file, the passage.
+
+    Raises
+    ------
+    DriftError
+        The folder holds no slices.
+
+    Examples
+    --------
+    >>> import drift
+    >>> passages = drift.example_sentences(run, "tablet", per_slice=2)
+    >>> list(passages.columns)
+    ['slice', 'line', 'sentence']
+    >>> len(passages) >= 2 and all("tablet" in sentence.split() for sentence in passages["sentence"])
+    True
     """
     table = examples_for_words(run, [word], per_slice=per_slice, seed=seed)
     return table.drop(columns="word").reset_index(drop=True)

@@ -414,8 +414,36 @@ def run_word_figures(
 
 
 def word_figure_set(run: Path, word: str, *, k: int = 10) -> dict[str, go.Figure]:
-    """The plotly figures of ``word``'s page (``timeline``, ``neighbours``, ``frequency``), for
-    use in a script or notebook: ``word_figure_set(run, "tablet")["timeline"].show()``."""
+    """The plotly figures of ``word``'s page, for a script or a notebook.
+
+    Parameters
+    ----------
+    run : str or Path
+        A run folder ranked with :func:`drift.rank_run`.
+    word : str
+        A word of the scores (or an emerging or fading term).
+    k : int
+        Neighbours listed per slice in the neighbour figure.
+
+    Returns
+    -------
+    dict of str to plotly.graph_objects.Figure
+        ``timeline`` (distance from the reference slice, with the control's 95th percentile),
+        ``neighbours`` and ``frequency``.
+
+    Raises
+    ------
+    DriftError
+        A run without scores, a word that is not in them (with close matches).
+
+    Examples
+    --------
+    >>> import drift
+    >>> figures = drift.word_figure_set(run, "tablet")
+    >>> sorted(figures)
+    ['frequency', 'neighbours', 'timeline']
+    >>> figures["timeline"].show()  # doctest: +SKIP
+    """
     data = load_run(Path(run))
     _check_word(data, word)
     return run_word_figures(data, word, ranking.neighbours_by_slice(run, word, k=k), k=k)
@@ -711,7 +739,42 @@ def chart_word(
     run: Path, word: str, *, k: int = _REPORT.k, examples: int = _REPORT.examples,
     seed: int = _REPORT.seed,
 ) -> Path:
-    """Write the HTML page of ``word`` into RUN/charts/words/ and return its path."""
+    """Write the HTML page of ``word`` and return its path.
+
+    The page (``charts/words/<safe name>.html``) shows the word's timeline, its neighbours per
+    slice, its frequency and example sentences; it works offline. Defaults and help texts of
+    the options: :class:`drift.options.ChartOptions`.
+
+    Parameters
+    ----------
+    run : str or Path
+        A run folder ranked with :func:`drift.rank_run`.
+    word : str
+        A word of the scores (or an emerging or fading term).
+    k : int
+        Neighbours listed per slice (``--neighbours``).
+    examples : int
+        Example sentences per slice.
+    seed : int
+        Seed of the example draw.
+
+    Returns
+    -------
+    pathlib.Path
+        The page.
+
+    Raises
+    ------
+    DriftError
+        A run without scores, a word that is not in them (with close matches), a bad number.
+
+    Examples
+    --------
+    >>> import drift
+    >>> page = drift.chart_word(run, "tablet", examples=1)
+    >>> page.parent.name, page.suffix
+    ('words', '.html')
+    """
     run = Path(run)
     ReportOptions(k=k, examples=examples, seed=seed)
     data = load_run(run)
@@ -730,7 +793,40 @@ def build_report(
     run: Path, *, top: int = _REPORT.top, k: int = _REPORT.k, examples: int = _REPORT.examples,
     seed: int = _REPORT.seed,
 ) -> Path:
-    """Write RUN/charts/index.html and the pages of the ``top`` ranked words; return the index."""
+    """Write the overview report and the pages of the ``top`` ranked words.
+
+    Defaults and help texts of the options: :class:`drift.options.ReportOptions`.
+
+    Parameters
+    ----------
+    run : str or Path
+        A run folder ranked with :func:`drift.rank_run`.
+    top : int
+        How many of the top-ranked words get a page.
+    k : int
+        Neighbours listed per slice (``--neighbours``).
+    examples : int
+        Example sentences per slice.
+    seed : int
+        Seed of the example draw.
+
+    Returns
+    -------
+    pathlib.Path
+        ``charts/index.html``.
+
+    Raises
+    ------
+    DriftError
+        A run without scores, a bad number, a folder in use by another drift process.
+
+    Examples
+    --------
+    >>> import drift
+    >>> index = drift.build_report(run, top=2, examples=1)
+    >>> index.name, len(list(index.parent.glob("words/*.html")))
+    ('index.html', 2)
+    """
     run = Path(run)
     ReportOptions(top=top, k=k, examples=examples, seed=seed)
     started = time.perf_counter()

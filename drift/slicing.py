@@ -710,20 +710,90 @@ def _balance(
 
 
 def read_summary(run: Path | str) -> pd.DataFrame:
-    """The slices/summary.csv of a run folder (labels as text)."""
+    """The slice summary of a run folder (``slices/summary.csv``, labels as text).
+
+    Parameters
+    ----------
+    run : str or Path
+        A run folder sliced with :func:`slice_archive`.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``label, start, end, documents, tokens, types, dropped``, one row per slice in time
+        order.
+
+    Raises
+    ------
+    DriftError
+        The folder does not exist or holds no slices.
+
+    Examples
+    --------
+    >>> import drift
+    >>> drift.read_summary(run)[["label", "start", "end"]].iloc[0].tolist()
+    ['1950s', '1950-01-01', '1959-12-31']
+    """
     paths = runfolder.existing_run(Path(run), needs="slices")
     return pd.read_csv(paths.slice_summary, dtype={"label": str, "start": str, "end": str})
 
 
 def slice_labels(run: Path | str) -> list[str]:
-    """The slice labels of a run, in time order."""
+    """The slice labels of a run, in time order.
+
+    Parameters
+    ----------
+    run : str or Path
+        A run folder sliced with :func:`slice_archive`.
+
+    Returns
+    -------
+    list of str
+
+    Raises
+    ------
+    DriftError
+        The folder does not exist or holds no slices.
+
+    Examples
+    --------
+    >>> import drift
+    >>> drift.slice_labels(run)
+    ['1950s', '1960s', '1970s', '1980s', '1990s', '2000s']
+    """
     root = Path(run)
     labels = runfolder.read_manifest(root).get("stages", {}).get(STAGE, {}).get("labels")
     return list(labels) if labels else read_summary(root)["label"].tolist()
 
 
 def read_counts(run: Path | str) -> pd.DataFrame:
-    """counts.parquet as a DataFrame: index ``word``, one int64 column per slice label."""
+    """Word counts per slice (``counts.parquet``).
+
+    Parameters
+    ----------
+    run : str or Path
+        A run folder sliced with :func:`slice_archive`.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Index ``word``, one int64 column per slice label in time order; rows by total count,
+        most frequent first.
+
+    Raises
+    ------
+    DriftError
+        The folder does not exist or holds no slices.
+
+    Examples
+    --------
+    >>> import drift
+    >>> counts = drift.read_counts(run)
+    >>> list(counts.columns) == drift.slice_labels(run)
+    True
+    >>> counts.index[0]
+    'the'
+    """
     paths = runfolder.existing_run(Path(run), needs="slices")
     return pd.read_parquet(paths.counts).set_index("word")
 
@@ -875,11 +945,63 @@ def slice_archive(
 ) -> pd.DataFrame:
     """Cut ``source`` into time slices in the run folder ``out`` and return the slice summary.
 
-    ``encoding`` and ``delimiter`` are passed to :func:`drift.readers.open_source`.
+    The archive is streamed, never held whole. Writes ``slices/<label>.txt``,
+    ``slices/summary.csv``, ``counts.parquet`` and the slice stage of ``run.json``; a rerun with
+    the same source and options reuses the slices. Defaults and help texts of the options:
+    :class:`drift.options.SliceOptions`.
 
-    The summary has the columns of slices/summary.csv; ``summary.attrs`` holds ``reused`` (the
-    slices were already current), ``warnings`` and the run's ``totals`` (documents read, bad
-    dates skipped, documents outside the edges, empty documents, replaced characters).
+    Parameters
+    ----------
+    source : str or Path
+        CSV, TSV, JSON Lines, Parquet file or a folder of .txt files; may be .gz, .bz2 or .xz.
+    out : str or Path
+        The run folder (made if missing).
+    fmt : str, optional
+        ``csv``, ``tsv``, ``jsonl``, ``parquet`` or ``txt``; by default from the extension.
+    time_col, text_col : str, optional
+        Columns with the dates and the text; by default the one column named ``date``,
+        ``time``, ``year`` or ``timestamp``, and ``text``, ``body`` or ``content``.
+    date_format : str, optional
+        strptime layout of the dates, e.g. ``"%d/%m/%Y"``.
+    skip_bad_dates : bool
+        Drop documents whose date does not parse (counted) instead of stopping.
+    by : str
+        ``year``, ``decade``, ``Ny`` (e.g. ``5y``), ``edges:1990,2000,2010`` or ``even:K``.
+    balance : str or int, optional
+        ``"smallest"`` down-samples every slice to the smallest slice's tokens; a number, to
+        that many tokens.
+    keep_case, pretokenized : bool
+        Keep upper case; split on white space only.
+    seed : int
+        Seed of the balancing draw.
+    quiet : bool
+        No progress bar or notes.
+    encoding, delimiter : str, optional
+        Text encoding (default UTF-8, cp1252 when a file is not UTF-8) and CSV field separator,
+        passed to :func:`drift.readers.open_source`.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per slice in time order: ``label, start, end, documents, tokens, types,
+        dropped``. ``summary.attrs`` holds ``reused`` (the slices were already current),
+        ``warnings`` and ``totals`` (documents read, bad dates skipped, outside the edges, empty
+        documents, replaced characters).
+
+    Raises
+    ------
+    DriftError
+        A missing or unreadable source, unknown columns (the message lists those that exist),
+        dates that do not parse, an empty slice, a bad ``by`` or ``balance``.
+
+    Examples
+    --------
+    >>> import drift
+    >>> summary = drift.slice_archive(archive, workdir / "run", by="decade", quiet=True)
+    >>> summary["label"].tolist()
+    ['1950s', '1960s', '1970s', '1980s', '1990s', '2000s']
+    >>> list(summary.columns)
+    ['label', 'start', 'end', 'documents', 'tokens', 'types', 'dropped']
     """
     started = time.perf_counter()
     source = Path(source)

@@ -632,9 +632,61 @@ def train_run(
 ) -> pd.DataFrame:
     """Train every slice-by-seed model of a run (and the control pair), reusing finished ones.
 
-    Returns one row per model: ``group`` ('slice' or 'control'), ``label``, ``seed``, ``path``,
-    ``vocabulary`` (words kept), ``seconds`` (training time), ``reused`` and ``threads`` (gensim
-    threads of that model; 1 means the vectors are reproducible from the seed).
+    One gensim Word2Vec model per slice and seed (seed ``base_seed + k`` for model k), plus the
+    time-shuffled control pair that stands for the two compared slices. Models already finished
+    with the same slice and parameters are kept, so a killed run resumes. Defaults and help
+    texts of the options: :class:`drift.options.TrainOptions`.
+
+    Parameters
+    ----------
+    run : str or Path
+        A run folder sliced with :func:`drift.slice_archive`.
+    architecture : str
+        ``skipgram`` (skip-gram with negative sampling) or ``cbow``.
+    dim, window, negative, epochs : int
+        Vector dimension, context words on each side, noise words per positive example, passes.
+    sample : float
+        Sub-sampling threshold (0 turns it off).
+    min_count : int
+        Words rarer than this in a slice are left out of its model.
+    seeds : int
+        Models per slice; the spread between them is the optimisation noise.
+    workers : int, optional
+        Cores to use (default: all); with ``scheduler``, gensim threads per model.
+    between : pair of str, optional
+        The two slices the control pair stands for (default: the first and the last).
+    control : bool
+        Train the control pair (without it ranking gives no z, p or q).
+    engine : str
+        ``local`` (a process pool) or ``dask``.
+    scheduler : str, optional
+        Address of a Dask scheduler (default with ``engine="dask"``: a LocalCluster).
+    base_seed : int
+        gensim seed of the first model (``--seed`` on the command line).
+    quiet : bool
+        No progress bars.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per model: ``group`` ('slice' or 'control'), ``label``, ``seed``, ``path``,
+        ``vocabulary`` (words kept), ``seconds`` (training time), ``reused`` and ``threads``
+        (gensim threads of that model; 1 means the vectors are reproducible from the seed).
+
+    Raises
+    ------
+    DriftError
+        A value out of range (named as on the command line), a run without slices, an empty
+        vocabulary (lower ``min_count``), an unreachable scheduler, a folder in use.
+
+    Examples
+    --------
+    >>> import drift
+    >>> models = drift.train_run(run, dim=16, epochs=2, seeds=2, min_count=5, quiet=True)
+    >>> models.groupby("group").size().to_dict()
+    {'control': 4, 'slice': 12}
+    >>> bool(models["reused"].all())  # the run was trained with these options already
+    True
     """
     import pandas as pd  # here, not at the top: pool workers import this module and need no pandas
 
@@ -747,7 +799,40 @@ def control_info(run: str | Path) -> dict[str, Any] | None:
 
 
 def load_vectors(run: str | Path, label: str, seed: int, control: bool = False) -> Any:
-    """The KeyedVectors of one model (counts in ``kv.get_vecattr(word, "count")``)."""
+    """The vectors of one trained model.
+
+    Parameters
+    ----------
+    run : str or Path
+        A run folder trained with :func:`drift.train_run`.
+    label : str
+        A slice label, or with ``control=True`` ``control-a`` or ``control-b``.
+    seed : int
+        The model's index, 0 to ``seeds - 1``.
+    control : bool
+        Load a model of the control pair.
+
+    Returns
+    -------
+    gensim.models.KeyedVectors
+        The raw (unaligned) vectors; a word's count in its slice is
+        ``kv.get_vecattr(word, "count")``.
+
+    Raises
+    ------
+    DriftError
+        An unknown label (with close matches), a seed that was not trained, a run trained
+        without the control pair.
+
+    Examples
+    --------
+    >>> import drift
+    >>> vectors = drift.load_vectors(run, "1950s", 0)
+    >>> vectors.vector_size
+    16
+    >>> int(vectors.get_vecattr("the", "count")) > 1000
+    True
+    """
     from gensim.models import KeyedVectors
 
     paths = RunPaths(Path(run))
