@@ -30,21 +30,66 @@ def test_mean_shifts_equal_the_definition():
     np.testing.assert_allclose(mean_shifts(series), _mean_shifts_by_loop(series), equal_nan=True)
 
 
+SEEDS = range(20)
+
+
+def _planted(seed: int, planted: int = 10) -> np.ndarray:
+    """200 words x 6 slices of noise (sd 0.03) around 0.3, the reference slice at 0; the first
+    ``planted`` words step up by 0.4 between slices 3 and 4 (13 sd of the noise)."""
+    rng = np.random.default_rng(seed)
+    series = 0.3 + 0.03 * rng.standard_normal((200, 6))
+    series[:, 0] = 0.0
+    series[:planted, 4:] += 0.4
+    return series
+
+
 def test_planted_step_is_found_among_noisy_words():
-    rng = np.random.default_rng(1)
-    n_words, n_slices = 200, 6
-    series = 0.3 + 0.03 * rng.standard_normal((n_words, n_slices))
-    series[:, 0] = 0.0  # the reference slice
-    series[:10, 4:] += 0.4  # ten words change between slices 3 and 4
-    position, step = change_points(series)
-    assert np.all(position[:10] == 4)
-    # Timeline 0, .3, .3, .3, .7, .7: step = 0.7 - mean(0, .3, .3, .3) = 0.475.
-    np.testing.assert_allclose(step[:10], 0.475, atol=0.08)
-    # Without standardising by slice, the reference slice (always 0) would pull stable words'
-    # change points to slice 1; standardised, the stable words spread over all boundaries.
-    raw_position, _ = change_points(series, standardise=False)
-    assert np.mean(raw_position[10:] == 1) > 0.9
-    assert np.mean(position[10:] == 1) < 0.5
+    """Over 20 noise draws (no lucky seed): the planted words' change point and step, and the
+    reason for standardising by slice."""
+    placed, raw_at_first, at_first = [], [], []
+    for seed in SEEDS:
+        series = _planted(seed)
+        position, step = change_points(series)
+        right = position[:10] == 4
+        placed.append(right)
+        # Timeline 0, .3, .3, .3, .7, .7: step = 0.7 - mean(0, .3, .3, .3) = 0.475 by hand; the
+        # noise of that difference of means has sd 0.03 * sqrt(1/2 + 1/4) = 0.026: +-0.13 is 5 sd.
+        np.testing.assert_allclose(step[:10][right], 0.475, atol=0.13)
+        # Without standardising by slice, the reference slice (always 0) pulls stable words'
+        # change points to slice 1; standardised, it does not.
+        raw_at_first.append(np.mean(change_points(series, standardise=False)[0][10:] == 1))
+        at_first.append(np.mean(position[10:] == 1))
+    assert min(raw_at_first) > 0.9
+    assert max(at_first) < 0.5
+    # Most planted words are placed right (the strict version is the xfail test below).
+    assert np.mean(np.concatenate(placed)) > 0.9
+
+
+@pytest.mark.xfail(
+    strict=True,
+    reason="known defect: on timelines standardised by slice, 5 of 200 planted 13-sd steps are "
+    "placed one slice early (seeds 3, 4, 8, 17, 18); the fix belongs to drift/changepoint.py",
+)
+def test_every_planted_step_is_placed_where_it_was_planted():
+    misplaced = sum(int(np.sum(change_points(_planted(seed))[0][:10] != 4)) for seed in SEEDS)
+    assert misplaced == 0
+
+
+@pytest.mark.xfail(
+    strict=True,
+    reason="known defect: on pure noise about 41% of change points fall on the last boundary "
+    "(the unscaled mean shift favours the ends); the fix belongs to drift/changepoint.py",
+)
+def test_stable_words_spread_over_the_boundaries_across_seeds():
+    """Pure noise after standardising: no boundary should attract the change points. Over 20
+    seeds x 200 words, the share at any one of the 5 boundaries must stay below 0.3: under a
+    uniform spread (0.2) the binomial tail (scipy.stats.binom) of 0.3 x 4,000 is below 1e-40."""
+    from scipy.stats import binom
+
+    found = np.concatenate([change_points(_planted(seed, planted=0))[0] for seed in SEEDS])
+    assert binom.sf(int(0.3 * found.size), found.size, 0.2) < 1e-40
+    shares = [float(np.mean(found == boundary)) for boundary in range(1, 6)]
+    assert max(shares) < 0.3, shares
 
 
 def test_missing_slices_are_skipped():
