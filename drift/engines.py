@@ -14,6 +14,7 @@ import functools
 import logging
 import os
 import signal
+import sys
 import threading
 from collections.abc import Callable, Iterator
 from typing import Any, Protocol
@@ -108,6 +109,32 @@ def pool_context(preload: tuple[str, ...] = ()) -> Any:
     return multiprocessing.get_context("spawn")
 
 
+@contextlib.contextmanager
+def main_module_kept_from_workers(function: Callable[..., Any]) -> Iterator[None]:
+    """While worker processes start, hide the caller's main script from them.
+
+    Spawned and fork-server workers normally import the parent's ``__main__`` file again (as
+    ``__mp_main__``), which runs every top-level line of a script written without an
+    ``if __name__ == "__main__":`` guard: the script would start a second run inside each worker.
+    drift's task functions live in drift's own modules, so the workers do not need the script;
+    ``multiprocessing`` skips it when ``__main__`` has no ``__file__`` and no ``__spec__``. A
+    task function defined in the script itself still gets the script.
+    """
+    main = sys.modules.get("__main__")
+    if main is None or getattr(function, "__module__", None) == "__main__":
+        yield
+        return
+    names = ("__file__", "__spec__")
+    saved = {name: main.__dict__[name] for name in names if name in main.__dict__}
+    main.__dict__.pop("__file__", None)
+    main.__dict__["__spec__"] = None
+    try:
+        yield
+    finally:
+        main.__dict__.pop("__spec__", None)
+        main.__dict__.update(saved)
+
+
 def _queue_report(key: str) -> Report | None:
     if _worker_events is None:
         return None
@@ -190,9 +217,10 @@ class LocalEngine:
         finished = False
         futures = []
         try:
-            futures = [executor.submit(_call_in_pool_worker, function, task) for task in tasks]
-            for future in as_completed(futures):
-                yield future.result()
+            with main_module_kept_from_workers(function):
+                futures = [executor.submit(_call_in_pool_worker, function, task) for task in tasks]
+                for future in as_completed(futures):
+                    yield future.result()
             finished = True
         except BrokenProcessPool:
             raise DriftError(
@@ -273,13 +301,14 @@ class DaskEngine:
     def open(self) -> DaskEngine:
         distributed = _import_distributed()
         if self.address is None:
-            self.cluster = distributed.LocalCluster(
-                n_workers=self.processes,
-                threads_per_worker=1,
-                processes=True,
-                dashboard_address=None,
-                silence_logs=logging.ERROR,
-            )
+            with main_module_kept_from_workers(self.open):
+                self.cluster = distributed.LocalCluster(
+                    n_workers=self.processes,
+                    threads_per_worker=1,
+                    processes=True,
+                    dashboard_address=None,
+                    silence_logs=logging.ERROR,
+                )
             self.client = distributed.Client(self.cluster)
         else:
             self.client = connect_dask(self.address, self.timeout_s)

@@ -14,8 +14,17 @@ import pandas as pd
 
 from drift.errors import DriftError
 
-#: The bundled invented archive lives beside the package in a source checkout.
-DEMO_DIR = Path(__file__).resolve().parent.parent / "data_demo"
+
+def _demo_dir() -> Path:
+    """Where the bundled invented archive is: inside the installed package (a wheel carries it
+    as drift/demo_data/), else beside the package in a source checkout (data_demo/)."""
+    packaged = Path(__file__).resolve().parent / "demo_data"
+    if (packaged / "archive.csv.gz").is_file():
+        return packaged
+    return Path(__file__).resolve().parent.parent / "data_demo"
+
+
+DEMO_DIR = _demo_dir()
 DEMO_ARCHIVE = DEMO_DIR / "archive.csv.gz"
 DEMO_PLANTED = DEMO_DIR / "planted.csv"
 #: The demo archive spans six decades; one slice per decade.
@@ -124,8 +133,9 @@ def demo_archive() -> Path:
     """The bundled demo archive, or a DriftError saying how to get it."""
     if not DEMO_ARCHIVE.exists():
         raise DriftError(
-            f"The demo archive {DEMO_ARCHIVE} is missing; run drift from a source checkout "
-            "(pip install -e .) or regenerate it with 'python data_demo/generate.py'."
+            f"The demo archive {DEMO_ARCHIVE} is missing from this installation; reinstall "
+            "lexical-drift, or in a source checkout regenerate it with "
+            "'python data_demo/generate.py'."
         )
     return DEMO_ARCHIVE
 

@@ -114,6 +114,7 @@ def _check_models_exist(
 def read_run_inputs(run: str | Path) -> RunInputs:
     """Open a trained run folder and read its labels, seeds, control info, counts and sizes."""
     paths = runfolder.existing_run(Path(run), needs="models")
+    runfolder.check_current(paths.root, "train")  # models made from the slices there now
     manifest = runfolder.read_manifest(paths.root)
     if not paths.slice_summary.exists():
         raise DriftError(f"{paths.root} has no slices/summary.csv; rerun 'drift slice'.")
@@ -490,7 +491,7 @@ def _calibration(
     from drift.calibration import CALIBRATION_COLUMNS, fit_null
 
     empty = pd.DataFrame({c: np.full(len(values), np.nan) for c in CALIBRATION_COLUMNS})
-    empty["significant"] = False
+    empty["significant"] = None  # undecided without a null: null in JSON, empty in CSV
     if not control:
         return empty, None, None
     first = control[0]
@@ -573,7 +574,7 @@ def rank_run(
     outputs = (paths.scores_parquet, paths.timeline_parquet, paths.terms_parquet)
     if runfolder.stage_is_current(root, "rank", params, fingerprint) and all(
         p.exists() for p in outputs
-    ):
+    ) and runfolder.stale_reason(root, "rank") is None:
         _note(f"scores in {root} are current; reusing them.", quiet)
         return read_scores(root)
 
@@ -590,7 +591,8 @@ def rank_run(
         with runfolder.atomic_path(inputs.paths.terms_parquet) as tmp:
             terms.to_parquet(tmp, index=False)
         runfolder.record_stage(
-            root, "rank", params, fingerprint, time.perf_counter() - started, extra=extra
+            root, "rank", params, fingerprint, time.perf_counter() - started, extra=extra,
+            outputs=[*outputs, paths.scores_csv],
         )
     return read_scores(root)  # the same types as a reused result
 
@@ -773,6 +775,7 @@ def _read_table(run: str | Path, path_of: str, what: str) -> pd.DataFrame:
         raise DriftError(
             f"{paths.root} has no {what} yet; compute it with 'drift rank {paths.root}'."
         )
+    runfolder.check_current(paths.root, "rank")  # never a table made from older models
     return pd.read_parquet(path)
 
 
@@ -820,9 +823,10 @@ def top_rows(
 
 
 def rows_as_json(rows: pd.DataFrame) -> str:
-    """A JSON array of row objects; NaN and missing values become null."""
+    """A JSON array of row objects ending with a newline; NaN and missing values become null
+    (``significant`` too, when there is no control to decide it)."""
     records = json.loads(rows.to_json(orient="records", force_ascii=False, double_precision=15))
-    return json.dumps(records, ensure_ascii=False, indent=1)
+    return json.dumps(records, ensure_ascii=False, indent=1) + "\n"  # a text file ends a line
 
 
 # ---------------------------------------------------------------------------- neighbours, export
@@ -900,10 +904,7 @@ def export_vectors(
     anchors = anchors if anchors is not None else recorded.get("anchors")
     _, _, ref = resolve_slices(inputs.labels, None, reference)
     anchor_spec = parse_anchors(anchors)
-    out = Path(out)
-    if out.exists() and not out.is_dir():
-        raise DriftError(f"--out {out} is a file; give a folder for the exported vectors.")
-    out.mkdir(parents=True, exist_ok=True)
+    out = runfolder.prepare_export_folder(Path(out))
     seed = inputs.seeds[0]
     target = load_slice_vectors(inputs.paths, ref, seed)
     written = []
@@ -914,6 +915,8 @@ def export_vectors(
             rotation = align_onto(vectors, target, anchor_spec)
             aligned = (vectors.vectors @ rotation).astype(np.float32)
         written.append(_write_vectors(out, label, vectors, aligned, fmt))
+    runfolder.record_export(out, inputs.paths.root, written, {"format": fmt, "reference": ref,
+                                                              "anchors": anchors, "seed": seed})
     return written
 
 

@@ -26,6 +26,7 @@ from drift.errors import DriftError
 RUN_FORMAT_VERSION = 1
 MANIFEST_NAME = "run.json"
 LOCK_NAME = ".lock"
+EXPORT_MANIFEST = "export.json"
 
 
 @dataclass(frozen=True)
@@ -185,6 +186,20 @@ def fingerprint_file(path: Path, chunk_size: int = 1 << 20) -> str:
     return digest.hexdigest()[:16]
 
 
+def fingerprint_content(path: Path, chunk_size: int = 1 << 20) -> str:
+    """A fingerprint of a file's content alone (size, first and last MiB), so that a copied run
+    folder (new modification times) still matches what its stages recorded."""
+    path = Path(path)
+    size = path.stat().st_size
+    digest = hashlib.sha256(str(size).encode())
+    with path.open("rb") as handle:
+        digest.update(handle.read(chunk_size))
+        if size > chunk_size:
+            handle.seek(max(size - chunk_size, chunk_size))
+            digest.update(handle.read(chunk_size))
+    return digest.hexdigest()[:16]
+
+
 def fingerprint_path(path: Path) -> str:
     """Fingerprint a file, or every file under a folder (names included)."""
     path = Path(path)
@@ -236,6 +251,58 @@ def read_manifest(root: Path) -> dict[str, Any]:
     return manifest
 
 
+#: The stages whose results each stage is made from. A stage's outputs are stale when one of
+#: these was redone (its fingerprint changed) or removed after them.
+MADE_FROM: dict[str, tuple[str, ...]] = {
+    "train": ("slice",),
+    "rank": ("slice", "train"),
+    "charts": ("rank",),
+}
+#: The command that redoes each stage (``{root}``: the run folder).
+STAGE_COMMANDS = {
+    "slice": "drift slice SOURCE --out {root}",
+    "train": "drift train {root}",
+    "rank": "drift rank {root}",
+    "charts": "drift report {root}",
+}
+_STAGE_OUTPUTS = {
+    "slice": "slices",
+    "train": "models",
+    "rank": "scores, timeline and terms",
+    "charts": "pages",
+}
+
+
+def downstream_of(stage: str) -> list[str]:
+    """Every stage made, directly or not, from ``stage``."""
+    found: list[str] = []
+    for later, sources in MADE_FROM.items():
+        if stage in sources or any(s in sources for s in found):
+            if later not in found:
+                found.append(later)
+    return found
+
+
+def _retire_pages(root: Path) -> None:
+    """Remove the HTML pages (made from results that just changed or went away); the shared
+    plotly.js copy stays. A page is never left showing numbers the run no longer has."""
+    paths = RunPaths(Path(root))
+    if not paths.charts_dir.is_dir():
+        return
+    (paths.charts_dir / "index.html").unlink(missing_ok=True)
+    if paths.word_charts_dir.is_dir():
+        for page in paths.word_charts_dir.glob("*.html"):
+            page.unlink(missing_ok=True)
+
+
+def _after_change(root: Path, manifest: dict[str, Any], stage: str) -> None:
+    """A stage was redone or forgotten: later stages are stale; pages go at once."""
+    later = downstream_of(stage)
+    if "charts" in later:
+        _retire_pages(root)
+        manifest["stages"].pop("charts", None)
+
+
 def record_stage(
     root: Path,
     stage: str,
@@ -243,18 +310,36 @@ def record_stage(
     inputs: str,
     seconds: float,
     extra: dict[str, Any] | None = None,
+    outputs: list[Path] | None = None,
 ) -> dict[str, Any]:
-    """Write one finished stage into run.json (atomically) and return the updated manifest."""
+    """Write one finished stage into run.json (atomically) and return the updated manifest.
+
+    The record holds ``made_from``: the fingerprints of the stages it was made from
+    (:data:`MADE_FROM`), and ``files``: a content fingerprint of each of ``outputs``, so that
+    readers can tell when a result no longer matches what it was made from (:func:`stale_reason`).
+    """
     manifest = read_manifest(root)
     manifest["versions"] = library_versions()
-    manifest["stages"][stage] = {
+    stages = manifest["stages"]
+    fingerprint = fingerprint_params({"params": params, "inputs": inputs})
+    changed = stages.get(stage, {}).get("fingerprint") != fingerprint
+    stages[stage] = {
         "params": params,
-        "fingerprint": fingerprint_params({"params": params, "inputs": inputs}),
+        "fingerprint": fingerprint,
         "inputs": inputs,
         "finished": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
         "seconds": round(seconds, 3),
+        "made_from": {
+            source: stages.get(source, {}).get("fingerprint") for source in MADE_FROM.get(stage, ())
+        },
         **(extra or {}),
     }
+    if outputs:
+        stages[stage]["files"] = {
+            Path(p).name: fingerprint_content(Path(p)) for p in outputs if Path(p).is_file()
+        }
+    if changed or stage == "rank":  # a rank always rewrites its tables
+        _after_change(root, manifest, stage)
     write_json_atomic(RunPaths(Path(root)).manifest, manifest)
     return manifest
 
@@ -271,18 +356,122 @@ def forget_stage(root: Path, stage: str) -> None:
     """Drop a stage (and so invalidate the stages after it) from run.json."""
     manifest = read_manifest(root)
     if manifest["stages"].pop(stage, None) is not None:
+        _after_change(root, manifest, stage)
         write_json_atomic(RunPaths(Path(root)).manifest, manifest)
+
+
+def stale_reason(root: Path, stage: str) -> str | None:
+    """Why the recorded outputs of ``stage`` no longer match what they were made from, or None.
+
+    Stale when the stage has no record (it never finished), when a stage it was made from was
+    redone or removed since, or when one of its recorded output files changed.
+    """
+    stages = read_manifest(root).get("stages", {})
+    record = stages.get(stage)
+    if not record:
+        return f"the {stage} stage did not finish"
+    made_from = record.get("made_from")
+    if made_from is None:
+        return f"the {stage} stage was recorded by an older drift that kept no fingerprints"
+    for source in MADE_FROM.get(stage, ()):
+        now = stages.get(source, {}).get("fingerprint")
+        if now is None:
+            return f"the {source} stage was started again and has not finished"
+        if made_from.get(source) != now:
+            return (
+                f"they were made from earlier {_STAGE_OUTPUTS[source]} ('drift {source}' ran "
+                "again since)"
+            )
+    folder = Path(root)
+    for name, recorded in (record.get("files") or {}).items():
+        path = next((p for p in (folder / name,) if p.is_file()), None)
+        if path is None or fingerprint_content(path) != recorded:
+            return f"{name} changed after the {stage} stage wrote it"
+    return None
+
+
+def check_current(root: Path, stage: str) -> None:
+    """Raise a DriftError naming the command to rerun when ``stage``'s outputs are stale."""
+    reason = stale_reason(root, stage)
+    if reason is None:
+        return
+    command = STAGE_COMMANDS[stage].format(root=root)
+    raise DriftError(
+        f"The {_STAGE_OUTPUTS[stage]} in {root} are out of date: {reason}; rerun '{command}' "
+        "to bring them up to date."
+    )
+
+
+def prepare_export_folder(out: Path) -> Path:
+    """An export folder: new, empty, or one drift exported into before (it holds export.json)."""
+    out = Path(out)
+    if not (out / EXPORT_MANIFEST).is_file():
+        check_out_folder(out, what="the exported vectors")
+    out.mkdir(parents=True, exist_ok=True)
+    return out
+
+
+def record_export(out: Path, root: Path, files: list[Path], params: dict[str, Any]) -> None:
+    """Write ``out/export.json``: the run, the fingerprints the vectors were made from, and a
+    content fingerprint of each file written."""
+    stages = read_manifest(root).get("stages", {})
+    write_json_atomic(
+        Path(out) / EXPORT_MANIFEST,
+        {
+            "run": str(Path(root).resolve()),
+            "params": params,
+            "made_from": {s: stages.get(s, {}).get("fingerprint") for s in ("slice", "train")},
+            "files": {Path(p).name: fingerprint_content(Path(p)) for p in files},
+            "written": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+        },
+    )
 
 
 # ------------------------------------------------------------------- folder checks and lock
 
+#: Files that do not make a folder "not empty" (the lock, and what file browsers leave behind).
+_IGNORED_IN_EMPTY = {LOCK_NAME, ".DS_Store", "Thumbs.db", "desktop.ini"}
 
-def prepare_run_folder(root: Path) -> RunPaths:
-    """Create (or reopen) a run folder for writing; refuse a path that is a file."""
+
+def _listing(root: Path, limit: int = 4) -> str:
+    names = sorted(p.name + ("/" if p.is_dir() else "") for p in root.iterdir())
+    shown = [n for n in names if n.rstrip("/") not in _IGNORED_IN_EMPTY]
+    more = len(shown) - limit
+    return ", ".join(shown[:limit]) + (f" and {more} more" if more > 0 else "")
+
+
+def check_out_folder(root: Path, option: str = "--out", what: str = "the run") -> None:
+    """Refuse ``root`` unless it is new, empty, or a drift run folder (it holds run.json).
+
+    Called before anything is written, so a folder of the user's own files is never touched.
+    """
     root = Path(root)
     if root.exists() and not root.is_dir():
-        raise DriftError(f"--out {root} is a file, not a folder; choose a folder path for the run.")
+        raise DriftError(
+            f"{option} {root} is a file, not a folder; choose a folder path for {what}."
+        )
+    if not root.is_dir() or (root / MANIFEST_NAME).is_file():
+        return
+    if any(p.name not in _IGNORED_IN_EMPTY for p in root.iterdir()):
+        raise DriftError(
+            f"{option} {root} already holds files that drift did not write ({_listing(root)}); "
+            f"choose a new or empty folder for {what}, or one drift wrote before."
+        )
+
+
+def prepare_run_folder(root: Path) -> RunPaths:
+    """Create (or reopen) a run folder for writing.
+
+    Refuses a path that is a file, a folder holding other files (see :func:`check_out_folder`)
+    and a run folder from an incompatible version; a new folder gets its run.json at once, so it
+    is recognised as a run folder even if the first stage fails.
+    """
+    root = Path(root)
+    check_out_folder(root)
     root.mkdir(parents=True, exist_ok=True)
+    manifest = RunPaths(root).manifest
+    if not manifest.exists():
+        write_json_atomic(manifest, new_manifest())
     read_manifest(root)  # refuses a folder from an incompatible version
     return RunPaths(root)
 
@@ -317,38 +506,139 @@ def _pid_alive(pid: int) -> bool:
     return True
 
 
+#: Locks this process holds (resolved path -> depth), so a stage may call another stage.
+_HELD: dict[str, int] = {}
+
+
+def _lock_owner(handle: Any) -> dict[str, Any]:
+    """The host and pid written in an open lock file ({} when empty or unreadable)."""
+    try:
+        handle.seek(0)
+        data = json.loads(handle.read() or "{}")
+    except (OSError, ValueError):
+        return {}
+    if isinstance(data, int):  # a lock file of an earlier drift: a bare pid
+        return {"pid": data, "host": platform.node()}
+    return data if isinstance(data, dict) else {}
+
+
+def _lock_refusal(root: Path, owner: dict[str, Any], busy: bool) -> DriftError | None:
+    """Why the lock cannot be taken (None when it can)."""
+    host, pid = owner.get("host"), owner.get("pid")
+    here = platform.node()
+    who = f"pid {pid}" + (f" on host {host}" if host and host != here else "")
+    since = f" since {owner['since']}" if owner.get("since") else ""
+    if busy:
+        return DriftError(
+            f"Run folder {root} is in use by another drift process ({who}{since}); wait for it "
+            "to finish or choose another folder."
+        )
+    if host and host != here:
+        # The OS lock is free, yet the record says another machine holds it: that machine may
+        # see a lock this one cannot (some shared file systems lock per host), so never take it.
+        return DriftError(
+            f"Run folder {root} is held by drift {who}{since} (recorded in {root / LOCK_NAME}); "
+            "if no drift process runs there any more, delete that file and retry."
+        )
+    if isinstance(pid, int) and pid != os.getpid() and _pid_alive(pid):
+        return DriftError(
+            f"Run folder {root} is in use by another drift process ({who}{since}); wait for it "
+            "to finish or choose another folder."
+        )
+    return None
+
+
+def _os_lock(handle: Any) -> bool:
+    """Take an exclusive OS lock on an open file without waiting; False when another holds it."""
+    try:
+        import fcntl
+    except ImportError:  # Windows: lock the first byte instead
+        import msvcrt
+
+        try:
+            msvcrt.locking(handle.fileno(), msvcrt.LK_NBLCK, 1)
+        except OSError:
+            return False
+        return True
+    try:
+        fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except BlockingIOError:
+        return False
+    return True
+
+
+def _os_unlock(handle: Any) -> None:
+    try:
+        import fcntl
+    except ImportError:
+        import msvcrt
+
+        with contextlib.suppress(OSError):
+            handle.seek(0)
+            msvcrt.locking(handle.fileno(), msvcrt.LK_UNLCK, 1)
+        return
+    fcntl.flock(handle.fileno(), fcntl.LOCK_UN)
+
+
 @contextlib.contextmanager
 def run_lock(root: Path) -> Iterator[None]:
     """Hold the run folder for one writer; a second writer is refused with a clear message.
 
-    The lock file holds the owner's process id, so a lock left by a killed process is taken over.
+    The lock is an OS lock (``flock``) on ``RUN/.lock``, which records the holder's host, pid and
+    start time. The OS releases it when the holder dies, so a killed run never blocks the folder.
+    A record naming another host is never overridden (see :func:`_lock_refusal`). The same
+    process may take the lock again (re-entrant).
     """
-    lock = Path(root) / LOCK_NAME
-    lock.parent.mkdir(parents=True, exist_ok=True)
-    for _ in range(2):
-        try:
-            fd = os.open(lock, os.O_CREAT | os.O_EXCL | os.O_WRONLY)
-        except FileExistsError:
-            try:
-                owner = int(lock.read_text().strip() or 0)
-            except (OSError, ValueError):
-                owner = 0
-            if owner and owner != os.getpid() and _pid_alive(owner):
-                raise DriftError(
-                    f"Run folder {root} is in use by another drift process (pid {owner}); "
-                    "wait for it to finish or choose another folder."
-                ) from None
-            if owner == os.getpid():  # re-entrant use within one process
-                yield
-                return
-            lock.unlink(missing_ok=True)  # stale lock from a process that died
-            continue
-        with os.fdopen(fd, "w") as handle:
-            handle.write(str(os.getpid()))
+    root = Path(root)
+    root.mkdir(parents=True, exist_ok=True)
+    lock = root / LOCK_NAME
+    key = str(lock.resolve())
+    if _HELD.get(key):
+        _HELD[key] += 1
         try:
             yield
         finally:
-            lock.unlink(missing_ok=True)
+            _HELD[key] -= 1
+        return
+    for _ in range(5):
+        handle = open(lock, "a+", encoding="utf-8")  # noqa: SIM115 - closed below
+        if not _os_lock(handle):
+            owner = _lock_owner(handle)
+            handle.close()
+            raise _lock_refusal(root, owner, busy=True)
+        try:
+            same = lock.exists() and os.fstat(handle.fileno()).st_ino == lock.stat().st_ino
+        except OSError:
+            same = False
+        if not same:  # the holder removed the file while we waited for it: start again
+            _os_unlock(handle)
+            handle.close()
+            continue
+        refusal = _lock_refusal(root, _lock_owner(handle), busy=False)
+        if refusal is not None:
+            _os_unlock(handle)
+            handle.close()
+            raise refusal
+        handle.seek(0)
+        handle.truncate()
+        handle.write(
+            json.dumps(
+                {
+                    "host": platform.node(),
+                    "pid": os.getpid(),
+                    "since": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+                }
+            )
+        )
+        handle.flush()
+        _HELD[key] = 1
+        try:
+            yield
+        finally:
+            _HELD.pop(key, None)
+            lock.unlink(missing_ok=True)  # while still held: the next writer opens a new file
+            _os_unlock(handle)
+            handle.close()
         return
     raise DriftError(f"Could not take the lock {lock}; remove it if no drift process is running.")
 

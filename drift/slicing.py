@@ -899,7 +899,12 @@ def _check_read(
             f"{name} has no documents ({detail}); give a file with one document per row."
         )
     if totals.bad.count and (not skip_bad_dates or totals.bad.count == totals.rows):
-        raise totals.bad.error(reader.time_col, total=totals.rows, text_files=reader.fmt == "txt")
+        raise totals.bad.error(
+            reader.time_col,
+            total=totals.rows,
+            text_files=reader.fmt == "txt",
+            skipping=skip_bad_dates,
+        )
     if not any_tokens:
         raise DriftError(
             f"{name} has {totals.rows:,} documents but no words in them; check --text-col "

@@ -199,19 +199,36 @@ class BadDates:
         total: int | None = None,
         first_only: bool = False,
         text_files: bool = False,
+        skipping: bool = False,
     ) -> DriftError:
-        """The DriftError that reports these bad values (``text_files``: dates of .txt files)."""
+        """The DriftError that reports these bad values (``text_files``: dates of .txt files;
+        ``skipping``: --skip-bad-dates was given, so the advice cannot be to give it)."""
         examples = ", ".join(self.examples)
         if text_files:
-            if first_only:
+            if skipping:
+                problem = f"None of the {self.count:,} text files has a date that parses"
+            elif first_only:
                 problem = f"None of the first {self.count:,} text files has a date that parses"
             else:
                 problem = (
                     f"{self.count:,} of {total or self.count:,} text files have no date that parses"
                 )
+            fix = (
+                "put a year or ISO date in their file or folder names (as a whole word, such as "
+                "1905 or 1905-03-02), or list them in an index.csv (file, date)"
+            )
+            if skipping:
+                return DriftError(
+                    f"{problem} (e.g. {examples}), so --skip-bad-dates would leave nothing; {fix}."
+                )
             return DriftError(
-                f"{problem} (e.g. {examples}); put a year or ISO date in their file or folder "
-                "names, list them in an index.csv (file, date), or drop them with --skip-bad-dates."
+                f"{problem} (e.g. {examples}); {fix}, or drop them with --skip-bad-dates."
+            )
+        if skipping:
+            return DriftError(
+                f"None of the {self.count:,} values in the time column '{column}' is a date (e.g. "
+                f"{examples}), so --skip-bad-dates would leave nothing; give their layout with "
+                "--date-format (e.g. '%d/%m/%Y') or choose another column with --time-col."
             )
         if first_only:
             problem = (

@@ -143,14 +143,28 @@ def checked_slice_labels(paths: RunPaths) -> list[str]:
     return labels
 
 
+def check_more_than_one_slice(paths: RunPaths, labels: list[str]) -> None:
+    """Refuse a run of one slice before any training: drift compares periods, and the advice
+    names a way to cut the same archive into two or more."""
+    if len(labels) > 1:
+        return
+    from drift.slicing import read_summary
+
+    record = runfolder.read_manifest(paths.root).get("stages", {}).get("slice", {})
+    source = record.get("source") or "SOURCE"
+    row = read_summary(paths.root).iloc[0]
+    start, end = str(row["start"]), str(row["end"])
+    other = ", or with --by year" if start[:4] != end[:4] else ""
+    raise DriftError(
+        f"{paths.root} has one slice ({labels[0]}: {start} to {end}), and drift measures change "
+        f"between slices; cut the archive into two or more periods, e.g. 'drift slice {source} "
+        f"--out {paths.root} --by even:2' (two periods of equal size){other}."
+    )
+
+
 def resolve_between(labels: list[str], between: tuple[str, str] | list[str] | None) -> list[str]:
     """The two slices the control pair stands for: ``between`` or the first and last slice."""
     if between is None:
-        if len(labels) < 2:
-            raise DriftError(
-                f"The run has one slice ({labels[0]}), so there is no pair to build a control "
-                "from; slice into two or more periods or pass --no-control."
-            )
         return [labels[0], labels[-1]]
     pair = check_between(labels, between)
     return pair
@@ -707,6 +721,7 @@ def train_run(
     cores = _resolve_workers(workers)
     paths = runfolder.existing_run(Path(run), needs="slices")
     labels = checked_slice_labels(paths)
+    check_more_than_one_slice(paths, labels)
     pair = resolve_between(labels, between) if control else None
     shuffle_seed = params.base_seed
     stage_params = {**asdict(params), "control": bool(control), "between": pair}
@@ -779,6 +794,7 @@ def _control_summary(
 def _train_record(run: str | Path) -> dict[str, Any]:
     root = Path(run)
     paths = runfolder.existing_run(root, needs="models")
+    runfolder.check_current(paths.root, "train")  # models made from the slices there now
     record = runfolder.read_manifest(paths.root).get("stages", {}).get("train")
     if not record:
         raise DriftError(f"{root} has no finished training; run 'drift train {root}'.")

@@ -282,7 +282,7 @@ def print_rows(
         if fmt == "csv":
             stream.write(rows.to_csv(index=False))
         elif fmt == "json":
-            stream.write(rows_as_json(rows) + "\n")
+            stream.write(rows_as_json(rows))  # ends with a newline
         else:
             print_table(table_factory, handle)
     finally:
