@@ -421,7 +421,9 @@ def test_a_column_that_holds_no_dates_fails_at_once(tmp_path, monkeypatch):
         match=r"None of the first [\d,]+ values in the time column 'date' is a date",
     ):
         slice_archive(path, tmp_path / "run", quiet=True)
-    with pytest.raises(DriftError, match="2,000 of 2,000 values"):  # the file has 2,000 rows
+    with pytest.raises(
+        DriftError, match="None of the 2,000 values .* so --skip-bad-dates would leave nothing"
+    ):
         slice_archive(path, tmp_path / "run", skip_bad_dates=True, quiet=True)
 
 

@@ -257,12 +257,15 @@ def test_between_must_name_two_slices_of_the_run(trained):
         training.train_run(root, **TINY, between=["2001", "2001"])
 
 
-def test_one_slice_cannot_have_a_control_pair(tmp_path):
+def test_one_slice_is_refused_with_advice_to_slice_again(tmp_path):
+    """One slice has nothing to compare: --no-control would train, then rank would stop, so the
+    advice is to cut the archive into two or more periods, with or without a control."""
     root = make_run(tmp_path / "one", {"2001": corpus_lines(LEE_BACKGROUND)[:50]})
-    with pytest.raises(DriftError, match="--no-control"):
-        training.train_run(root, **TINY)
-    table = training.train_run(root, **{**TINY, "seeds": 1}, control=False)
-    assert len(table) == 1 and training.control_info(root) is None
+    for control in (True, False):
+        with pytest.raises(DriftError, match="has one slice .*--by even:2") as error:
+            training.train_run(root, **TINY, control=control)
+        assert "--no-control" not in str(error.value)
+    assert not (root / "models").exists()
 
 
 def test_loading_a_model_that_was_not_trained_suggests_the_labels(trained):
