@@ -526,12 +526,13 @@ def _lock_refusal(root: Path, owner: dict[str, Any], busy: bool) -> DriftError |
     """Why the lock cannot be taken (None when it can)."""
     host, pid = owner.get("host"), owner.get("pid")
     here = platform.node()
-    who = f"pid {pid}" + (f" on host {host}" if host and host != here else "")
+    where = f" on host {host}" if host and host != here else ""
+    who = f"pid {pid}{where}"
     since = f" since {owner['since']}" if owner.get("since") else ""
     if busy:
         return DriftError(
-            f"Run folder {root} is in use by another drift process ({who}{since}); wait for it "
-            "to finish or choose another folder."
+            f"Run folder {root} is in use by another drift process (pid {pid}){where}{since}; "
+            "wait for it to finish or choose another folder."
         )
     if host and host != here:
         # The OS lock is free, yet the record says another machine holds it: that machine may
@@ -542,8 +543,8 @@ def _lock_refusal(root: Path, owner: dict[str, Any], busy: bool) -> DriftError |
         )
     if isinstance(pid, int) and pid != os.getpid() and _pid_alive(pid):
         return DriftError(
-            f"Run folder {root} is in use by another drift process ({who}{since}); wait for it "
-            "to finish or choose another folder."
+            f"Run folder {root} is in use by another drift process (pid {pid}){where}{since}; "
+            "wait for it to finish or choose another folder."
         )
     return None
 
