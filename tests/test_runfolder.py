@@ -190,7 +190,8 @@ def test_a_second_writer_is_refused_while_the_first_lives(tmp_path):
     # the holder was killed: its lock is stale and is taken over
     assert (tmp_path / runfolder.LOCK_NAME).exists()
     with runfolder.run_lock(tmp_path):
-        assert (tmp_path / runfolder.LOCK_NAME).read_text() == str(os.getpid())
+        record = json.loads((tmp_path / runfolder.LOCK_NAME).read_text())
+        assert record["pid"] == os.getpid()  # with the host and start time beside it
     assert not (tmp_path / runfolder.LOCK_NAME).exists()
 
 
