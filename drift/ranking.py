@@ -2,7 +2,7 @@
 
 Reads the trained models (``models/<label>/seed-<k>.kv``), the control pair when there is one,
 ``counts.parquet`` and ``slices/summary.csv``; writes ``scores.parquet``, ``scores.csv``,
-``timeline.parquet`` and ``terms.parquet`` (schemas in DEVELOPERS.md).
+``timeline.parquet``, ``terms.parquet`` and ``neighbours.parquet`` (schemas in DEVELOPERS.md).
 
 How a run is scored (per seed, then averaged over seeds with the spread kept in ``*_sd``):
 
@@ -38,7 +38,7 @@ import pandas as pd
 from drift import options, runfolder
 from drift.alignment import AnchorSpec, SliceVectors, align_onto, parse_anchors, prepare_vectors
 from drift.changepoint import change_points
-from drift.errors import DriftError, unknown_word_error
+from drift.errors import DriftError
 from drift.measures import (
     Neighbours,
     consensus_neighbours,
@@ -571,7 +571,8 @@ def rank_run(
         inputs, list(anchor_spec) if isinstance(anchor_spec, list) else None
     )
     paths = inputs.paths
-    outputs = (paths.scores_parquet, paths.timeline_parquet, paths.terms_parquet)
+    outputs = (paths.scores_parquet, paths.timeline_parquet, paths.terms_parquet,
+               paths.neighbours_parquet)
     if runfolder.stage_is_current(root, "rank", params, fingerprint) and all(
         p.exists() for p in outputs
     ) and runfolder.stale_reason(root, "rank") is None:
@@ -590,11 +591,19 @@ def rank_run(
             timeline.to_parquet(tmp, index=False)
         with runfolder.atomic_path(inputs.paths.terms_parquet) as tmp:
             terms.to_parquet(tmp, index=False)
+        _write_neighbours(root, list(scores["word"]))
         runfolder.record_stage(
             root, "rank", params, fingerprint, time.perf_counter() - started, extra=extra,
             outputs=[*outputs, paths.scores_csv],
         )
     return read_scores(root)  # the same types as a reused result
+
+
+def _write_neighbours(root: Path, words: list[str]) -> None:
+    """neighbours.parquet: each measured word's neighbours per slice at the word pages' k."""
+    from drift.neighbours import write_neighbours_table
+
+    write_neighbours_table(root, words)
 
 
 def compute_scores(
@@ -839,44 +848,13 @@ def neighbours_by_slice(
 
     Columns slice, rank, neighbour, similarity. The similarity is the cosine of the prepared
     vectors averaged over seeds (every seed's similarity to every candidate, then the k best of
-    the average); the candidates are the words every slice knows, as in the rank stage.
+    the average); the candidates are the words every slice knows, as in the rank stage. Read
+    from neighbours.parquet when it holds the word at this k (see :mod:`drift.neighbours`).
     """
     k = options.check_k(k, "--neighbours")
-    inputs = read_run_inputs(run)
-    per_seed = {
-        seed: {label: load_slice_vectors(inputs.paths, label, seed) for label in inputs.labels}
-        for seed in inputs.seeds
-    }
-    everything = [s for slices in per_seed.values() for s in slices.values()]
-    if not any(word in s.index for s in everything):
-        known = {w for s in everything for w in s.words}
-        raise unknown_word_error(word, known, where="any slice of this run")
-    cand_words = candidate_words(everything)
-    _check_k(k, len(cand_words), "every slice")
-    frames = []
-    for label in inputs.labels:
-        if word not in per_seed[inputs.seeds[0]][label].index:
-            continue
-        total = np.zeros(len(cand_words))
-        for slices in per_seed.values():
-            vectors = slices[label].vectors
-            rows = slices[label].rows(cand_words)
-            total += vectors[rows] @ vectors[slices[label].index[word]]
-        mean = total / len(per_seed)
-        if word in cand_words:
-            mean[cand_words.index(word)] = -np.inf
-        best = np.argsort(-mean, kind="stable")[:k]
-        frames.append(
-            pd.DataFrame(
-                {
-                    "slice": label,
-                    "rank": np.arange(1, len(best) + 1),
-                    "neighbour": pd.Series([cand_words[i] for i in best], dtype=object),
-                    "similarity": mean[best],
-                }
-            )
-        )
-    return pd.concat(frames, ignore_index=True)
+    from drift.neighbours import word_neighbours
+
+    return word_neighbours(run, word, k)
 
 
 EXPORT_FORMATS = options.VECTOR_FORMATS

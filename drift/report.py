@@ -20,7 +20,7 @@ import os
 import re
 import time
 from collections.abc import Iterable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, NamedTuple
 
@@ -28,7 +28,7 @@ import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
 
-from drift import charts, evidence, ranking, runfolder
+from drift import charts, evidence, neighbours, ranking, runfolder, wordviews
 from drift.errors import DriftError, unknown_word_error
 from drift.options import ReportOptions
 from drift.runfolder import RunPaths
@@ -47,12 +47,22 @@ CSP_TEMPLATE = (
     "img-src data: blob:; font-src data:; connect-src 'none'; base-uri 'none'; form-action 'none'"
 )
 _SCRIPT_RE = re.compile(r"<script[^>]*>(.*?)</script>", re.S | re.I)
+#: Plotly's toolbar keeps only what works offline (download as SVG, zoom, pan, reset). Its
+#: share ("send to cloud") control is switched off and removed, so no control on a page can send
+#: data off the machine (plotly.js 3 has no other link); the page's policy forbids requests too.
 FIGURE_CONFIG = {
     "displaylogo": False,
     "responsive": True,
+    "showSendToCloud": False,
     "toImageButtonOptions": {"format": "svg"},
-    "modeBarButtonsToRemove": ["select2d", "lasso2d"],
+    "modeBarButtonsToRemove": [
+        "sendDataToCloud", "select2d", "lasso2d", "zoomIn2d", "zoomOut2d",
+        "autoScale2d", "toggleSpikelines", "hoverClosestCartesian", "hoverCompareCartesian",
+    ],
 }
+#: Words of a page's figures: the title is the page's own heading, so figures carry none (the
+#: toolbar would cover it on a narrow screen).
+UNTITLED = {"title_text": "", "margin_t": 36}
 # A click on a point of the overview scatter opens the word's page, when it has one.
 _CLICK_TO_PAGE = (
     "var gd=document.getElementById('{plot_id}');"
@@ -75,6 +85,8 @@ class RunData:
     scores: pd.DataFrame
     timeline: pd.DataFrame
     terms: pd.DataFrame
+    composition: pd.DataFrame | None = None
+    _standardiser: Any = field(default=None, repr=False)
 
     @property
     def rank_params(self) -> dict[str, Any]:
@@ -96,6 +108,35 @@ class RunData:
     @property
     def alpha(self) -> float:
         return float(self.rank_params.get("alpha") or 0.05)
+
+    @property
+    def rank_record(self) -> dict[str, Any]:
+        return self.manifest.get("stages", {}).get("rank", {}) or {}
+
+    @property
+    def significance(self) -> dict[str, Any] | None:
+        """``stages.rank.significance`` ({"status": "full"|"weak"|"unavailable", "reason"})."""
+        found = self.rank_record.get("significance")
+        return found if isinstance(found, dict) else None
+
+    @property
+    def measure(self) -> str:
+        return str(self.rank_params.get("measure") or "displacement")
+
+    def change_range(self, word: str) -> wordviews.ChangeRange | None:
+        """The word's change point with its range, when one is warranted (see
+        :func:`change_warranted`), else None."""
+        row = self.score_row(word)
+        if not change_warranted(row, len(self.labels)):
+            return None
+        if self._standardiser is None:
+            self._standardiser = wordviews.slice_standardiser(self.timeline, self.labels)
+        rows = charts._word_rows(self.word_timeline(word), self.labels)
+        return wordviews.change_range(
+            rows["distance"].to_numpy(), rows["distance_sd"].to_numpy(), self.labels,
+            str(row["change_point"]), float(row["change_step"]), self._standardiser,
+            reference=self.reference,
+        )
 
     def known_words(self) -> set[str]:
         return set(self.scores["word"]) | set(self.timeline["word"])
@@ -127,7 +168,38 @@ def load_run(run: Path) -> RunData:
         scores=scores,
         timeline=timeline,
         terms=terms,
+        composition=read_composition(run),
     )
+
+
+#: Where the slice composition table may live (written by the slice stage when it records
+#: metadata); the report shows it when present.
+COMPOSITION_FILES = ("composition.parquet", "slices/composition.parquet", "composition.csv",
+                     "slices/composition.csv")
+
+
+def read_composition(run: Path) -> pd.DataFrame | None:
+    """The run's slice composition table, or None when the run has none."""
+    for name in COMPOSITION_FILES:
+        path = Path(run) / name
+        if path.is_file():
+            try:
+                if path.suffix == ".csv":
+                    return pd.read_csv(path, dtype={"slice": str, "label": str})
+                return pd.read_parquet(path)
+            except (OSError, ValueError):
+                return None
+    return None
+
+
+def change_warranted(row: pd.Series | None, n_slices: int) -> bool:
+    """A change point is shown only for a significant word whose step is positive (it moved
+    away, not back), on a run of more than two slices."""
+    if row is None or n_slices <= 2 or not bool(row.get("significant")):
+        return False
+    point, step = row.get("change_point"), row.get("change_step")
+    return (isinstance(point, str) and point != "" and step is not None
+            and bool(np.isfinite(float(step))) and float(step) > 0)
 
 
 # ---------------------------------------------------------------------------- HTML pieces
@@ -238,12 +310,39 @@ mark { background: #ffe8a3; padding: 0 0.15em; font-weight: 600; }
 #script-errors { display: none; }
 .nojs { border: 1px solid var(--warn); padding: 0.5rem; }
 footer { margin-top: 3rem; color: var(--muted); font-size: 0.85rem; }
+.table-wrap { overflow-x: auto; max-width: 100%; margin: 0.4rem 0 1rem; }
+.table-wrap > table { margin: 0; }
+table.neighbours td { white-space: nowrap; }
+table.neighbours td.new .word { font-weight: 700; }
+.sim { color: var(--muted); font-size: 0.78rem; font-variant-numeric: tabular-nums; }
+.warning { border-left: 4px solid #D55E00; background: #fbeee6; padding: 0.5rem 0.9rem;
+  margin: 1rem 0; max-width: 60rem; }
+.warning ul { margin: 0.3rem 0 0; padding-left: 1.2rem; }
+p.change { max-width: 60rem; }
+.search { display: flex; flex-wrap: wrap; gap: 0.5rem 1rem; align-items: center;
+  margin: 0.6rem 0; padding: 0.4rem 0; position: sticky; top: 0; background: #fff; }
+.search input[type=search] { font: inherit; padding: 0.3rem 0.5rem; width: 16rem;
+  max-width: 100%; }
+tr[hidden] { display: none; }
+code { overflow-wrap: anywhere; }
+@media (max-width: 640px) {
+  main { padding: 1rem 0.7rem 2rem; }
+  h1 { font-size: 1.4rem; }
+  table { font-size: 0.85rem; }
+  table.facts th { width: auto; min-width: 8rem; }
+  th, td { padding-right: 0.5rem; }
+}
 @media print {
-  body { font-size: 11pt; }
+  @page { size: A4; margin: 15mm 14mm; }
+  body { font-size: 10.5pt; }
   main { max-width: none; padding: 0; }
-  nav, .modebar-container { display: none !important; }
+  nav, .modebar-container, .search, noscript { display: none !important; }
   a { color: inherit; text-decoration: none; }
   h2 { break-after: avoid; page-break-after: avoid; }
+  .table-wrap { overflow: visible; }
+  table { font-size: 8.5pt; }
+  tr { break-inside: avoid; page-break-inside: avoid; }
+  .figure { max-width: 100%; overflow: hidden; }
 }
 """
 
@@ -258,21 +357,45 @@ window.addEventListener('error', function (event) {
   if (box) { box.textContent = window.driftScriptErrors.join('\\n'); }
 }, true);
 """
+# Also fits the figures to the printed page's width (A4 less margins, about 680 CSS pixels)
+# while printing, and back afterwards.
 PLOTLY_CHECK = """
 if (!window.Plotly) {
   var note = document.getElementById('plotly-missing');
   if (note) { note.hidden = false; }
+} else {
+  var driftFigures = function () { return document.querySelectorAll('.js-plotly-plot'); };
+  window.addEventListener('beforeprint', function () {
+    driftFigures().forEach(function (gd) { Plotly.relayout(gd, {width: 680}); });
+  });
+  window.addEventListener('afterprint', function () {
+    driftFigures().forEach(function (gd) {
+      Plotly.relayout(gd, {width: null, autosize: true});
+    });
+  });
 }
 """
 
 
-def page_html(title: str, body: str, plotly_src: str, scripts: Sequence[str] = ()) -> str:
+def page_html(
+    title: str, body: str, plotly_src: str | None, scripts: Sequence[str] = ()
+) -> str:
     """A whole page: head with the style and error hook, the shared plotly.js, then ``body``.
 
     ``scripts`` are the bodies of the inline scripts inside ``body`` (from :func:`figure_html`);
-    only they, the error hook and the plotly check may run.
+    only they, the error hook and the plotly check may run. ``plotly_src`` None: a page without
+    figures, which loads no plotly.js.
     """
     csp = content_security_policy([ERROR_HOOK, PLOTLY_CHECK, *scripts])
+    plotly = (
+        f'<script src="{esc(plotly_src)}"></script>' if plotly_src else ""
+    )
+    missing = (
+        f"""<p id="plotly-missing" class="nojs" hidden>The charts need {esc(plotly_src)} next to
+this page's folder; keep the charts folder together.</p>"""
+        if plotly_src
+        else ""
+    )
     return f"""<!DOCTYPE html>
 <html lang="en">
 <head>
@@ -283,12 +406,11 @@ def page_html(title: str, body: str, plotly_src: str, scripts: Sequence[str] = (
 <title>{esc(title)}</title>
 <style>{STYLE}</style>
 <script>{ERROR_HOOK}</script>
-<script src="{esc(plotly_src)}"></script>
+{plotly}
 </head>
 <body>
 <main>
-<p id="plotly-missing" class="nojs" hidden>The charts need {esc(plotly_src)} next to this page's
-folder; keep the charts folder together.</p>
+{missing}
 <noscript><p class="nojs">The charts need JavaScript; the tables hold the numbers.</p>
 </noscript>
 {body}
@@ -311,71 +433,218 @@ def facts_table(rows: Iterable[tuple[str, str]]) -> str:
     return f'<table class="facts">{body}</table>'
 
 
-def _words_html(text: object) -> str:
-    words = str(text or "").split()
-    return esc(", ".join(words)) if words else '<span class="muted">none</span>'
+def _words_html(words: object) -> str:
+    """Words (a list, or one space-separated string) as an HTML list, or 'none'."""
+    items = [str(w) for w in words] if isinstance(words, list | tuple) else str(words or "").split()
+    return esc(", ".join(items)) if items else '<span class="muted">none</span>'
 
 
-# ---------------------------------------------------------------------------- word page
+def _list(words: Sequence[str], limit: int = 5) -> str:
+    """'a, b and c' as HTML."""
+    shown = [esc(w) for w in list(words)[:limit]]
+    if len(shown) <= 1:
+        return "".join(shown)
+    return ", ".join(shown[:-1]) + " and " + shown[-1]
 
 
-def word_summary_html(data: RunData, word: str, row: pd.Series | None) -> str:
-    """One plain paragraph that says what the numbers mean for this word."""
+def _boundary(labels: Sequence[str], after: str) -> tuple[str, str]:
+    at = list(labels).index(after)
+    return labels[at - 1], labels[at]
+
+
+@dataclass
+class WordView:
+    """Everything one word page shows, gathered once."""
+
+    word: str
+    row: pd.Series | None
+    neighbours: pd.DataFrame  # slice, rank, neighbour, similarity (the word's rows)
+    k: int
+    change: wordviews.ChangeRange | None
+    geometry: wordviews.WordGeometry | None = None
+
+    def gained_lost(self, data: RunData) -> tuple[list[str], list[str]]:
+        a, b = data.between
+        return neighbours.gained_and_lost(self.neighbours, a, b, self.k)
+
+    def turnover(self, data: RunData) -> float:
+        a, b = data.between
+        return neighbours.turnover(self.neighbours, a, b, self.k)
+
+
+def verdict_html(data: RunData, row: pd.Series) -> str:
+    return (
+        f'<span class="sig">significant</span> at q ≤ {data.alpha:g}'
+        if bool(row.get("significant"))
+        else f"not significant at q ≤ {data.alpha:g}"
+    )
+
+
+def word_summary_html(data: RunData, view: WordView) -> str:
+    """The lead: how the word changed (from which neighbours to which, and when), or that it
+    did not move more than words of its frequency do."""
     a, b = data.between
+    word, row = view.word, view.row
     w = f"“{esc(word)}”"
     if row is None:
         return (
             f'<p class="lead">{w} was not measured between {esc(a)} and {esc(b)} (it is missing '
             "or too rare in one of them); the charts show the slices where it was.</p>"
         )
-    verdict = (
-        f'<span class="sig">significant</span> at q ≤ {data.alpha:g}'
-        if bool(row.get("significant"))
-        else f"not significant at q ≤ {data.alpha:g}"
+    numbers = (
+        f"It moved {fmt(row.get('displacement'))} in cosine distance (± "
+        f"{fmt(row.get('displacement_sd'))} over seeds); z = {fmt(row.get('z'))}, "
+        f"q = {fmt(row.get('q'))}: {verdict_html(data, row)}. It ranks {fmt(row.get('rank'))} "
+        f"of {len(data.scores):,} measured words."
+    )
+    gained, lost = view.gained_lost(data)
+    if bool(row.get("significant")):
+        when = ""
+        if view.change is not None:
+            before, after = _boundary(data.labels, view.change.point)
+            when = f", mostly between {esc(before)} and {esc(after)}"
+        if gained and lost:
+            how = (f"Between {esc(a)} and {esc(b)}, {w} moved from {_list(lost)} to "
+                   f"{_list(gained)}{when}.")
+        else:
+            how = (f"Between {esc(a)} and {esc(b)}, {w} moved{when}, while its {view.k} nearest "
+                   "neighbours stayed the same.")
+        return f'<p class="lead">{how} {numbers}</p>'
+    kept = view.k - len(gained)
+    calibrated = pd.notna(row.get("z"))
+    moved = (
+        f"Between {esc(a)} and {esc(b)}, {w} did not move more than words of its frequency do "
+        "by chance."
+        if calibrated
+        else f"Between {esc(a)} and {esc(b)}, {w} has no calibrated verdict (no control)."
     )
     return (
-        f'<p class="lead">Between {esc(a)} and {esc(b)}, {w} moved {fmt(row.get("displacement"))} '
-        f"in cosine distance (spread over seeds ± {fmt(row.get('displacement_sd'))}). Against "
-        f"control words of similar frequency that is z = {fmt(row.get('z'))}, "
-        f"q = {fmt(row.get('q'))}: {verdict}. It ranks {fmt(row.get('rank'))} of "
-        f"{len(data.scores):,} measured words.</p>"
+        f'<p class="lead">{moved} {numbers} Of its {view.k} nearest neighbours in {esc(a)}, '
+        f"{kept} are still among its {view.k} nearest in {esc(b)}.</p>"
     )
 
 
-def word_facts_html(data: RunData, row: pd.Series | None) -> str:
-    """The numbers of a word: score, z, p, q, counts, change point, neighbours gained and lost."""
+def change_html(data: RunData, view: WordView) -> str:
+    """One plain sentence about the change point and its range, or why there is none."""
+    row = view.row
+    if view.change is not None:
+        c = view.change
+        before, after = _boundary(data.labels, c.point)
+        if c.low == c.high == c.point:
+            spread = f"the same boundary in {c.share:.0%} of {c.redraws:,} redraws"
+        else:
+            lo_a, lo_b = _boundary(data.labels, c.low)
+            hi_a, hi_b = _boundary(data.labels, c.high)
+            spread = (
+                f"range (shaded): from {esc(lo_a)} → {esc(lo_b)} to {esc(hi_a)} → {esc(hi_b)} in "
+                f"{wordviews.COVERAGE:.0%} of {c.redraws:,} redraws; {c.share:.0%} chose "
+                f"{esc(before)} → {esc(after)}"
+            )
+        return (
+            f'<p class="change"><strong>Change point:</strong> it moved most between '
+            f"{esc(before)} and {esc(after)} (mean distance after minus before: "
+            f"+{fmt(c.step)}); {spread}. The range comes from a parametric bootstrap over the "
+            "timeline: each slice's distance is redrawn around the before/after fit with its seed "
+            "spread and the timeline's scatter, and the boundary chosen again.</p>"
+        )
+    if row is None:
+        reason = "the word was not measured"
+    elif len(data.labels) <= 2:
+        reason = "a run of two slices has no boundary to choose"
+    elif not bool(row.get("significant")):
+        reason = "its change is not significant, so a boundary would only describe noise"
+    else:
+        reason = "its largest step goes back towards the reference, not away from it"
+    return f'<p class="change"><strong>No clear change point:</strong> {reason}.</p>'
+
+
+def _triple(row: pd.Series, prefix: str) -> str:
+    return (f"z = {fmt(row.get(prefix + 'z'))}, p = {fmt(row.get(prefix + 'p'))}, "
+            f"q = {fmt(row.get(prefix + 'q'))}")
+
+
+def word_facts_html(data: RunData, view: WordView) -> str:
+    """The numbers of a word: measures at the page's k, both nulls where the run has them,
+    counts, change point and, for a significant word, the neighbours gained and lost."""
+    row = view.row
     if row is None:
         return '<p class="muted">No scores for this word.</p>'
     a, b = data.between
-    measure = data.rank_params.get("measure", "score")
-    step = row.get("change_step")
-    change = (
-        f"from {esc(row.get('change_point'))} (step {fmt(step)})"
-        if pd.notna(row.get("change_point")) and str(row.get("change_point"))
-        else "none found"
-    )
-    return facts_table(
-        [
-            ("rank", f"{fmt(row.get('rank'))} of {len(data.scores):,}"),
-            (f"score ({measure})", fmt(row.get("score"))),
-            ("cosine displacement", f"{fmt(row.get('displacement'))} ± "
-             f"{fmt(row.get('displacement_sd'))} (seeds)"),
-            ("neighbour turnover", f"{fmt(row.get('turnover'))} ± {fmt(row.get('turnover_sd'))}"),
-            ("local neighbourhood change", f"{fmt(row.get('local'))} ± {fmt(row.get('local_sd'))}"),
-            ("z against the control", fmt(row.get("z"))),
-            ("p against the control", fmt(row.get("p"))),
-            ("q (Benjamini-Hochberg)", fmt(row.get("q"))),
-            (f"significant at q ≤ {data.alpha:g}", fmt(bool(row.get("significant")))),
-            (f"occurrences {a} → {b}",
-             f"{fmt(row.get('count_from'))} → {fmt(row.get('count_to'))}"),
-            ("per million tokens",
-             f"{fmt(row.get('fpm_from'), 1)} → {fmt(row.get('fpm_to'), 1)}"),
-            ("change point", change),
-            (f"neighbours gained by {b} (top {data.k})",
-             f'<span class="words">{_words_html(row.get("gained"))}</span>'),
-            (f"neighbours lost since {a} (top {data.k})",
-             f'<span class="words">{_words_html(row.get("lost"))}</span>'),
+    k = view.k
+    facts = [
+        ("rank", f"{fmt(row.get('rank'))} of {len(data.scores):,}"),
+        ("cosine displacement", f"{fmt(row.get('displacement'))} ± "
+         f"{fmt(row.get('displacement_sd'))} (seeds)"),
+    ]
+    if data.measure != "displacement":
+        rank_k = data.rank_params.get("k")
+        facts.append((f"ranking score ({data.measure}, over the {rank_k} nearest as ranked)",
+                      fmt(row.get("score"))))
+    facts.append((f"neighbour turnover ({k} nearest, {a} vs {b})", fmt(view.turnover(data))))
+    if "noise_z" in row.index and pd.notna(row.get("noise_z")):
+        facts.append(("beyond sampling and optimisation noise? (control pair)",
+                      _triple(row, "noise_")))
+    if "drift_z" in row.index and pd.notna(row.get("drift_z")):
+        facts.append(("more than typical words of its frequency? (this corpus)",
+                      _triple(row, "drift_")))
+    both = "noise_z" in row.index or "drift_z" in row.index
+    facts += [
+        ("headline (the more conservative)" if both else "against the time-shuffled control",
+         _triple(row, "")),
+        (f"significant at q ≤ {data.alpha:g}", fmt(bool(row.get("significant")))),
+        (f"occurrences {a} → {b}", f"{fmt(row.get('count_from'))} → {fmt(row.get('count_to'))}"),
+        ("per million tokens", f"{fmt(row.get('fpm_from'), 1)} → {fmt(row.get('fpm_to'), 1)}"),
+    ]
+    if view.change is not None:
+        before, after = _boundary(data.labels, view.change.point)
+        facts.append(("change point", f"{esc(before)} → {esc(after)} "
+                      f"(step +{fmt(view.change.step)})"))
+    else:
+        facts.append(("change point", "none shown (see above)"))
+    if bool(row.get("significant")):
+        gained, lost = view.gained_lost(data)
+        facts += [
+            (f"neighbours gained by {b}", f'<span class="words">{_words_html(gained)}</span>'),
+            (f"neighbours lost since {a}", f'<span class="words">{_words_html(lost)}</span>'),
         ]
+    return facts_table(facts)
+
+
+def neighbours_table_html(view: WordView, labels: Sequence[str]) -> str:
+    """The word's nearest neighbours per slice as a plain table (readable without JavaScript).
+
+    A neighbour in bold was not among the word's nearest in the slice before.
+    """
+    rows = view.neighbours
+    columns = [label for label in labels if (rows["slice"] == label).any()]
+    if not columns:
+        return '<p class="muted">No neighbours: the word is in no slice of the candidates.</p>'
+    lists = {label: neighbours.top_list(rows, label, view.k) for label in columns}
+    sims = {
+        label: dict(zip(rows.loc[rows["slice"] == label, "neighbour"],
+                        rows.loc[rows["slice"] == label, "similarity"], strict=True))
+        for label in columns
+    }
+    head = '<th class="num">#</th>' + "".join(f"<th>{esc(label)}</th>" for label in columns)
+    body = []
+    for i in range(view.k):
+        cells = [f'<td class="num">{i + 1}</td>']
+        previous: list[str] | None = None
+        for label in columns:
+            names = lists[label]
+            if i < len(names):
+                name = names[i]
+                new = previous is not None and name not in previous
+                cls = ' class="new"' if new else ""
+                cells.append(f'<td{cls}><span class="word">{esc(name)}</span> '
+                             f'<span class="sim">{sims[label][name]:.2f}</span></td>')
+            else:
+                cells.append("<td></td>")
+            previous = names
+        body.append("<tr>" + "".join(cells) + "</tr>")
+    return (
+        f'<div class="table-wrap"><table class="neighbours"><thead><tr>{head}</tr></thead>'
+        f"<tbody>{''.join(body)}</tbody></table></div>"
     )
 
 
@@ -397,23 +666,65 @@ def examples_html(examples: pd.DataFrame, word: str, labels: Sequence[str]) -> s
     return "\n".join(parts)
 
 
-def run_word_figures(
-    data: RunData, word: str, neighbours: pd.DataFrame, *, k: int = 10
-) -> dict[str, go.Figure]:
-    """The three figures of ``word`` from a loaded run and its neighbours per slice."""
-    row = data.score_row(word)
+def _anchors(data: RunData) -> Any:
+    """The rank stage's anchors, parsed; all shared words when they cannot be read again."""
+    from drift.alignment import parse_anchors
+
+    try:
+        return parse_anchors(data.rank_params.get("anchors"))
+    except DriftError:
+        return None
+
+
+def word_views(
+    data: RunData, words: Sequence[str], *, k: int = neighbours.PAGE_K, geometry: bool = True
+) -> dict[str, WordView]:
+    """The views of ``words``: neighbours from neighbours.parquet (or the models), change
+    ranges and, with ``geometry``, path and self-similarity; each model is loaded at most once."""
+    words = list(words)
+    if not words:
+        return {}
+    table = neighbours.read_neighbours(data.root)
+    needs_models = geometry or table is None or neighbours.stored_k(table) < k or not set(
+        words
+    ) <= set(table["word"])
+    models = neighbours.load_run_models(data.root) if needs_models else None
+    near = neighbours.neighbours_for(data.root, words, k, models=models)
+    shapes = (
+        wordviews.word_geometry(models, words, near, data.reference, _anchors(data))
+        if geometry and models is not None
+        else {}
+    )
+    return {
+        word: WordView(
+            word,
+            data.score_row(word),
+            near[near["word"] == word].drop(columns="word").reset_index(drop=True),
+            k,
+            data.change_range(word),
+            shapes.get(word),
+        )
+        for word in words
+    }
+
+
+def run_word_figures(data: RunData, view: WordView) -> dict[str, go.Figure]:
+    """The figures of one word from a loaded run and its view."""
     return charts.word_figures(
-        data.word_timeline(word),
-        neighbours,
-        word=word,
+        data.word_timeline(view.word),
+        view.neighbours,
+        word=view.word,
         slices=data.labels,
         reference=data.reference,
-        change_point=None if row is None else row.get("change_point"),
-        k=k,
+        change=view.change,
+        k=view.k,
+        geometry=view.geometry,
     )
 
 
-def word_figure_set(run: Path, word: str, *, k: int = 10) -> dict[str, go.Figure]:
+def word_figure_set(
+    run: Path, word: str, *, k: int = neighbours.PAGE_K
+) -> dict[str, go.Figure]:
     """The plotly figures of ``word``'s page, for a script or a notebook.
 
     Parameters
@@ -429,7 +740,8 @@ def word_figure_set(run: Path, word: str, *, k: int = 10) -> dict[str, go.Figure
     -------
     dict of str to plotly.graph_objects.Figure
         ``timeline`` (distance from the reference slice, with the control's 95th percentile),
-        ``neighbours`` and ``frequency``.
+        ``neighbours``, ``frequency``, ``path`` (the word among its neighbours, PCA of the
+        aligned vectors) and ``self_similarity``.
 
     Raises
     ------
@@ -441,48 +753,103 @@ def word_figure_set(run: Path, word: str, *, k: int = 10) -> dict[str, go.Figure
     >>> import drift
     >>> figures = drift.word_figure_set(run, "tablet")
     >>> sorted(figures)
-    ['frequency', 'neighbours', 'timeline']
+    ['frequency', 'neighbours', 'path', 'self_similarity', 'timeline']
     >>> figures["timeline"].show()  # doctest: +SKIP
     """
     data = load_run(Path(run))
     _check_word(data, word)
-    return run_word_figures(data, word, ranking.neighbours_by_slice(run, word, k=k), k=k)
+    return run_word_figures(data, word_views(data, [word], k=k)[word])
+
+
+def warnings_html(data: RunData) -> str:
+    """Warnings the terminal prints, for the pages: small slices, a weak or missing null."""
+    from drift.slicing import slice_warnings
+
+    messages = []
+    if "tokens" in data.summary:
+        messages += [m[0].upper() + m[1:] for m in slice_warnings(data.summary)]
+    sig = data.significance
+    if sig and sig.get("status") in ("weak", "unavailable"):
+        what = ("Significance is weak" if sig["status"] == "weak"
+                else "Significance is unavailable")
+        messages.append(f"{what}: {sig.get('reason') or 'see the run record'}")
+    if not messages:
+        return ""
+    items = "".join(f"<li>{esc(m)}</li>" for m in messages)
+    return f'<div class="warning"><strong>Warnings</strong><ul>{items}</ul></div>'
 
 
 def word_page(
     data: RunData,
-    word: str,
-    neighbours: pd.DataFrame,
+    view: WordView,
     examples: pd.DataFrame,
     *,
-    k: int = 10,
     report_link: bool = False,
 ) -> str:
-    """The whole HTML page of one word; ``neighbours`` holds its top ``k`` per slice."""
-    row = data.score_row(word)
-    figures = run_word_figures(data, word, neighbours, k=k)
-    parts = {name: figure_html(fig, f"fig-{name}") for name, fig in figures.items()}
-    nav = '<nav><a href="../index.html">← overview report</a></nav>' if report_link else ""
+    """The whole HTML page of one word."""
+    word, k = view.word, view.k
+    figures = run_word_figures(data, view)
+    parts = {
+        name: figure_html(fig.update_layout(**UNTITLED), f"fig-{name}")
+        for name, fig in figures.items()
+    }
+    nav = (
+        '<nav><a href="../index.html">← overview report</a> · '
+        '<a href="../word-index.html">all measured words</a></nav>'
+        if report_link
+        else ""
+    )
+    a, b = data.between
+    geometry = ""
+    wordviews_labels = charts.PATH_LABELS
+    if "path" in parts:
+        seeds = view.geometry.seeds if view.geometry else 1
+        geometry = f"""
+<h2 id="path">Its path among its neighbours</h2>
+<p class="muted">Each slice's vectors are rotated onto {esc(data.reference)} (orthogonal
+Procrustes); the word's vector in every slice and each neighbour's vector (in the slice where it
+ranked best) are projected onto their first two principal components (PCA fitted on these points
+only, first seed's models). The axes are scaled separately and keep only the share of variance
+given on them, so read the order of the points more than their distances. Neighbours among the
+{wordviews_labels} best somewhere are named; hover for the others.</p>
+<div class="figure">{parts["path"].html}</div>
+<h2 id="self-similarity">Compared with itself</h2>
+<p class="muted">Cosine similarity of the word's aligned vectors between every two slices,
+averaged over {seeds} seed{'s' if seeds != 1 else ''}, on a fixed 0 to 1 scale. Dark blocks of
+similar slices before and after a boundary show a change; an even field shows a stable word.</p>
+<div class="figure">{parts["self_similarity"].html}</div>"""
     body = f"""
 {nav}
 <p class="muted">drift · {esc(data.root.name)} · word page</p>
 <h1 class="word">{esc(word)}</h1>
-{word_summary_html(data, word, row)}
+{word_summary_html(data, view)}
+<p class="muted k-note">Neighbours on this page are the {k} nearest in each slice (similarity
+averaged over seeds); gained, lost and turnover are counted among these {k}.</p>
 {caution_html()}
+{warnings_html(data)}
 <h2 id="timeline">Where it moved</h2>
 <p class="muted">Distance of the word's vector in each slice from its vector in
-{esc(data.reference)}, after aligning the slices (orthogonal Procrustes). The grey band is what
-the time-shuffled control shows for words this frequent; points above it moved more than chance
-would move them.</p>
+{esc(data.reference)}, after aligning the slices (orthogonal Procrustes). The y axis runs from 0 to
+{charts.DISTANCE_AXIS_MAX:g} on every page, so pages compare at a glance. The grey band comes from
+the control pair ({esc(a)} and {esc(b)} pooled and split at random, so without real change): 95%
+of control words this frequent moved less than its top edge. It is a per-slice line, not corrected
+for testing {len(data.scores):,} words at once, so a point above it is not by itself significant;
+the verdict uses q, which is corrected (Benjamini-Hochberg). p is read from the control's own
+distribution of standardised values (not a normal curve), so a large z can sit beside a modest
+p.{' The dotted line is the typical movement of words this frequent in this corpus.'
+   if 'typical' in data.timeline else ''}</p>
+{change_html(data, view)}
 <div class="figure">{parts["timeline"].html}</div>
-<h2 id="neighbours">Its neighbours over time</h2>
-<p class="muted">Rows are the words closest to it in any slice; a dark cell is a close neighbour in
-that slice, an empty cell means the word was not among its {k} nearest there.</p>
+<h2 id="neighbours">Its neighbours in each slice</h2>
+<p class="muted">The {k} nearest words in each slice, closest first, with their cosine
+similarity; a word in bold was not among the {k} nearest in the slice before.</p>
+{neighbours_table_html(view, data.labels)}
 <div class="figure">{parts["neighbours"].html}</div>
+{geometry}
 <h2 id="frequency">How often it occurs</h2>
 <div class="figure">{parts["frequency"].html}</div>
 <h2 id="numbers">The numbers</h2>
-{word_facts_html(data, row)}
+{word_facts_html(data, view)}
 <h2 id="examples">Examples from each slice</h2>
 <p class="muted">Drawn at random (fixed seed) from the slice files; read them to check the change
 yourself.</p>
@@ -495,23 +862,52 @@ yourself.</p>
 # ---------------------------------------------------------------------------- overview page
 
 
-def slices_table_html(summary: pd.DataFrame) -> str:
-    columns = [c for c in ("label", "start", "end", "documents", "tokens", "types", "dropped")
-               if c in summary]
-    numeric = {"documents", "tokens", "types", "dropped"}
+def _wrap(table: str) -> str:
+    """A table in a box that scrolls sideways on a narrow screen instead of the page."""
+    return f'<div class="table-wrap">{table}</div>'
+
+
+def frame_table_html(frame: pd.DataFrame, numeric: Iterable[str] | None = None) -> str:
+    """Any small table (every column shown, numbers right-aligned)."""
+    numeric = set(numeric) if numeric is not None else {
+        c for c in frame.columns if pd.api.types.is_numeric_dtype(frame[c])
+    }
     head = "".join(
-        f'<th class="num">{esc(c)}</th>' if c in numeric else f"<th>{esc(c)}</th>" for c in columns
+        f'<th class="num">{esc(c)}</th>' if c in numeric else f"<th>{esc(c)}</th>"
+        for c in frame.columns
     )
     body = "".join(
         "<tr>"
         + "".join(
-            f'<td class="num">{fmt(row[c])}</td>' if c in numeric else f"<td>{esc(row[c])}</td>"
-            for c in columns
+            f'<td class="num">{fmt(value)}</td>' if c in numeric else f"<td>{esc(value)}</td>"
+            for c, value in zip(frame.columns, row, strict=True)
         )
         + "</tr>"
-        for _, row in summary.iterrows()
+        for row in frame.itertuples(index=False)
     )
-    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+    return _wrap(f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>")
+
+
+def slices_table_html(summary: pd.DataFrame) -> str:
+    columns = [c for c in ("label", "start", "end", "documents", "tokens", "types", "dropped")
+               if c in summary]
+    return frame_table_html(summary[columns], {"documents", "tokens", "types", "dropped"})
+
+
+def composition_html(data: RunData) -> str:
+    """The slice composition table when the run has one (what each slice is made of)."""
+    if data.composition is None or data.composition.empty:
+        return (
+            '<p class="muted">This run records no slice composition (no metadata was read); '
+            "what each slice holds is known only by its size above.</p>"
+        )
+    frame = data.composition
+    if len(frame) > 200:
+        frame = frame.head(200)
+    return (
+        '<p class="muted">What each slice is made of: a change in what the archive collects '
+        "moves words too.</p>" + frame_table_html(frame)
+    )
 
 
 def parameters_html(manifest: dict[str, Any]) -> str:
@@ -550,17 +946,30 @@ def control_html(data: RunData) -> str:
     )
 
 
+def _change_cell(row: Any, n_slices: int, labels: Sequence[str]) -> str:
+    series = pd.Series(row._asdict())
+    if not change_warranted(series, n_slices):
+        return ""
+    before, after = _boundary(labels, str(series["change_point"]))
+    return f"{esc(before)} → {esc(after)}"
+
+
 def ranked_table_html(
-    scores: pd.DataFrame, links: dict[str, str], measure: str | None = "displacement"
+    scores: pd.DataFrame,
+    links: dict[str, str],
+    measure: str | None = "displacement",
+    labels: Sequence[str] | None = None,
 ) -> str:
-    """The ranked words; the score column is left out when it is the displacement itself."""
+    """The ranked words; the score column is left out when it is the displacement itself. A
+    change point is shown only where it is warranted (significant, positive step)."""
     show_score = measure != "displacement"
+    labels = list(labels or [])
     head = (
         '<tr><th class="num">rank</th><th>word</th>'
         + (f'<th class="num">score ({esc(measure)})</th>' if show_score else "")
-        + '<th class="num">displacement</th><th class="num">turnover</th><th class="num">z</th>'
+        + '<th class="num">displacement</th><th class="num">z</th>'
         '<th class="num">q</th><th>significant</th><th class="num">count from → to</th>'
-        "<th>change point</th><th>neighbours gained</th></tr>"
+        "<th>change point</th></tr>"
     )
     rows = []
     for row in scores.itertuples(index=False):
@@ -568,19 +977,18 @@ def ranked_table_html(
         cell = esc(word)
         if word in links:
             cell = f'<a href="{esc(links[word])}">{cell}</a>'
-        gained = " ".join(str(getattr(row, "gained", "") or "").split()[:5])
         rows.append(
-            f'<tr><td class="num">{fmt(row.rank)}</td><td class="word">{cell}</td>'
+            f'<tr data-word="{esc(word)}"><td class="num">{fmt(row.rank)}</td>'
+            f'<td class="word">{cell}</td>'
             + (f'<td class="num">{fmt(row.score)}</td>' if show_score else "")
             + f'<td class="num">{fmt(row.displacement)} ± {fmt(row.displacement_sd, 2)}</td>'
-            f'<td class="num">{fmt(row.turnover)}</td><td class="num">{fmt(row.z)}</td>'
-            f'<td class="num">{fmt(row.q)}</td>'
+            f'<td class="num">{fmt(row.z)}</td><td class="num">{fmt(row.q)}</td>'
             f"<td>{'◆ yes' if bool(row.significant) else 'no'}</td>"
             f'<td class="num">{fmt(row.count_from)} → {fmt(row.count_to)}</td>'
-            f"<td>{esc(row.change_point) if pd.notna(row.change_point) else ''}</td>"
-            f'<td class="words">{esc(gained)}</td></tr>'
+            f"<td>{_change_cell(row, len(labels), labels) if labels else ''}</td></tr>"
         )
-    return f"<table><thead>{head}</thead><tbody>{''.join(rows)}</tbody></table>"
+    return _wrap(f'<table class="ranked"><thead>{head}</thead><tbody>{"".join(rows)}</tbody>'
+                 "</table>")
 
 
 def terms_table_html(terms: pd.DataFrame, kind: str, a: str, b: str, limit: int = 15) -> str:
@@ -594,7 +1002,7 @@ def terms_table_html(terms: pd.DataFrame, kind: str, a: str, b: str, limit: int 
         f'{fmt(r.count_to)}</td><td class="num">{fmt(r.fpm_from, 1)} → {fmt(r.fpm_to, 1)}</td></tr>'
         for r in part.itertuples()
     )
-    return (
+    return _wrap(
         f"<table><thead><tr><th>word</th><th class=\"num\">count {esc(a)} → {esc(b)}</th>"
         f'<th class="num">per million</th></tr></thead><tbody>{rows}</tbody></table>'
     )
@@ -614,32 +1022,39 @@ def report_page(data: RunData, links: dict[str, str], top: int) -> str:
         if drawn < len(data.scores)
         else ""
     )
-    untitled = {"title_text": "", "margin_t": 30}
-    parts = [figure_html(scatter.update_layout(**untitled), "fig-scatter", _CLICK_TO_PAGE)]
+    parts = [figure_html(scatter.update_layout(**UNTITLED), "fig-scatter", _CLICK_TO_PAGE)]
     if not data.terms.empty:
-        terms = charts.terms_figure(data.terms, slices=data.labels).update_layout(**untitled)
+        terms = charts.terms_figure(data.terms, slices=data.labels).update_layout(**UNTITLED)
         parts.append(figure_html(terms, "fig-terms"))
-    terms_fig = parts[1].html if len(parts) > 1 else ""
+    terms_fig = f'<div class="figure">{parts[1].html}</div>' if len(parts) > 1 else ""
     tokens = int(data.summary["tokens"].sum()) if "tokens" in data.summary else 0
+    significant = int(data.scores["significant"].fillna(False).astype(bool).sum())
     order_note = (
         "by z, how far each word moved beyond what words of its frequency move in the control"
         if data.scores["z"].notna().any()
         else "by score (no control in this run)"
     )
     body = f"""
+<nav><a href="word-index.html">All {len(data.scores):,} measured words</a></nav>
 <p class="muted">drift · overview report</p>
 <h1>{esc(data.root.name)}</h1>
 <p class="lead">{len(data.labels)} time slices, {tokens:,} tokens. Words are compared between
-{esc(a)} and {esc(b)}; {len(data.scores):,} words were measured in both.</p>
+{esc(a)} and {esc(b)}; {len(data.scores):,} words were measured in both, {significant:,} of them
+significant at q ≤ {data.alpha:g}. <a href="word-index.html">Search every measured word</a>.</p>
 {caution_html()}
+{warnings_html(data)}
 <h2 id="ranked">Most shifted words</h2>
 <p class="muted">The top {len(ranked)} {order_note}; each word links to its page with
-timeline, neighbours and example sentences.</p>
-{ranked_table_html(ranked, links, data.rank_params.get("measure"))}
+timeline, neighbours and example sentences. A change point is listed only for a significant word
+whose distance stepped up.</p>
+{ranked_table_html(ranked, links, data.rank_params.get("measure"), data.labels)}
 <h2 id="scatter">Change against frequency</h2>
-<p class="muted">Rare words move more by chance. The line is the control's typical displacement at
-each frequency; words far above it moved more than their frequency explains. Hover for the word,
-click a charted word to open its page.{sampled}</p>
+<p class="muted">Rare words move more by chance. The line is the control's typical
+{esc(charts.MEASURE_TITLES.get(charts.measure_column(data.scores, data.measure), "score"))} at
+each frequency and the grey band its spread (z from −{charts.SPREAD_UNITS:g} to
+{charts.SPREAD_UNITS:g}); words far above it moved more than their frequency explains. The best
+ranked significant words are named. Hover for the word, click a charted word to open its
+page.{sampled}</p>
 <div class="figure">{parts[0].html}</div>
 <h2 id="terms">Emerging and fading terms</h2>
 <p class="muted">Words present in one period and absent or rare in the other cannot be measured by
@@ -648,10 +1063,12 @@ displacement; here are their frequencies.</p>
 <div><h3>Emerging by {esc(b)}</h3>{terms_table_html(data.terms, "emerging", a, b)}</div>
 <div><h3>Fading since {esc(a)}</h3>{terms_table_html(data.terms, "fading", a, b)}</div>
 </div>
-<div class="figure">{terms_fig}</div>
+{terms_fig}
 <h2 id="run">The run</h2>
 <h3>Slices</h3>
 {slices_table_html(data.summary)}
+<h3>Slice composition</h3>
+{composition_html(data)}
 <h3>Control check</h3>
 {control_html(data)}
 <h3>Parameters</h3>
@@ -659,6 +1076,79 @@ displacement; here are their frequencies.</p>
 """
     scripts = [part.script for part in parts]
     return page_html(f"{data.root.name} · drift report", body, PLOTLY_JS, scripts)
+
+
+# Filters the word index as the reader types (no server: the rows are in the page).
+INDEX_SCRIPT = """
+(function () {
+  var box = document.getElementById('word-search');
+  var only = document.getElementById('only-significant');
+  var rows = document.querySelectorAll('#word-index tbody tr');
+  var count = document.getElementById('shown-count');
+  function apply() {
+    var text = box.value.trim().toLowerCase();
+    var shown = 0;
+    for (var i = 0; i < rows.length; i++) {
+      var row = rows[i];
+      var hit = row.getAttribute('data-word').toLowerCase().indexOf(text) !== -1 &&
+        (!only.checked || row.getAttribute('data-significant') === '1');
+      row.hidden = !hit;
+      if (hit) { shown++; }
+    }
+    count.textContent = shown.toLocaleString('en') + ' shown';
+  }
+  box.addEventListener('input', apply);
+  only.addEventListener('change', apply);
+  document.getElementById('search-tools').hidden = false;
+  apply();
+})();
+"""
+
+
+def word_index_page(data: RunData, links: dict[str, str]) -> str:
+    """Every measured word with its numbers, searchable in the page (no server needed)."""
+    rows = []
+    labels = data.labels
+    for row in data.scores.sort_values("rank", kind="stable").itertuples(index=False):
+        word = str(row.word)
+        cell = esc(word)
+        if word in links:
+            cell = f'<a href="{esc(links[word])}">{cell}</a>'
+        sig = bool(row.significant)
+        rows.append(
+            f'<tr data-word="{esc(word)}" data-significant="{int(sig)}">'
+            f'<td class="num">{fmt(row.rank)}</td><td class="word">{cell}</td>'
+            f'<td class="num">{fmt(row.displacement)} ± {fmt(row.displacement_sd, 2)}</td>'
+            f'<td class="num">{fmt(row.z)}</td><td class="num">{fmt(row.q)}</td>'
+            f"<td>{'◆ yes' if sig else 'no'}</td>"
+            f'<td class="num">{fmt(row.count_from)} → {fmt(row.count_to)}</td>'
+            f"<td>{_change_cell(row, len(labels), labels)}</td></tr>"
+        )
+    a, b = data.between
+    table = (
+        '<table id="word-index" class="ranked"><thead><tr><th class="num">rank</th><th>word</th>'
+        '<th class="num">displacement</th><th class="num">z</th><th class="num">q</th>'
+        f'<th>significant</th><th class="num">count {esc(a)} → {esc(b)}</th>'
+        f"<th>change point</th></tr></thead><tbody>{''.join(rows)}</tbody></table>"
+    )
+    body = f"""
+<nav><a href="index.html">← overview report</a></nav>
+<p class="muted">drift · {esc(data.root.name)} · word index</p>
+<h1>All {len(data.scores):,} measured words</h1>
+<p class="lead">Every word measured in both {esc(a)} and {esc(b)}, best ranked first. Linked
+words have a page; make a page for any other word with <code>drift chart
+{esc(data.root)} WORD</code>.</p>
+<div id="search-tools" class="search" hidden>
+<label for="word-search">Find a word</label>
+<input id="word-search" type="search" autocomplete="off" spellcheck="false">
+<label><input id="only-significant" type="checkbox"> significant only</label>
+<span id="shown-count" class="muted"></span>
+</div>
+<noscript><p class="muted">Without JavaScript, use the browser's find (Ctrl+F).</p></noscript>
+{_wrap(table)}
+<script>{INDEX_SCRIPT}</script>
+"""
+    return page_html(f"{data.root.name} · all words · drift", body, None, [INDEX_SCRIPT])
 
 
 # ---------------------------------------------------------------------------- writing
@@ -716,15 +1206,11 @@ def _write_word_pages(
     report_link: bool,
 ) -> dict[str, Path]:
     drawn = evidence.examples_for_words(data.root, words, per_slice=examples, seed=seed)
+    views = word_views(data, words, k=k)
     written = {}
     for word in words:
         page = word_page(
-            data,
-            word,
-            ranking.neighbours_by_slice(data.root, word, k=k),
-            drawn[drawn["word"] == word],
-            k=k,
-            report_link=report_link,
+            data, views[word], drawn[drawn["word"] == word], report_link=report_link
         )
         target = word_page_path(data.root, word)
         write_page(target, page)
@@ -793,7 +1279,7 @@ def build_report(
     run: Path, *, top: int = _REPORT.top, k: int = _REPORT.k, examples: int = _REPORT.examples,
     seed: int = _REPORT.seed,
 ) -> Path:
-    """Write the overview report and the pages of the ``top`` ranked words.
+    """Write the overview report, the word index and the pages of the ``top`` ranked words.
 
     Defaults and help texts of the options: :class:`drift.options.ReportOptions`.
 
@@ -838,9 +1324,14 @@ def build_report(
         written = _write_word_pages(
             data, words, k=k, examples=examples, seed=seed, report_link=True
         )
-        links = {
-            word: f"words/{path.name}" for word, path in written.items()
+        links = {word: f"words/{path.name}" for word, path in written.items()}
+        existing = {
+            word: f"words/{word_page_path(run, word).name}"
+            for word in data.scores["word"]
+            if word not in links and word_page_path(run, word).exists()
         }
+        write_page(paths.charts_dir / "word-index.html",
+                   word_index_page(data, {**existing, **links}))
         index = paths.charts_dir / "index.html"
         write_page(index, report_page(data, links, top))
         runfolder.record_stage(

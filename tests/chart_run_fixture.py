@@ -27,6 +27,7 @@ from scipy import stats
 from scipy.linalg import orthogonal_procrustes
 
 from drift import runfolder
+from drift.neighbours import write_neighbours_table
 
 LABELS = ("2001", "2002", "2003")
 SEEDS = 2
@@ -327,6 +328,8 @@ def build_fixture_run(root: Path) -> Path:
         }
     )
     pd.DataFrame(term_rows).to_parquet(paths.terms_parquet, index=False)
+    # The neighbours table through the rank stage's own writer (drift.neighbours).
+    write_neighbours_table(root, list(scores["word"]))
     runfolder.record_stage(
         root,
         "rank",

@@ -26,7 +26,7 @@ def test_tables_and_figures_from_a_run(demo_run):
     assert isinstance(summary, pd.DataFrame) and len(summary) == 6
     word = scores.sort_values("rank")["word"].iloc[0]
     figures = drift.word_figure_set(demo_run.run, word)
-    assert set(figures) == {"timeline", "neighbours", "frequency"}
+    assert set(figures) == {"timeline", "neighbours", "frequency", "path", "self_similarity"}
     assert all(isinstance(fig, go.Figure) for fig in figures.values())
     neighbours = drift.neighbours_by_slice(demo_run.run, word, k=5)
     assert set(neighbours["slice"]) == set(summary["label"])

@@ -15,6 +15,7 @@ from gensim.models import KeyedVectors
 
 from drift import charts
 from drift.runfolder import RunPaths
+from drift.wordviews import ChangeRange
 
 WORD = "government"
 
@@ -57,12 +58,16 @@ def word_rows(timeline: pd.DataFrame, word: str) -> pd.DataFrame:
 # ---------------------------------------------------------------------------- timeline
 
 
+def change(point: str, low: str | None = None, high: str | None = None) -> ChangeRange:
+    return ChangeRange(point, 0.3, low or point, high or point, 0.9, 1000)
+
+
 def test_timeline_traces_hold_distance_spread_and_null(timeline):
     rows = word_rows(timeline, WORD)
     # shuffled input order must not matter: the figure follows the slice order it is given
     shuffled = timeline[timeline["word"] == WORD].sample(frac=1, random_state=1)
     fig = charts.timeline_figure(
-        shuffled, word=WORD, slices=LABELS, reference=LABELS[0], change_point=LABELS[1]
+        shuffled, word=WORD, slices=LABELS, reference=LABELS[0], change=change(LABELS[1])
     )
     distance = trace(fig, "distance")
     assert list(distance.x) == list(LABELS)
@@ -74,25 +79,52 @@ def test_timeline_traces_hold_distance_spread_and_null(timeline):
     null = trace(fig, "null-band")
     np.testing.assert_allclose(null.y[: len(LABELS)], rows["null_p95"].to_numpy())
     np.testing.assert_allclose(null.y[len(LABELS) :], 0.0)
+    assert "95th percentile" in null.name  # labelled for what it is
     np.testing.assert_allclose(trace(fig, "turnover").y, rows["turnover"].to_numpy())
     assert trace(fig, "turnover").visible == "legendonly"
 
 
-def test_timeline_marks_the_change_point_before_its_slice(timeline):
+def test_timeline_marks_the_change_point_before_its_slice_with_its_range(timeline):
     fig = charts.timeline_figure(
-        timeline[timeline["word"] == WORD], word=WORD, slices=LABELS, change_point=LABELS[2]
+        timeline[timeline["word"] == WORD], word=WORD, slices=LABELS,
+        change=change(LABELS[2], low=LABELS[1], high=LABELS[2]),
     )
     lines = [s for s in fig.layout.shapes if s.type == "line"]
     assert len(lines) == 1
     assert lines[0].x0 == lines[0].x1 == pytest.approx(1.5)  # between slice 2 and slice 3
-    assert any(LABELS[2] in a.text for a in fig.layout.annotations)
+    (shaded,) = [s for s in fig.layout.shapes if s.type == "rect"]
+    # the range runs from the boundary before slice 2 to the one before slice 3
+    assert shaded.x0 < 0.5 < 1.5 < shaded.x1
+    assert any(f"{LABELS[1]} → {LABELS[2]}" in a.text for a in fig.layout.annotations)
 
 
 def test_timeline_without_change_point_or_null(timeline):
     rows = timeline[timeline["word"] == WORD].assign(null_p95=np.nan)
-    fig = charts.timeline_figure(rows, word=WORD, slices=LABELS, change_point=None)
-    assert not [s for s in fig.layout.shapes if s.type == "line"]
+    fig = charts.timeline_figure(rows, word=WORD, slices=LABELS, change=None)
+    assert not fig.layout.shapes
     assert all(t.meta != "null-band" for t in fig.data)
+    assert all(t.meta != "typical" for t in fig.data)
+
+
+def test_timeline_draws_the_typical_movement_when_the_run_has_it(timeline):
+    rows = timeline[timeline["word"] == WORD].assign(typical=0.25)
+    line = trace(charts.timeline_figure(rows, word=WORD, slices=LABELS), "typical")
+    np.testing.assert_allclose(line.y, 0.25)
+
+
+def test_timeline_y_axis_is_the_same_on_every_page(timeline):
+    # a word that moved 0.2 and one that moved 1.1 are drawn on one scale
+    rows = timeline[timeline["word"] == WORD].assign(null_p95=0.1)
+    tops = set()
+    for moved in (0.2, 0.5, 1.1):
+        shaped = rows.assign(distance=np.linspace(0, moved, len(rows)), distance_sd=0.01)
+        fig = charts.timeline_figure(shaped, word=WORD, slices=LABELS)
+        tops.add(tuple(fig.layout.yaxis.range))
+    assert tops == {(0, charts.DISTANCE_AXIS_MAX)}
+    # a value beyond the fixed top extends the axis rather than being cut off
+    far = timeline[timeline["word"] == WORD].assign(distance=1.43, distance_sd=0.0)
+    fig = charts.timeline_figure(far, word=WORD, slices=LABELS)
+    assert fig.layout.yaxis.range[1] >= 1.43
 
 
 def test_timeline_leaves_missing_slices_empty(timeline):
@@ -108,7 +140,8 @@ def test_axes_are_labelled(timeline, scores, run):
         charts.frequency_figure(rows, word=WORD, slices=LABELS),
         charts.change_vs_frequency_figure(scores),
     ]
-    for fig in figures:
+    assert figures[0].layout.yaxis.title.text  # its x axis holds the slice labels
+    for fig in figures[1:]:
         assert fig.layout.xaxis.title.text and fig.layout.yaxis.title.text
     assert "per million" in figures[1].layout.yaxis.title.text
     assert "cosine" in figures[0].layout.yaxis.title.text
@@ -211,7 +244,7 @@ def test_scatter_links_points_to_pages(scores):
     word = scores["word"].iloc[0]
     fig = charts.change_vs_frequency_figure(scores, links={word: "words/x-1.html"})
     custom = [c for t in fig.data if t.customdata is not None for c in t.customdata]
-    linked = [c for c in custom if c[5]]
+    linked = [c for c in custom if c[6]]
     assert len(linked) == 1 and html.unescape(linked[0][0]) == word
 
 
@@ -275,3 +308,77 @@ def test_hostile_words_reach_figures_only_escaped(run, timeline, scores):
         text = fig.to_json()
         assert "</" not in text and "<script" not in text
     assert charts.plot_text(word) in figures["timeline"].layout.title.text
+
+
+def test_scatter_hover_data_are_the_scores_numbers(scores):
+    fig = charts.change_vs_frequency_figure(scores, measure="displacement", alpha=0.05)
+    by_word = scores.set_index("word")
+    seen = 0
+    for part in (t for t in fig.data if t.meta in ("words", "significant")):
+        for custom in part.customdata:
+            row = by_word.loc[html.unescape(custom[0])]
+            assert custom[1] == row["rank"]
+            assert custom[2] == pytest.approx(row["z"]) and custom[3] == pytest.approx(row["q"])
+            assert (custom[4], custom[5]) == (row["count_from"], row["count_to"])
+            seen += 1
+    assert seen == len(scores)
+
+
+def test_scatter_names_the_best_significant_words_and_draws_the_null_spread(scores):
+    marked = scores.assign(significant=scores["rank"] <= 20)
+    fig = charts.change_vs_frequency_figure(marked, alpha=0.05, labelled=5)
+    sig = trace(fig, "significant")
+    named = {html.unescape(t) for t in sig.text if t}
+    assert named == set(marked.nsmallest(5, "rank")["word"])
+    assert not trace(fig, "words").text  # the others carry no label
+    band = trace(fig, "null-spread")
+    centre = trace(fig, "null-centre")
+    n = len(centre.x)
+    upper, lower = np.asarray(band.y[:n]), np.asarray(band.y[n:])[::-1]
+    # centre ± 2 spreads, i.e. z = ±2 under the null's own standardisation
+    np.testing.assert_allclose((upper + lower) / 2, centre.y)
+    lookup = marked.assign(x=charts.rarer_count(marked)).drop_duplicates("x").set_index("x")
+    spread = lookup.loc[list(centre.x), "null_spread"].to_numpy()
+    # the band is as wide as its legend says
+    import re
+
+    units = float(re.search(r"z from −([0-9.]+) to", band.name).group(1))
+    np.testing.assert_allclose((upper - lower) / 2, units * spread)
+
+
+def test_terms_lines_differ_by_colour_dash_and_marker_across_both_panels(run):
+    terms = pd.read_parquet(RunPaths(run).terms_parquet)
+    fig = charts.terms_figure(terms, slices=LABELS, per_kind=4)
+    styles = [(t.line.color, t.line.dash, t.marker.symbol) for t in fig.data]
+    assert len(set(styles)) == len(styles) == 8
+    assert len({t.line.color for t in fig.data}) == min(8, len(charts.LINE_COLOURS))
+    assert fig.layout.yaxis.title.text and fig.layout.yaxis2.title.text
+
+
+def geometry(run):
+    from drift import neighbours, wordviews
+
+    models = neighbours.load_run_models(run)
+    near = neighbours.neighbours_for(run, [WORD], 10, models=models)
+    return wordviews.word_geometry(models, [WORD], near, LABELS[0])[WORD]
+
+
+def test_path_figure_joins_the_word_in_time_order_among_its_neighbours(run):
+    shape = geometry(run)
+    fig = charts.path_figure(shape, word=WORD, slices=LABELS)
+    path = trace(fig, "path")
+    assert [html.unescape(t) for t in path.text] == list(LABELS)
+    np.testing.assert_allclose(path.x, shape.path["x"])
+    near = trace(fig, "path-neighbours")
+    assert len(near.x) == len(shape.neighbours)
+    named = {html.unescape(t) for t in near.text if t}
+    assert named == set(shape.neighbours.loc[shape.neighbours["rank"] <= 3, "neighbour"])
+    assert "% of variance" in fig.layout.xaxis.title.text
+
+
+def test_self_similarity_figure_is_on_a_fixed_scale(run):
+    shape = geometry(run)
+    fig = charts.self_similarity_figure(shape.self_similarity, word=WORD, slices=LABELS)
+    heat = trace(fig, "self-similarity")
+    assert (heat.zmin, heat.zmax) == (0.0, 1.0)
+    np.testing.assert_allclose(np.diag(np.asarray(heat.z, dtype=float)), 1.0, atol=1e-6)

@@ -9,6 +9,7 @@ import json
 import re
 from pathlib import Path
 
+import numpy as np
 import pytest
 from chart_run_fixture import HOSTILE_WORDS, LABELS, fixture_run_copy
 from plotly.offline import get_plotlyjs
@@ -62,11 +63,11 @@ def test_word_page_shows_the_scores_row(run):
 
     row = pd.read_parquet(RunPaths(run).scores_parquet).set_index("word").loc[WORD]
     page = report.chart_word(run, WORD).read_text(encoding="utf-8")
-    assert f"{int(row['rank'])} of" in page
-    assert f"{int(row['count_from'])} → {int(row['count_to'])}" in page
-    assert report.fmt(row["q"]) in page and report.fmt(row["z"]) in page
-    for neighbour in row["gained"].split()[:3] + row["lost"].split()[:3]:
-        assert html.escape(neighbour) in page
+    numbers = page.split('id="numbers"', 1)[1]
+    assert f"{int(row['rank'])} of" in numbers
+    assert f"{int(row['count_from'])} → {int(row['count_to'])}" in numbers
+    assert f"q = {report.fmt(row['q'])}" in numbers and f"z = {report.fmt(row['z'])}" in numbers
+    assert f"{report.fmt(row['displacement'])} ± {report.fmt(row['displacement_sd'])}" in numbers
 
 
 def test_word_page_draws_the_rank_stages_neighbours(run):
@@ -77,6 +78,44 @@ def test_word_page_draws_the_rank_stages_neighbours(run):
     assert len(table) == 7 * len(LABELS)
     for neighbour in table["neighbour"]:
         assert f'"{neighbour}"' in page  # a category of the heatmap's y axis
+
+
+def neighbour_cells(page: str) -> dict[str, list[str]]:
+    """The per-slice neighbours table of a word page, read back from its HTML."""
+    table = re.search(r'<table class="neighbours">(.*?)</table>', page, flags=re.S).group(1)
+    heads = [html.unescape(h) for h in re.findall(r"<th>(.*?)</th>", table)]
+    rows = re.findall(r"<tr>(.*?)</tr>", table.split("<tbody>", 1)[1], flags=re.S)
+    cells = [re.findall(r'<span class="word">(.*?)</span>', r) for r in rows]
+    return {h: [html.unescape(c[i]) for c in cells if len(c) > i] for i, h in enumerate(heads)}
+
+
+def test_word_page_lists_the_neighbours_per_slice_in_a_table(run):
+    from drift.neighbours import read_neighbours
+
+    page = report.chart_word(run, WORD, k=7).read_text(encoding="utf-8")
+    stored = read_neighbours(run)
+    stored = stored[(stored["word"] == WORD) & (stored["rank"] <= 7)]
+    cells = neighbour_cells(page)
+    assert list(cells) == list(LABELS)
+    for label in LABELS:
+        assert cells[label] == list(stored.loc[stored["slice"] == label, "neighbour"])
+
+
+def test_word_page_states_one_k_and_counts_turnover_at_it(run):
+    from drift.neighbours import read_neighbours
+
+    stored = read_neighbours(run)
+    for k in (5, 10):
+        page = report.chart_word(run, WORD, k=k).read_text(encoding="utf-8")
+        text = html.unescape(re.sub(r"<[^>]+>", " ", page.split("<body>", 1)[1]))
+        assert set(re.findall(r"(\d+) nearest", text)) == {str(k)}
+        assert set(re.findall(r"top (\d+)", text)) <= {str(k)}  # the heatmap says the same k
+        # turnover on the page: the Jaccard distance of the k-sets shown (computed here by hand)
+        rows = stored[(stored["word"] == WORD) & (stored["rank"] <= k)]
+        first = set(rows.loc[rows["slice"] == LABELS[0], "neighbour"])
+        last = set(rows.loc[rows["slice"] == LABELS[-1], "neighbour"])
+        turnover = 1 - len(first & last) / len(first | last)
+        assert f"({k} nearest, {LABELS[0]} vs {LABELS[-1]})</th><td>{report.fmt(turnover)}<" in page
 
 
 def test_word_page_examples_are_highlighted_per_slice(run):
@@ -102,6 +141,9 @@ def test_plotly_js_is_one_shared_copy(run, built):
     assert copies[0].read_text(encoding="utf-8") == get_plotlyjs()
     for page in charts_dir.rglob("*.html"):
         text = page.read_text(encoding="utf-8")
+        if page.name == "word-index.html":  # a page of tables only: no plotly at all
+            assert "Plotly.newPlot" not in text and "plotly.min.js" not in text
+            continue
         assert "Plotly.newPlot" in text
         assert len(text) < 300_000
 
@@ -134,7 +176,7 @@ def test_hostile_word_is_text_and_never_a_path(run, word):
     if any(c in word for c in "<>&\""):
         assert word not in page  # only ever escaped: in HTML, in plotly text, in plotly JSON
     assert "<img" not in page  # markup from words appears only as text (&lt;img)
-    assert page.count("<script") == 6  # error hook, plotly.js, three figures, plotly check
+    assert page.count("<script") == 8  # error hook, plotly.js, five figures, plotly check
 
 
 def test_report_escapes_hostile_words_in_tables(run, built):
@@ -313,7 +355,7 @@ def test_ranked_table_shows_the_score_only_when_it_is_not_the_displacement(run):
     assert "score (" not in report.ranked_table_html(scores, {}, "displacement")
     table = report.ranked_table_html(scores, {}, "combined")
     assert "<th class=\"num\">score (combined)</th>" in table
-    assert table.count("<tr>") == 4
+    assert table.count("<tr") == 4
 
 
 @pytest.mark.parametrize(
@@ -332,3 +374,225 @@ def test_highlight_marks_whole_tokens_and_escapes():
         "the <mark>fire</mark> and &lt;b&gt;fire&lt;/b&gt; wildfire <mark>fire</mark>"
     )
     assert report.highlight_html("a <b> c", "<b>") == "a <mark>&lt;b&gt;</mark> c"
+
+
+# ---------------------------------------------------------------------------- what pages say
+
+
+def edited_run(tmp_path: Path, **changes) -> Path:
+    """A fixture copy whose scores rows for WORD carry ``changes`` (other rows untouched)."""
+    import pandas as pd
+
+    copy = fixture_run_copy(tmp_path / "run")
+    scores = pd.read_parquet(RunPaths(copy).scores_parquet)
+    for column, value in changes.items():
+        if column not in scores:
+            scores[column] = np.nan
+        scores.loc[scores["word"] == WORD, column] = value
+    scores.to_parquet(RunPaths(copy).scores_parquet, index=False)
+    return copy
+
+
+def values(data: object) -> list:
+    """A plotly data array as a list: plotly writes numeric arrays as base64 typed arrays."""
+    if isinstance(data, dict) and "bdata" in data:
+        return np.frombuffer(base64.b64decode(data["bdata"]), dtype=data["dtype"]).tolist()
+    return list(data)
+
+
+def plotly_figures(page: str) -> list[dict]:
+    """The data, layout and config of every figure of a page, as plotly.js receives them
+    (the arguments of each ``Plotly.newPlot(id, data, layout, config)`` call)."""
+    decoder = json.JSONDecoder()
+    found = []
+    for script in inline_scripts(page):
+        at = script.find("Plotly.newPlot(")
+        if at < 0:
+            continue
+        args, pos = [], at + len("Plotly.newPlot(")
+        for _ in range(4):
+            while script[pos] in " \n\t,":
+                pos += 1
+            value, pos = decoder.raw_decode(script, pos)
+            args.append(value)
+        found.append({"data": args[1], "layout": args[2], "config": args[3]})
+    return found
+
+
+def test_a_stable_word_shows_no_change_point_and_no_noise_lists(tmp_path):
+    run = edited_run(tmp_path, significant=False, change_point=LABELS[1], change_step=0.2)
+    page = report.chart_word(run, WORD).read_text(encoding="utf-8")
+    assert "No clear change point:</strong> its change is not significant" in page
+    assert "neighbours gained" not in page and "neighbours lost" not in page
+    timeline = plotly_figures(page)[0]
+    assert not timeline["layout"].get("shapes")
+    assert "did not move more than words of its frequency" in page
+
+
+def test_a_significant_word_says_how_and_when_it_changed(tmp_path):
+    from drift.neighbours import read_neighbours
+
+    run = edited_run(tmp_path, significant=True, change_point=LABELS[2], change_step=0.3)
+    page = report.chart_word(run, WORD).read_text(encoding="utf-8")
+    stored = read_neighbours(run)
+    rows = stored[stored["word"] == WORD]
+    first = list(rows.loc[rows["slice"] == LABELS[0], "neighbour"])
+    last = list(rows.loc[rows["slice"] == LABELS[-1], "neighbour"])
+    lost = [w for w in first if w not in last]
+    gained = [w for w in last if w not in first]
+    lead = re.search(r'<p class="lead">(.*?)</p>', page, flags=re.S).group(1)
+    assert f"moved from {html.escape(lost[0])}, " in lead
+    assert f" to {html.escape(gained[0])}, " in lead
+    assert f"mostly between {LABELS[1]} and {LABELS[2]}" in lead
+    change = re.search(r'<p class="change">(.*?)</p>', page, flags=re.S).group(1)
+    assert "Change point:" in change and "redraws" in change and "bootstrap" in change
+    shapes = plotly_figures(page)[0]["layout"]["shapes"]
+    assert {s["type"] for s in shapes} == {"line", "rect"}  # the point and its range
+    numbers = page.split('id="numbers"', 1)[1]
+    assert f"neighbours gained by {LABELS[-1]}" in numbers
+
+
+def test_a_step_back_is_not_drawn_as_a_change_point(tmp_path):
+    run = edited_run(tmp_path, significant=True, change_point=LABELS[2], change_step=-0.3)
+    page = report.chart_word(run, WORD).read_text(encoding="utf-8")
+    assert "No clear change point:</strong> its largest step goes back" in page
+    assert not plotly_figures(page)[0]["layout"].get("shapes")
+
+
+def test_both_nulls_are_shown_where_the_run_has_them(tmp_path):
+    run = edited_run(tmp_path, noise_z=7.5, noise_p=0.0004, noise_q=0.002, drift_z=2.25,
+                     drift_p=0.03, drift_q=0.25)
+    numbers = report.chart_word(run, WORD).read_text(encoding="utf-8").split('id="numbers"')[1]
+    assert "beyond sampling and optimisation noise? (control pair)" in numbers
+    assert "z = 7.5, p = 0.0004, q = 0.002" in numbers
+    assert "more than typical words of its frequency? (this corpus)" in numbers
+    assert "z = 2.25, p = 0.03, q = 0.25" in numbers
+    assert "headline (the more conservative)" in numbers
+
+
+def test_a_weak_significance_record_reaches_every_page(tmp_path):
+    run = fixture_run_copy(tmp_path / "run")
+    manifest = json.loads(RunPaths(run).manifest.read_text())
+    manifest["stages"]["rank"]["significance"] = {
+        "status": "weak", "reason": "the control pair measured only 60 words"}
+    RunPaths(run).manifest.write_text(json.dumps(manifest))
+    index = report.build_report(run, top=1)
+    for page in (index, next(RunPaths(run).word_charts_dir.glob("*.html"))):
+        text = page.read_text(encoding="utf-8")
+        assert "Significance is weak: the control pair measured only 60 words" in text
+        # the fixture's slices are small: the terminal's small-slice warning is on the page too
+        assert "under a million tokens" in text
+
+
+def test_report_index_lists_every_measured_word_with_its_numbers(run, built):
+    import pandas as pd
+
+    page = (built.parent / "word-index.html").read_text(encoding="utf-8")
+    scores = pd.read_parquet(RunPaths(run).scores_parquet)
+    rows = re.findall(r'<tr data-word="([^"]*)" data-significant="([01])">(.*?)</tr>', page,
+                      flags=re.S)
+    assert [html.unescape(w) for w, _, _ in rows] == list(scores.sort_values("rank")["word"])
+    by_word = scores.set_index("word")
+    for word, significant, cells in rows:
+        row = by_word.loc[html.unescape(word)]
+        numbers = re.findall(r'<td class="num">(.*?)</td>', cells)
+        assert numbers == [report.fmt(row["rank"]),
+                           f"{report.fmt(row['displacement'])} ± "
+                           f"{report.fmt(row['displacement_sd'], 2)}",
+                           report.fmt(row["z"]), report.fmt(row["q"]),
+                           f"{report.fmt(row['count_from'])} → {report.fmt(row['count_to'])}"]
+        assert significant == str(int(row["significant"]))
+    assert '<a href="word-index.html">' in built.read_text(encoding="utf-8")
+    # the search box runs under the page's policy: its script is allowed by hash
+    for script in inline_scripts(page):
+        assert report.script_hash(script).strip("'") in csp_of(page)
+
+
+def test_report_hover_data_and_tables_are_the_scores_numbers(run, built):
+    import pandas as pd
+
+    page = built.read_text(encoding="utf-8")
+    scores = pd.read_parquet(RunPaths(run).scores_parquet).set_index("word")
+    scatter = plotly_figures(page)[0]
+    points = [t for t in scatter["data"] if t.get("meta") in ("words", "significant")]
+    hovered = 0
+    for part in points:
+        for y, custom in zip(values(part["y"]), part["customdata"], strict=True):
+            row = scores.loc[html.unescape(custom[0])]
+            assert y == pytest.approx(row["displacement"])
+            assert custom[1:6] == [row["rank"], pytest.approx(row["z"]),
+                                   pytest.approx(row["q"]), row["count_from"], row["count_to"]]
+            hovered += 1
+    assert hovered == len(scores)
+    ranked = page.split('id="ranked"', 1)[1].split("</table>", 1)[0]
+    for word, cells in re.findall(r'<tr data-word="([^"]*)">(.*?)</tr>', ranked, flags=re.S):
+        row = scores.loc[html.unescape(word)]
+        numbers = re.findall(r'<td class="num">(.*?)</td>', cells)
+        assert numbers[2:4] == [report.fmt(row["z"]), report.fmt(row["q"])]
+
+
+def test_report_shows_the_slice_composition_when_the_run_has_it(tmp_path):
+    import pandas as pd
+
+    run = fixture_run_copy(tmp_path / "run")
+    page = report.build_report(run, top=0).read_text(encoding="utf-8")
+    assert "records no slice composition" in page
+    pd.DataFrame({"slice": list(LABELS), "source": ["wire"] * 3, "documents": [90, 95, 99]}
+                 ).to_parquet(run / "composition.parquet", index=False)
+    page = report.build_report(run, top=0).read_text(encoding="utf-8")
+    section = page.split("Slice composition", 1)[1].split("<h3>", 1)[0]
+    assert "<td>wire</td>" in section and '<td class="num">95</td>' in section
+
+
+def test_a_report_of_twenty_words_loads_each_model_once(tmp_path, monkeypatch):
+    from collections import Counter
+
+    from chart_run_fixture import SEEDS
+
+    import drift.training
+
+    run = fixture_run_copy(tmp_path / "run")
+    loads: Counter = Counter()
+    real = drift.training.load_vectors
+
+    def counted(run, label, seed, control=False):
+        loads[(label, seed, control)] += 1
+        return real(run, label, seed, control=control)
+
+    monkeypatch.setattr(drift.training, "load_vectors", counted)
+    report.build_report(run, top=20)
+    assert len(list(RunPaths(run).word_charts_dir.glob("*.html"))) == 20
+    assert loads == Counter({(label, seed, False): 1 for label in LABELS for seed in range(SEEDS)})
+
+
+# ------------------------------------------------------------------ no way off the machine
+
+
+def test_no_page_offers_a_control_that_sends_data_off_the_machine(run, built):
+    pages = [built, built.parent / "word-index.html", report.chart_word(run, WORD)]
+    for path in pages:
+        page = path.read_text(encoding="utf-8")
+        for figure in plotly_figures(page):
+            config = figure["config"]
+            assert config["showSendToCloud"] is False
+            assert "sendDataToCloud" in config["modeBarButtonsToRemove"]
+            assert not config.get("plotlyServerURL")
+            assert not config.get("showLink") and not config.get("showEditInChartStudio")
+        assert not re.search(r"https?://", page.split("<body>", 1)[1])  # no outside link
+        policy = csp_of(page)
+        for directive in ("default-src 'none'", "connect-src 'none'", "form-action 'none'"):
+            assert directive in policy
+
+
+def test_plotly_is_pinned_to_the_tested_major_version():
+    from importlib.metadata import version
+
+    import tomllib
+
+    pyproject = Path(__file__).resolve().parents[1] / "pyproject.toml"
+    deps = tomllib.loads(pyproject.read_text())["project"]["dependencies"]
+    (spec,) = [d for d in deps if d.startswith("plotly")]
+    upper = re.search(r"<\s*(\d+)", spec)
+    assert upper, f"plotly is not pinned below a major version: {spec}"
+    # the installed major version (the one the tests ran against) is the one allowed
+    assert int(version("plotly").split(".")[0]) == int(upper.group(1)) - 1

@@ -1,0 +1,147 @@
+"""The neighbours table: computed once at rank time, read by pages and queries."""
+
+from __future__ import annotations
+
+from collections import Counter
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from chart_run_fixture import LABELS, SEEDS, fixture_run_copy
+from gensim.models import KeyedVectors
+from scipy.spatial.distance import cdist
+
+from drift import neighbours
+from drift.alignment import prepare_vectors
+from drift.errors import DriftError
+from drift.runfolder import RunPaths
+
+WORD = "government"
+
+
+@pytest.fixture(scope="module")
+def run(tmp_path_factory) -> Path:
+    return fixture_run_copy(tmp_path_factory.mktemp("neighbours") / "run")
+
+
+def count_model_loads(monkeypatch) -> Counter:
+    """Count every model load (drift.training.load_vectors is the one way models are read)."""
+    import drift.training
+
+    loads: Counter = Counter()
+    real = drift.training.load_vectors
+
+    def counted(run, label, seed, control=False):
+        loads[(label, seed, control)] += 1
+        return real(run, label, seed, control=control)
+
+    monkeypatch.setattr(drift.training, "load_vectors", counted)
+    return loads
+
+
+def reference_neighbours(run: Path, word: str, k: int) -> pd.DataFrame:
+    """Seed-averaged cosine similarity from SciPy's cdist over gensim's own vectors, prepared."""
+    kvs = {(label, seed): KeyedVectors.load(str(RunPaths(run).model_file(label, seed)))
+           for label in LABELS for seed in range(SEEDS)}
+    candidates = [w for w in kvs[(LABELS[0], 0)].index_to_key
+                  if all(w in kv.key_to_index for kv in kvs.values())]
+    rows = []
+    for label in LABELS:
+        sims = []
+        for seed in range(SEEDS):
+            kv = kvs[(label, seed)]
+            prepared = prepare_vectors(kv.vectors)
+            cand = prepared[[kv.key_to_index[w] for w in candidates]]
+            query = prepared[[kv.key_to_index[word]]]
+            sims.append(1.0 - cdist(query, cand, metric="cosine")[0])
+        mean = np.mean(sims, axis=0)
+        mean[candidates.index(word)] = -np.inf
+        best = np.argsort(-mean, kind="stable")[:k]
+        rows += [{"slice": label, "rank": r + 1, "neighbour": candidates[i],
+                  "similarity": mean[i]} for r, i in enumerate(best)]
+    return pd.DataFrame(rows)
+
+
+def test_table_holds_the_seed_averaged_cosine_neighbours(run):
+    table = neighbours.read_neighbours(run)
+    assert list(table.columns) == neighbours.NEIGHBOUR_COLUMNS
+    assert neighbours.stored_k(table) == neighbours.PAGE_K
+    mine = table[table["word"] == WORD].reset_index(drop=True)
+    expected = reference_neighbours(run, WORD, neighbours.PAGE_K)
+    assert list(mine["slice"]) == list(expected["slice"])
+    np.testing.assert_allclose(mine["similarity"], expected["similarity"], atol=1e-5)
+    # the lists agree except where two candidates tie within float32 rounding
+    for label in LABELS:
+        got = list(mine.loc[mine["slice"] == label, "neighbour"])
+        want = list(expected.loc[expected["slice"] == label, "neighbour"])
+        assert len(set(got) ^ set(want)) <= 2
+
+
+def test_table_covers_every_scored_word(run):
+    table = neighbours.read_neighbours(run)
+    scored = pd.read_parquet(RunPaths(run).scores_parquet)["word"]
+    assert set(table["word"]) == set(scored)
+    per = table.groupby(["word", "slice"])["rank"].agg(["min", "max", "count"])
+    assert (per["min"] == 1).all() and (per["count"] == neighbours.PAGE_K).all()
+
+
+def test_reading_the_table_loads_no_model(run, monkeypatch):
+    loads = count_model_loads(monkeypatch)
+    rows = neighbours.neighbours_for(run, [WORD, "police"], k=5)
+    assert not loads
+    table = neighbours.read_neighbours(run)
+    stored = table[table["word"].isin([WORD, "police"]) & (table["rank"] <= 5)]
+    assert len(rows) == len(stored) == 2 * 5 * len(LABELS)
+    assert list(rows["word"].unique()) == [WORD, "police"]  # in the order asked
+
+
+def test_words_missing_from_the_table_load_each_model_once(tmp_path, monkeypatch):
+    copy = fixture_run_copy(tmp_path / "run")
+    stored = neighbours.read_neighbours(copy)
+    RunPaths(copy).neighbours_parquet.unlink()
+    words = list(pd.read_parquet(RunPaths(copy).scores_parquet)["word"].head(20))
+    loads = count_model_loads(monkeypatch)
+    rows = neighbours.neighbours_for(copy, words, k=neighbours.PAGE_K)
+    assert loads == Counter({(label, seed, False): 1 for label in LABELS for seed in range(SEEDS)})
+    again = stored[stored["word"].isin(words)].reset_index(drop=True)
+    pd.testing.assert_frame_equal(rows.sort_values(["word", "slice", "rank"], ignore_index=True),
+                                  again.sort_values(["word", "slice", "rank"], ignore_index=True))
+
+
+def test_k_beyond_the_table_is_computed_from_the_models(run):
+    rows = neighbours.word_neighbours(run, WORD, k=12)
+    assert rows.groupby("slice").size().tolist() == [12] * len(LABELS)
+    stored = neighbours.read_neighbours(run)
+    stored = stored[stored["word"] == WORD]
+    for label in LABELS:
+        top = rows.loc[rows["slice"] == label, "similarity"].head(10).to_numpy()
+        np.testing.assert_allclose(top, stored.loc[stored["slice"] == label, "similarity"],
+                                   atol=1e-6)
+
+
+def test_unknown_word_suggests_close_matches(run):
+    with pytest.raises(DriftError, match="did you mean government"):
+        neighbours.word_neighbours(run, "goverment")
+    with pytest.raises(DriftError, match="at least 1"):
+        neighbours.word_neighbours(run, WORD, k=0)
+
+
+def test_gained_lost_and_turnover_of_a_hand_made_example():
+    rows = pd.DataFrame(
+        {"slice": ["a"] * 3 + ["b"] * 3, "rank": [1, 2, 3] * 2,
+         "neighbour": ["ship", "dock", "crane", "dock", "team", "cup"], "similarity": 0.5}
+    )
+    gained, lost = neighbours.gained_and_lost(rows, "a", "b", k=3)
+    assert gained == ["team", "cup"] and lost == ["ship", "crane"]
+    # Jaccard distance by hand: 1 shared of 5 distinct words -> 1 - 1/5
+    assert neighbours.turnover(rows, "a", "b", k=3) == pytest.approx(0.8)
+    assert neighbours.turnover(rows, "a", "b", k=1) == pytest.approx(1.0)  # ship vs dock
+    assert np.isnan(neighbours.turnover(rows, "a", "c", k=3))
+
+
+def test_rank_writes_the_table_for_every_measured_word(demo_run):
+    table = neighbours.read_neighbours(demo_run.run)
+    scores = pd.read_parquet(RunPaths(demo_run.run).scores_parquet)
+    assert table is not None and set(table["word"]) == set(scores["word"])
+    assert neighbours.stored_k(table) == neighbours.PAGE_K
