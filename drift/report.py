@@ -761,6 +761,13 @@ def word_figure_set(
     return run_word_figures(data, word_views(data, [word], k=k)[word])
 
 
+def _control_without_null(data: RunData) -> bool:
+    """A control was trained but the rank stage could not fit a null from it."""
+    stages = data.manifest.get("stages", {})
+    trained = (stages.get("train") or {}).get("control") is not None
+    return trained and data.rank_record.get("control_flagged", 0) is None
+
+
 def warnings_html(data: RunData) -> str:
     """Warnings the terminal prints, for the pages: small slices, a weak or missing null."""
     from drift.slicing import slice_warnings
@@ -773,6 +780,11 @@ def warnings_html(data: RunData) -> str:
         what = ("Significance is weak" if sig["status"] == "weak"
                 else "Significance is unavailable")
         messages.append(f"{what}: {sig.get('reason') or 'see the run record'}")
+    elif sig is None and _control_without_null(data):
+        messages.append(
+            "The time-shuffled control gave no usable null (too few words measured in it), so "
+            "z, p and q are empty and the ranking is descriptive."
+        )
     if not messages:
         return ""
     items = "".join(f"<li>{esc(m)}</li>" for m in messages)

@@ -235,6 +235,8 @@ def test_report_says_when_there_is_no_control(tmp_path):
     manifest["stages"]["train"]["control"] = {"between": list(data.between)}
     RunPaths(run).manifest.write_text(json.dumps(manifest))
     assert "gave no usable null" in report.control_html(report.load_run(run))
+    # the few-control-words case reaches the warnings every page shows
+    assert "gave no usable null" in report.warnings_html(report.load_run(run))
 
 
 def test_report_with_top_zero_writes_no_word_pages(tmp_path):
