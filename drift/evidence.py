@@ -145,7 +145,9 @@ def example_sentences(
     >>> passages = drift.example_sentences(run, "tablet", per_slice=2)
     >>> list(passages.columns)
     ['slice', 'line', 'sentence']
-    >>> len(passages) >= 2 and all("tablet" in sentence.split() for sentence in passages["sentence"])
+    >>> len(passages) >= 2
+    True
+    >>> all("tablet" in sentence.split() for sentence in passages["sentence"])
     True
     """
     table = examples_for_words(run, [word], per_slice=per_slice, seed=seed)

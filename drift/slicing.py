@@ -798,28 +798,6 @@ def read_counts(run: Path | str) -> pd.DataFrame:
     return pd.read_parquet(paths.counts).set_index("word")
 
 
-def summary_table(summary: pd.DataFrame, title: str | None = None):
-    """A rich Table of a slice summary (for printing)."""
-    from rich.table import Table
-
-    table = Table(title=title)
-    for column in SUMMARY_COLUMNS:
-        table.add_column(
-            column,
-            justify="left" if column in ("label", "start", "end") else "right",
-            no_wrap=column in ("label", "start", "end"),
-            min_width=max([len(column)] + [len(str(v)) for v in summary[column]]),
-        )
-    for row in summary.itertuples(index=False):
-        table.add_row(
-            str(row.label),
-            str(row.start),
-            str(row.end),
-            *(f"{int(getattr(row, c)):,}" for c in ("documents", "tokens", "types", "dropped")),
-        )
-    return table
-
-
 # ---------------------------------------------------------------------------- the stage
 
 

@@ -280,3 +280,24 @@ def test_slices_drop_from_the_middle_outwards():
     decades = ["1950s", "1960s", "1970s", "1980s", "1990s", "2000s"]
     assert _slice_drop_order(decades) == ("1970s", "1980s", "1960s", "1990s")
     assert _slice_drop_order(decades[:2]) == ()
+
+
+def test_slice_summary_fits_80_columns_with_long_labels():
+    from drift.cli.rank_views import SUMMARY_DROP_ORDER, summary_view
+
+    summary = pd.DataFrame({
+        "label": ["1990-03-01_1994-12-31", "1995-01-01_1999-12-31"],
+        "start": ["1990-03-01", "1995-01-01"], "end": ["1994-12-31", "1999-12-31"],
+        "documents": [120_000, 98_000], "tokens": [41_000_000, 39_500_000],
+        "types": [310_000, 298_000], "dropped": [1_500_000, 0],
+    })
+    table = summary_view(summary, "Slices in runs/letters", 80)
+    text = _render(table, 80)
+    assert max(len(line) for line in text.splitlines()) <= 80
+    assert {"1990-03-01_1994-12-31", "41,000,000", "39,500,000"} <= set(text.split())
+    headers = [str(c.header) for c in table.columns]
+    dropped = [name for name in SUMMARY_DROP_ORDER if name not in headers]
+    assert dropped == list(SUMMARY_DROP_ORDER[: len(dropped)]) and dropped
+    assert f"Not shown at this width: {', '.join(dropped)}" in table.caption.plain
+    whole = summary_view(summary, "Slices", None)
+    assert [str(c.header) for c in whole.columns] == list(summary.columns)

@@ -49,11 +49,11 @@ def slice_command(
 
     Writes RUN/slices/<label>.txt, RUN/slices/summary.csv, RUN/counts.parquet and RUN/run.json.
     """
-    from drift.cli.rank_views import print_table
-    from drift.slicing import slice_archive, summary_table
+    from drift.cli.rank_views import print_table, summary_view
+    from drift.slicing import slice_archive
 
     balance, source = balance_value(bool(options.balance), list(ctx.args), source)
     options = replace(options, balance=balance)
     summary = slice_archive(Path(source), out, quiet=quiet, **options.kwargs())
     title = f"Slices in {out}" + (" (reused)" if summary.attrs.get("reused") else "")
-    print_table(lambda width: summary_table(summary, title=title))
+    print_table(lambda width: summary_view(summary, title, width))

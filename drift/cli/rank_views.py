@@ -36,6 +36,8 @@ ARROW = "→"
 _COLUMN_EXTRA = 3
 #: Wrapped lists never get narrower than this (or than their longest word).
 _LIST_MIN = 12
+#: How to see what a narrow screen leaves out.
+_WIDER = "a wider screen, -o FILE or --output-format csv shows them"
 
 
 @dataclass
@@ -191,10 +193,7 @@ def scores_table(
             f"strongest first (at most {SHOWN_NEIGHBOURS} shown; scores.csv has them all)."
         )
     if dropped:
-        notes.append(
-            f"Not shown at this width: {', '.join(dropped)} "
-            "(a wider screen, -o FILE or --output-format csv shows them)."
-        )
+        notes.append(f"Not shown at this width: {', '.join(dropped)} ({_WIDER}).")
     title = (
         f"Words that changed most from {first} to {last} "
         f"(ranked by z: {measure} beyond what frequency explains)"
@@ -202,6 +201,32 @@ def scores_table(
         else f"Words that changed most from {first} to {last} (ranked by {measure})"
     )
     return _table(kept, title, notes)
+
+
+# ---------------------------------------------------------------------------- slices
+
+#: Columns of the slice summary dropped first on narrow screens (label and tokens stay).
+SUMMARY_DROP_ORDER = ("dropped", "types", "start", "end", "documents")
+
+
+def summary_view(summary: pd.DataFrame, title: str, width: int | None = None) -> Table:
+    """The slice summary (label, start, end, documents, tokens, types, dropped): one row per
+    slice; with ``width`` it fits, columns dropped in :data:`SUMMARY_DROP_ORDER`."""
+    columns = [_Column("label", "label", justify="left")]
+    columns += [_Column(name, name, justify="left") for name in ("start", "end")]
+    columns += [_Column(name, name) for name in ("documents", "tokens", "types", "dropped")]
+    for row in summary.itertuples(index=False):
+        values = row._asdict()
+        for column in columns:
+            value = values[column.key]
+            text = f"{int(value):,}" if column.justify == "right" else str(value)
+            column.cells.append(Text(text))
+    kept, dropped = _fit(columns, width, SUMMARY_DROP_ORDER) if width else (columns, [])
+    notes = []
+    if dropped:
+        notes.append(f"Not shown at this width: {', '.join(dropped)} (a wider screen shows "
+                     "them; slices/summary.csv has every column).")
+    return _table(kept, Text(title), notes)
 
 
 # ---------------------------------------------------------------------------- neighbours
@@ -239,10 +264,7 @@ def neighbours_table(
     if absent:
         notes.append(f"Not in the vocabulary of: {', '.join(absent)}.")
     if dropped:
-        notes.append(
-            f"Slices not shown at this width: {', '.join(dropped)} "
-            "(a wider screen, -o FILE or --output-format csv shows them)."
-        )
+        notes.append(f"Slices not shown at this width: {', '.join(dropped)} ({_WIDER}).")
     return _table(kept, Text(f"Nearest neighbours of '{word}' per slice"), notes)
 
 
