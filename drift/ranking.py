@@ -789,17 +789,91 @@ def _read_table(run: str | Path, path_of: str, what: str) -> pd.DataFrame:
 
 
 def read_scores(run: str | Path) -> pd.DataFrame:
-    """The scores table of a ranked run (scores.parquet), best first."""
+    """The scores table of a ranked run (``scores.parquet``), best first.
+
+    Parameters
+    ----------
+    run : str or Path
+        A run folder ranked with :func:`rank_run`.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per word measured in both compared slices; the columns are listed in README.md
+        ("The run folder").
+
+    Raises
+    ------
+    DriftError
+        The folder does not exist or was not ranked.
+
+    Examples
+    --------
+    >>> import drift
+    >>> scores = drift.read_scores(run)
+    >>> scores["rank"].tolist()[:3]
+    [1, 2, 3]
+    >>> {"word", "displacement", "turnover", "z", "q", "gained", "lost"} <= set(scores.columns)
+    True
+    """
     return _read_table(run, "scores_parquet", "scores")
 
 
 def read_timeline(run: str | Path) -> pd.DataFrame:
-    """One row per word and slice: distance and turnover against the reference, counts, null_p95."""
+    """One row per word and slice: distance and turnover against the reference slice.
+
+    Parameters
+    ----------
+    run : str or Path
+        A run folder ranked with :func:`rank_run`.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``word, slice, distance, distance_sd, turnover, count, fpm, null_p95`` (``null_p95``:
+        the control's 95th percentile displacement at that word's frequency).
+
+    Raises
+    ------
+    DriftError
+        The folder does not exist or was not ranked.
+
+    Examples
+    --------
+    >>> import drift
+    >>> timeline = drift.read_timeline(run)
+    >>> timeline[timeline["word"] == "tablet"]["slice"].tolist() == drift.slice_labels(run)
+    True
+    """
     return _read_table(run, "timeline_parquet", "timeline")
 
 
 def read_terms(run: str | Path) -> pd.DataFrame:
-    """Emerging and fading terms with their frequency per slice."""
+    """Emerging and fading terms: words one compared slice has and the other lacks.
+
+    Parameters
+    ----------
+    run : str or Path
+        A run folder ranked with :func:`rank_run`.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``word, kind`` (``emerging`` or ``fading``), ``count_from, count_to, fpm_from, fpm_to``
+        and one ``fpm:<label>`` column per slice (occurrences per million tokens).
+
+    Raises
+    ------
+    DriftError
+        The folder does not exist or was not ranked.
+
+    Examples
+    --------
+    >>> import drift
+    >>> terms = drift.read_terms(run)
+    >>> set(terms["kind"]) <= {"emerging", "fading"}
+    True
+    """
     return _read_table(run, "terms_parquet", "emerging and fading terms")
 
 
@@ -846,10 +920,38 @@ def neighbours_by_slice(
 ) -> pd.DataFrame:
     """The ``k`` nearest candidate words of ``word`` in every slice that knows it.
 
-    Columns slice, rank, neighbour, similarity. The similarity is the cosine of the prepared
-    vectors averaged over seeds (every seed's similarity to every candidate, then the k best of
-    the average); the candidates are the words every slice knows, as in the rank stage. Read
-    from neighbours.parquet when it holds the word at this k (see :mod:`drift.neighbours`).
+    The similarity is the cosine of the prepared vectors averaged over seeds (every seed's
+    similarity to every candidate, then the k best of the average); the candidates are the words
+    every slice knows, as in the rank stage. Read from neighbours.parquet when it holds the word
+    at this k (see :mod:`drift.neighbours`).
+
+    Parameters
+    ----------
+    run : str or Path
+        A run folder trained with :func:`drift.train_run`.
+    word : str
+        The word whose neighbours to list.
+    k : int
+        Neighbours per slice (``--neighbours`` on the command line).
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``slice, rank, neighbour, similarity``, best first within each slice.
+
+    Raises
+    ------
+    DriftError
+        A word no slice knows (with close matches), a bad ``k``, a run without models.
+
+    Examples
+    --------
+    >>> import drift
+    >>> table = drift.neighbours_by_slice(run, "tablet", k=3)
+    >>> list(table.columns)
+    ['slice', 'rank', 'neighbour', 'similarity']
+    >>> table.groupby("slice").size().tolist()
+    [3, 3, 3, 3, 3, 3]
     """
     k = options.check_k(k, "--neighbours")
     from drift.neighbours import word_neighbours
@@ -868,12 +970,42 @@ def export_vectors(
     reference: str | None = None,
     anchors: str | int | Sequence[str] | None = None,
 ) -> list[Path]:
-    """Write every slice's aligned vectors (seed 0) into ``out``; return the files written.
+    """Write every slice's aligned vectors into ``out``, one file per slice.
 
     The vectors are the prepared ones (unit length, centred) of the first trained seed, rotated
-    onto the reference slice by orthogonal Procrustes: ``<label>.txt`` in word2vec text format
-    (gensim's ``save_word2vec_format``) or ``<label>.npz`` with arrays ``words``, ``vectors``,
-    ``counts``. ``reference`` and ``anchors`` default to those of the last ``drift rank``.
+    onto the reference slice by orthogonal Procrustes.
+
+    Parameters
+    ----------
+    run : str or Path
+        A run folder trained with :func:`drift.train_run`.
+    out : str or Path
+        The folder to write (made if missing).
+    fmt : str
+        ``word2vec``: ``<label>.txt`` in word2vec text format (gensim's
+        ``save_word2vec_format``); ``npz``: ``<label>.npz`` with arrays ``words``, ``vectors``,
+        ``counts`` (``--vector-format`` on the command line).
+    reference : str, optional
+        The slice the others are aligned onto; by default that of the last :func:`rank_run`.
+    anchors : int, str or list of str, optional
+        The words the alignment is fitted on, as for :func:`rank_run`.
+
+    Returns
+    -------
+    list of Path
+        The files written, in time order.
+
+    Raises
+    ------
+    DriftError
+        An unknown format or reference slice, a run without models.
+
+    Examples
+    --------
+    >>> import drift
+    >>> files = drift.export_vectors(run, workdir / "vectors", "word2vec")
+    >>> [path.name for path in files][:2]
+    ['1950s.txt', '1960s.txt']
     """
     options.check_choice(fmt, EXPORT_FORMATS, "--vector-format")
     inputs = read_run_inputs(run)
