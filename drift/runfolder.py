@@ -31,7 +31,22 @@ EXPORT_MANIFEST = "export.json"
 
 @dataclass(frozen=True)
 class RunPaths:
-    """Where each stage's files live inside one run folder."""
+    """Where each stage's files live inside one run folder (the layout: DEVELOPERS.md).
+
+    Parameters
+    ----------
+    root : str or Path
+        The run folder; nothing is created or checked.
+
+    Examples
+    --------
+    >>> from drift import RunPaths
+    >>> paths = RunPaths("runs/letters")
+    >>> paths.model_file("1950s", 0).as_posix()
+    'runs/letters/models/1950s/seed-0.kv'
+    >>> paths.scores_parquet.name
+    'scores.parquet'
+    """
 
     root: Path
 
