@@ -647,7 +647,7 @@ def change_vs_frequency_figure(
     note = "" if len(rows) == len(scores) else f" ({len(rows):,} of {len(scores):,} words drawn)"
     layout = _base_layout(
         f"Change against frequency{note}",
-        "occurrences in the rarer compared slice (log scale)",
+        "count in the rarer compared slice (log scale)",
         MEASURE_TITLES.get(column, f"score ({plot_text(measure or 'score')})"),
         height=480,
         xaxis={"type": "log"},

@@ -312,7 +312,7 @@ mark { background: #ffe8a3; padding: 0 0.15em; font-weight: 600; }
 footer { margin-top: 3rem; color: var(--muted); font-size: 0.85rem; }
 .table-wrap { overflow-x: auto; max-width: 100%; margin: 0.4rem 0 1rem; }
 .table-wrap > table { margin: 0; }
-table.neighbours td { white-space: nowrap; }
+table.neighbours td, table.ranked td, table.ranked th { white-space: nowrap; }
 table.neighbours td.new .word { font-weight: 700; }
 .sim { color: var(--muted); font-size: 0.78rem; font-variant-numeric: tabular-nums; }
 .warning { border-left: 4px solid #D55E00; background: #fbeee6; padding: 0.5rem 0.9rem;
@@ -1148,8 +1148,8 @@ def word_index_page(data: RunData, links: dict[str, str]) -> str:
 <p class="muted">drift · {esc(data.root.name)} · word index</p>
 <h1>All {len(data.scores):,} measured words</h1>
 <p class="lead">Every word measured in both {esc(a)} and {esc(b)}, best ranked first. Linked
-words have a page; make a page for any other word with <code>drift chart
-{esc(data.root)} WORD</code>.</p>
+words have a page; make a page for any other word with <code>drift chart RUN WORD</code>,
+where RUN is this run's folder (the one holding <code>charts/</code>).</p>
 <div id="search-tools" class="search" hidden>
 <label for="word-search">Find a word</label>
 <input id="word-search" type="search" autocomplete="off" spellcheck="false">

@@ -89,7 +89,9 @@ def test_table_covers_every_scored_word(run):
 def test_reading_the_table_loads_no_model(run, monkeypatch):
     loads = count_model_loads(monkeypatch)
     rows = neighbours.neighbours_for(run, [WORD, "police"], k=5)
+    single = neighbours.word_neighbours(run, WORD, k=5)  # what 'drift neighbours' calls
     assert not loads
+    assert len(single) == 5 * len(LABELS)
     table = neighbours.read_neighbours(run)
     stored = table[table["word"].isin([WORD, "police"]) & (table["rank"] <= 5)]
     assert len(rows) == len(stored) == 2 * 5 * len(LABELS)
