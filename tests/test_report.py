@@ -23,12 +23,13 @@ WORD = "government"
 SAFE_FILE = re.compile(r"^[a-z0-9-]+-[0-9a-f]{8}\.html$")
 
 
-@pytest.fixture(scope="module")
-def run(tmp_path_factory) -> Path:
-    return fixture_run_copy(tmp_path_factory.mktemp("report") / "run")
+@pytest.fixture
+def run(tmp_path) -> Path:
+    """Each test's own copy of the fixture run: tests write pages and reports into it."""
+    return fixture_run_copy(tmp_path / "run")
 
 
-@pytest.fixture(scope="module")
+@pytest.fixture
 def built(run) -> Path:
     return report.build_report(run, top=4)
 
