@@ -44,9 +44,9 @@ BLOCK_BYTES = 64 * 2**20
 def build_run(root: Path, slices: int, words: int, dim: int, seeds: int, control: bool) -> None:
     """A run folder of random vectors that follows the run-folder contract (DEVELOPERS.md)."""
     import pandas as pd
-    from gensim.models import KeyedVectors
 
     from drift import runfolder
+    from drift.training import save_model
 
     rng = np.random.default_rng(0)
     paths = runfolder.prepare_run_folder(root)
@@ -67,12 +67,8 @@ def build_run(root: Path, slices: int, words: int, dim: int, seeds: int, control
     runfolder.record_stage(root, "slice", {"bench": True}, "bench", 0.0, {"labels": labels})
 
     def save(target: Path) -> None:
-        kv = KeyedVectors(dim)
-        kv.add_vectors(vocabulary, rng.standard_normal((words, dim)).astype(np.float32))
-        kv.allocate_vecattrs(["count"], [np.int64])
-        kv.expandos["count"][:] = counts
-        target.parent.mkdir(parents=True, exist_ok=True)
-        kv.save(str(target))
+        matrix = rng.standard_normal((words, dim)).astype(np.float32)
+        save_model(target, vocabulary, matrix, counts)
 
     for label in labels:
         for seed in range(seeds):
@@ -91,11 +87,10 @@ def build_run(root: Path, slices: int, words: int, dim: int, seeds: int, control
 
 def bare_top_k(root: Path, k: int) -> int:
     """Every model's blocked top-k (matrix product + argpartition), nothing else."""
-    from gensim.models import KeyedVectors
-
-    files = sorted(Path(root, "models").rglob("*.kv")) + sorted(Path(root, "control").rglob("*.kv"))
+    files = sorted(Path(root, "models").rglob("seed-*.npy"))
+    files += sorted(Path(root, "control").rglob("seed-*.npy"))
     for path in files:
-        vectors = KeyedVectors.load(str(path)).vectors
+        vectors = np.load(path, mmap_mode="r", allow_pickle=False)
         vectors = (vectors / np.linalg.norm(vectors, axis=1, keepdims=True)).astype(np.float32)
         transposed = np.ascontiguousarray(vectors.T)
         n = len(vectors)

@@ -1,6 +1,6 @@
 """STAGE rank: align, measure, calibrate and rank every word; the timeline; emerging/fading terms.
 
-Reads the trained models (``models/<label>/seed-<k>.kv``), the control pair when there is one,
+Reads the trained models (``models/<label>/seed-<k>.npy``), the control pair when there is one,
 ``counts.parquet`` and ``slices/summary.csv``; writes ``scores.parquet``, ``scores.csv``,
 ``timeline.parquet``, ``terms.parquet`` and ``neighbours.parquet`` (schemas in DEVELOPERS.md).
 

@@ -23,7 +23,7 @@ from typing import Any
 from drift.errors import DriftError
 
 #: Bumped when the layout of the run folder changes in a way older code cannot read.
-RUN_FORMAT_VERSION = 1
+RUN_FORMAT_VERSION = 2  # 2: models as .npy + Parquet (1 stored them as pickle files)
 MANIFEST_NAME = "run.json"
 LOCK_NAME = ".lock"
 EXPORT_MANIFEST = "export.json"
@@ -77,14 +77,14 @@ class RunPaths:
         return self.root / "models"
 
     def model_file(self, label: str, seed: int) -> Path:
-        return self.models_dir / label / f"seed-{seed}.kv"
+        return self.models_dir / label / f"seed-{seed}.npy"
 
     @property
     def control_dir(self) -> Path:
         return self.root / "control"
 
     def control_model_file(self, label: str, seed: int) -> Path:
-        return self.control_dir / label / f"seed-{seed}.kv"
+        return self.control_dir / label / f"seed-{seed}.npy"
 
     @property
     def scores_parquet(self) -> Path:
@@ -258,6 +258,12 @@ def read_manifest(root: Path) -> dict[str, Any]:
             "remove the folder or choose another --out."
         ) from None
     found = manifest.get("format_version")
+    if found == 1:
+        raise DriftError(
+            f"{root} was made by an earlier drift (run format 1), which stored models as pickle "
+            "files; this version never opens those, since loading a pickle can run any code in "
+            "it. Run the stages again into a new run folder (the source archive is all it needs)."
+        )
     if found != RUN_FORMAT_VERSION:
         raise DriftError(
             f"{root} was made by another version of drift (run format {found}, this version reads "

@@ -1,12 +1,13 @@
 """STAGE train: one Word2Vec model per slice and seed, plus the time-shuffled control pair.
 
 Each model is trained by gensim in ``corpus_file`` mode straight from ``slices/<label>.txt`` and
-its word vectors (with counts) are saved as ``models/<label>/seed-<k>.kv``. The control pair pools
-the lines of the two compared slices, shuffles them with a recorded seed and splits them into
+its word vectors are saved as ``models/<label>/seed-<k>.npy`` (a float32 matrix, memory-mapped
+when read) with ``seed-<k>.vocab.parquet`` (words and counts), never as pickles. The control pair
+pools the lines of the two compared slices, shuffles them with a recorded seed and splits them into
 two slices of the original token sizes (``control/slices/control-a.txt``, ``control-b.txt``);
-their models go to ``control/control-a/seed-<k>.kv`` and ``control/control-b/seed-<k>.kv``.
+their models go to ``control/control-a/seed-<k>.npy`` and ``control/control-b/seed-<k>.npy``.
 
-Every model has a small JSON sidecar (``seed-<k>.json``) written after the ``.kv`` is in place.
+Every model has a small JSON sidecar (``seed-<k>.json``) written after the ``.npy`` is in place.
 It holds a fingerprint of the slice file and the parameters, so a model whose inputs did not
 change is reused, and a run killed half-way resumes with the models it had finished.
 """
@@ -39,7 +40,7 @@ if TYPE_CHECKING:
 ARCHITECTURES = options.ARCHITECTURES
 CONTROL_LABELS = ("control-a", "control-b")
 #: Bumped when the way a model is trained or saved changes, so older models are retrained.
-MODEL_FORMAT = 1
+MODEL_FORMAT = 2  # 2: vectors in .npy and vocabulary in .vocab.parquet (1: gensim pickles)
 CONTROL_FORMAT = 1
 RESULT_COLUMNS = ["group", "label", "seed", "path", "vocabulary", "seconds", "reused", "threads"]
 _LABEL_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
@@ -334,13 +335,94 @@ def finished_model(model_file: Path, fingerprint: str) -> dict[str, Any] | None:
         return None
     if record.get("fingerprint") != fingerprint or not Path(model_file).is_file():
         return None
+    if not vocabulary_file(model_file).is_file():
+        return None
     return record
 
 
-def save_vectors_atomic(vectors: Any, target: Path) -> None:
-    """Save KeyedVectors as one file (no side .npy files), renamed into place when complete."""
-    with runfolder.atomic_path(target) as tmp:
-        vectors.save(str(tmp), separately=[])
+def vocabulary_file(model_file: str | Path) -> Path:
+    """The Parquet file beside a model's vectors: its words and their counts, in row order."""
+    return Path(model_file).with_suffix(".vocab.parquet")
+
+
+def save_model(target: str | Path, words: list[str], vectors: np.ndarray, counts: Any) -> None:
+    """Store one model without pickles: ``target`` (``.npy``, the vectors as a float32 matrix,
+    row ``i`` for ``words[i]``) and :func:`vocabulary_file` (Parquet: ``word``, ``count``).
+
+    Both are renamed into place when complete, the vocabulary first; numpy and pandas (or any
+    Parquet reader) read them without drift, and reading them never runs code.
+    """
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    target = Path(target)
+    matrix = np.ascontiguousarray(vectors, dtype=np.float32)
+    if matrix.ndim != 2 or matrix.shape[0] != len(words):
+        raise ValueError(f"{len(words)} words but vectors of shape {matrix.shape}")
+    table = pa.table(
+        {"word": pa.array(list(words), pa.string()), "count": np.asarray(counts, dtype=np.int64)}
+    )
+    with runfolder.atomic_path(vocabulary_file(target)) as tmp:
+        pq.write_table(table, tmp)
+    with runfolder.atomic_path(target) as tmp, tmp.open("wb") as handle:
+        np.save(handle, matrix, allow_pickle=False)
+
+
+def save_keyed_vectors(vectors: Any, target: str | Path) -> None:
+    """Store gensim KeyedVectors with :func:`save_model` (counts from its ``count`` attribute)."""
+    words = list(vectors.index_to_key)
+    if "count" in getattr(vectors, "expandos", {}):
+        counts = np.asarray(vectors.expandos["count"], dtype=np.int64)
+    else:
+        counts = np.zeros(len(words), dtype=np.int64)
+    save_model(target, words, vectors.vectors, counts)
+
+
+def _tampered(path: Path, why: str) -> DriftError:
+    return DriftError(
+        f"{path} is not a model file as drift writes it ({why}); nothing in it was run. Retrain "
+        "with 'drift train' into a new run folder, or ask whoever shared the run for its models."
+    )
+
+
+def read_model(model_file: str | Path) -> tuple[list[str], np.ndarray, np.ndarray]:
+    """(words, vectors, counts) of one stored model; the vectors are memory-mapped read-only.
+
+    Only plain numbers and strings are read: ``np.load(..., allow_pickle=False)`` and Parquet.
+    A file that holds anything else (a pickle, an object array, a shape that does not match the
+    vocabulary) is refused with a DriftError, and nothing in it is executed.
+    """
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    model_file = Path(model_file)
+    vocab_file = vocabulary_file(model_file)
+    for path in (model_file, vocab_file):
+        if not path.is_file():
+            raise DriftError(f"{path} is missing; rerun 'drift train' to complete the run.")
+    try:
+        vectors = np.load(model_file, mmap_mode="r", allow_pickle=False)
+    except (ValueError, OSError, EOFError) as exc:
+        raise _tampered(model_file, str(exc).split("\n")[0][:120]) from None
+    if not isinstance(vectors, np.ndarray) or vectors.ndim != 2 or vectors.dtype.kind != "f":
+        raise _tampered(model_file, "not a two-dimensional array of floating-point numbers")
+    try:
+        table = pq.read_table(vocab_file)
+    except (pa.ArrowException, OSError) as exc:
+        raise _tampered(vocab_file, str(exc).split("\n")[0][:120]) from None
+    schema = table.schema
+    if (
+        schema.names[:2] != ["word", "count"]
+        or not pa.types.is_string(schema.field("word").type)
+        or not pa.types.is_integer(schema.field("count").type)
+    ):
+        raise _tampered(vocab_file, "not the columns word (text) and count (whole numbers)")
+    if table.num_rows != vectors.shape[0]:
+        shape = f"{vectors.shape[0]} vectors for {table.num_rows} words in {vocab_file.name}"
+        raise _tampered(model_file, shape)
+    words = table.column("word").to_pylist()
+    counts = table.column("count").to_numpy().astype(np.int64)
+    return words, vectors, counts
 
 
 def _epoch_callback(report: Callable[[int, int], None], total: int) -> Any:
@@ -376,7 +458,7 @@ def train_one_model(
 
     ``task`` holds plain values only: ``key, group, label, seed, corpus, output, model`` (the
     parameters from :meth:`TrainParams.model`), ``threads`` and ``fingerprint``. Writes the
-    ``.kv`` file and then its sidecar; returns a small dict describing the model.
+    ``.vocab.parquet`` and ``.npy`` files, then the sidecar; returns a small dict describing it.
     """
     from gensim import __version__ as gensim_version
     from gensim.models import Word2Vec
@@ -419,7 +501,7 @@ def train_one_model(
     vectors, words = model.wv, int(model.corpus_total_words)
     del model
     seconds = time.perf_counter() - started
-    save_vectors_atomic(vectors, output)
+    save_keyed_vectors(vectors, output)
     summary = {
         "key": task["key"],
         "group": task["group"],
@@ -458,7 +540,7 @@ def _model_tasks(
     tasks = []
     for group, label, corpus, folder in groups:
         for seed in range(params.seeds):
-            output = folder / label / f"seed-{seed}.kv"
+            output = folder / label / f"seed-{seed}.npy"
             tasks.append(
                 {
                     "key": f"{group}/{label}/seed-{seed}",
@@ -802,7 +884,7 @@ def _train_record(run: str | Path) -> dict[str, Any]:
 
 
 def trained_seeds(run: str | Path) -> list[int]:
-    """Seed indices k of the finished models (``seed-<k>.kv``), from run.json."""
+    """Seed indices k of the finished models (``seed-<k>.npy``), from run.json."""
     return list(range(int(_train_record(run)["params"]["seeds"])))
 
 
@@ -812,6 +894,26 @@ def control_info(run: str | Path) -> dict[str, Any] | None:
     ``{"between": [A, B], "shuffle_seed": s, "labels": ["control-a", "control-b"], ...}``
     """
     return _train_record(run).get("control")
+
+
+def read_keyed_vectors(model_file: str | Path) -> Any:
+    """gensim KeyedVectors built from one stored model, its vectors memory-mapped (read-only).
+
+    Raises
+    ------
+    DriftError
+        The files are missing or are not what drift writes (see :func:`read_model`).
+    """
+    from gensim.models import KeyedVectors
+
+    words, vectors, counts = read_model(model_file)
+    kv = KeyedVectors(vector_size=int(vectors.shape[1]), count=0, dtype=vectors.dtype)
+    kv.index_to_key = words
+    kv.key_to_index = {word: i for i, word in enumerate(words)}
+    kv.vectors = vectors
+    kv.allocate_vecattrs(attrs=["count"], types=[np.int64])
+    kv.expandos["count"][:] = counts
+    return kv
 
 
 def load_vectors(run: str | Path, label: str, seed: int, control: bool = False) -> Any:
@@ -849,8 +951,6 @@ def load_vectors(run: str | Path, label: str, seed: int, control: bool = False) 
     >>> int(vectors.get_vecattr("the", "count")) > 1000
     True
     """
-    from gensim.models import KeyedVectors
-
     paths = RunPaths(Path(run))
     record = _train_record(run)
     if control:
@@ -877,4 +977,4 @@ def load_vectors(run: str | Path, label: str, seed: int, control: bool = False) 
             f"(trained seeds: 0 to {len(seeds) - 1}); "
             f"rerun 'drift train {run}' to complete it."
         )
-    return KeyedVectors.load(str(model_file))
+    return read_keyed_vectors(model_file)

@@ -28,6 +28,7 @@ from scipy.linalg import orthogonal_procrustes
 
 from drift import runfolder
 from drift.neighbours import write_neighbours_table
+from drift.training import save_keyed_vectors
 
 LABELS = ("2001", "2002", "2003")
 SEEDS = 2
@@ -82,7 +83,7 @@ def _train(corpus: Path, target: Path, seed: int):
         epochs=3, workers=1, seed=1 + seed,
     )
     target.parent.mkdir(parents=True, exist_ok=True)
-    model.wv.save(str(target))
+    save_keyed_vectors(model.wv, target)
     return model.wv
 
 

@@ -23,6 +23,7 @@ from gensim.models import KeyedVectors, Word2Vec
 from gensim.test.utils import datapath
 
 from drift import runfolder
+from drift.training import save_keyed_vectors
 
 _TOKEN_RE = re.compile(r"[a-z]+")
 
@@ -73,7 +74,7 @@ def _save_model(target: Path, docs: Sequence[Sequence[str]], seed: int, dim: int
         sg=1, negative=5, epochs=epochs, workers=1, seed=seed,
     )
     target.parent.mkdir(parents=True, exist_ok=True)
-    model.wv.save(str(target))
+    save_keyed_vectors(model.wv, target)
 
 
 def write_text_run(
@@ -162,14 +163,14 @@ def write_array_run(
         for k, matrix in enumerate(matrices):
             target = paths.model_file(label, k)
             target.parent.mkdir(parents=True, exist_ok=True)
-            keyed_vectors(words, matrix, counts).save(str(target))
+            save_keyed_vectors(keyed_vectors(words, matrix, counts), target)
     control_info = None
     if control:
         for name, (words, matrices, counts) in control.items():
             for k, matrix in enumerate(matrices):
                 target = paths.control_model_file(name, k)
                 target.parent.mkdir(parents=True, exist_ok=True)
-                keyed_vectors(words, matrix, counts).save(str(target))
+                save_keyed_vectors(keyed_vectors(words, matrix, counts), target)
         control_info = {"between": [labels[0], labels[-1]], "shuffle_seed": 0}
     dim = int(next(iter(slices.values()))[1][0].shape[1])
     params = {"dim": dim, "seeds": n_seeds, "min_count": 1}

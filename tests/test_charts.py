@@ -11,10 +11,10 @@ import pandas as pd
 import plotly.graph_objects as go
 import pytest
 from chart_run_fixture import HOSTILE_WORDS, LABELS, fixture_run_copy
-from gensim.models import KeyedVectors
 
 from drift import charts
 from drift.runfolder import RunPaths
+from drift.training import read_keyed_vectors
 from drift.wordviews import ChangeRange
 
 WORD = "government"
@@ -39,7 +39,7 @@ def gensim_neighbours(run: Path, word: str, k: int = 10) -> pd.DataFrame:
     """Reference neighbours straight from gensim's KeyedVectors.most_similar (seed 0)."""
     rows = []
     for label in LABELS:
-        kv = KeyedVectors.load(str(RunPaths(run).model_file(label, 0)))
+        kv = read_keyed_vectors(RunPaths(run).model_file(label, 0))
         for rank, (other, sim) in enumerate(kv.most_similar(word, topn=k), start=1):
             rows.append({"slice": label, "rank": rank, "neighbour": other, "similarity": sim})
     return pd.DataFrame(rows)

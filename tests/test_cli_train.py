@@ -110,10 +110,10 @@ def test_an_unreachable_scheduler_exits_2_and_names_it(run, capsys, monkeypatch)
 
 
 def _finished(root: Path) -> dict[str, int]:
-    """Finished models (their sidecar is written after the .kv) and the .kv modification time."""
+    """Finished models (their sidecar is written after the .npy) and the .npy modification time."""
     found = {}
     for sidecar in sorted(root.rglob("seed-*.json")):
-        model = sidecar.with_suffix(".kv")
+        model = sidecar.with_suffix(".npy")
         found[str(model.relative_to(root))] = model.stat().st_mtime_ns
     return found
 
@@ -168,11 +168,11 @@ def test_a_killed_run_resumes_without_retraining_finished_models(run):
     # the 2 the parent received, and any a worker finished before it noticed
     assert 2 <= len(done_before) < expected
 
-    # nothing half-written where a finished model is expected: every .kv present loads
-    from gensim.models import KeyedVectors
+    # nothing half-written where a finished model is expected: every .npy present loads
+    from drift.training import read_keyed_vectors
 
-    for model in run.rglob("*.kv"):
-        assert len(KeyedVectors.load(str(model))) > 0
+    for model in run.rglob("seed-*.npy"):
+        assert len(read_keyed_vectors(model)) > 0
 
     command = [sys.executable, "-m", "drift", *args]
     rerun = subprocess.run(command, capture_output=True, text=True, timeout=300)

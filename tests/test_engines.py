@@ -57,7 +57,7 @@ def local_run(tmp_path_factory):
 
 def _model_files(root):
     paths = RunPaths(root)
-    found = list(paths.models_dir.rglob("*.kv")) + list(paths.control_dir.rglob("*.kv"))
+    found = list(paths.models_dir.rglob("seed-*.npy")) + list(paths.control_dir.rglob("seed-*.npy"))
     return sorted(str(path.relative_to(root)) for path in found)
 
 
@@ -83,7 +83,7 @@ def test_a_dask_local_cluster_gives_the_same_models_as_the_local_engine(
     assert runfolder.read_manifest(dask_root)["stages"]["train"]["execution"]["engine"] == "dask"
     for relative in _model_files(local_run):
         group, label, seed = relative.split("/")
-        seed_index = int(seed.removeprefix("seed-").removesuffix(".kv"))
+        seed_index = int(seed.removeprefix("seed-").removesuffix(".npy"))
         control = group == "control"
         ours = training.load_vectors(local_run, label, seed_index, control=control)
         theirs = training.load_vectors(dask_root, label, seed_index, control=control)

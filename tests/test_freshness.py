@@ -260,3 +260,25 @@ def test_rank_to_export_boundary(run, tmp_path, capsys):
     assert set(record["files"]) == {p.name for p in out.glob("*.npz")}
     code, _, err = _drift(["export", run, "--format", "npz", "--out", out], capsys)
     assert code == 0, err  # an earlier export folder may be written again
+
+
+class _Planted:
+    """Unpickling this creates a file: proof that a loader ran code from a shared run."""
+
+    def __init__(self, marker: str) -> None:
+        self.marker = marker
+
+    def __reduce__(self):
+        return (open, (self.marker, "w"))
+
+
+def test_opening_a_shared_run_with_a_tampered_model_runs_nothing(run, tmp_path, capsys):
+    import pickle
+
+    marker = tmp_path / "code-ran"
+    (run / "models" / "1970s" / "seed-0.npy").write_bytes(pickle.dumps(_Planted(str(marker))))
+    for command in (["neighbours", run, "harbour"], ["rank", run, "--k", "11", "-q"]):
+        code, _, err = _drift(command, capsys)
+        assert code == 2 and "seed-0.npy is not a model file as drift writes it" in err
+        assert "nothing in it was run" in err
+    assert not marker.exists()

@@ -36,10 +36,10 @@ def test_paths_follow_the_documented_layout(tmp_path):
     }
     assert paths.slice_file("1990s").relative_to(tmp_path).as_posix() == "slices/1990s.txt"
     assert paths.model_file("1990s", 1).relative_to(tmp_path).as_posix() == (
-        "models/1990s/seed-1.kv"
+        "models/1990s/seed-1.npy"
     )
     assert paths.control_model_file("control-a", 0).relative_to(tmp_path).as_posix() == (
-        "control/control-a/seed-0.kv"
+        "control/control-a/seed-0.npy"
     )
 
 
@@ -145,7 +145,8 @@ def test_unreadable_or_foreign_manifests_are_plain_errors(tmp_path):
     with pytest.raises(DriftError, match="is not a readable run manifest"):
         runfolder.read_manifest(tmp_path)
     (tmp_path / "run.json").write_text(json.dumps({"format_version": 99, "stages": {}}))
-    with pytest.raises(DriftError, match=r"run format 99, this version reads 1"):
+    reads = runfolder.RUN_FORMAT_VERSION
+    with pytest.raises(DriftError, match=rf"run format 99, this version reads {reads}"):
         runfolder.read_manifest(tmp_path)
 
 

@@ -155,7 +155,7 @@ def test_unchanged_models_are_reused_and_changed_ones_retrained(trained, tmp_pat
 
 def test_temporary_files_of_a_killed_run_are_cleared(trained, tmp_path):
     root = copy_run(trained[0], tmp_path / "run")
-    left = RunPaths(root).model_file("2001", 0).parent / ".seed-0.kv.x1y2.tmp"
+    left = RunPaths(root).model_file("2001", 0).parent / ".seed-0.npy.x1y2.tmp"
     left.write_bytes(b"half a model")
     assert training.train_run(root, **TINY)["reused"].all()
     assert not left.exists()
@@ -165,7 +165,7 @@ def test_temporary_files_of_a_killed_run_are_cleared(trained, tmp_path):
 def test_same_seed_gives_identical_vectors_with_one_thread(trained, tmp_path):
     root = copy_run(trained[0], tmp_path / "run")
     for path in RunPaths(root).models_dir.rglob("*"):
-        if path.suffix in {".kv", ".json"}:
+        if path.suffix in {".npy", ".parquet", ".json"}:
             path.unlink()
     training.train_run(root, **TINY, control=False)
     for label in ("2001", "2003"):
@@ -323,3 +323,74 @@ def test_the_slice_files_feed_gensim_unchanged(trained):
     sidecar = json.loads(training.sidecar_file(paths.model_file("2001", 0)).read_text())
     tokens = len(paths.slice_file("2001").read_text(encoding="utf-8").split())
     assert sidecar["words"] == tokens
+
+
+# ---------------------------------------------------------------------------- storage, no pickles
+
+
+class _Planted:
+    """An object whose unpickling creates a file: proof that a loader ran code from a model."""
+
+    def __init__(self, marker: str) -> None:
+        self.marker = marker
+
+    def __reduce__(self):
+        return (open, (self.marker, "w"))
+
+
+def test_model_files_hold_no_pickles_and_read_with_numpy_and_pandas(trained):
+    import pandas as pd
+
+    root, _ = trained
+    paths = RunPaths(root)
+    files = [
+        p for p in root.rglob("*") if p.is_file() and p.parent.parent.name in ("models", "control")
+    ]
+    assert files and not [p for p in files if p.suffix == ".kv"]
+    for path in files:
+        assert not path.read_bytes().startswith(b"\x80"), f"{path} is a pickle"
+    model = paths.model_file("2002", 1)
+    vectors = np.load(model, allow_pickle=False)  # numpy alone
+    vocabulary = pd.read_parquet(training.vocabulary_file(model))  # pandas alone
+    assert list(vocabulary.columns) == ["word", "count"] and len(vocabulary) == len(vectors)
+    keyed = training.load_vectors(root, "2002", 1)  # gensim KeyedVectors built on demand
+    assert isinstance(keyed.vectors, np.memmap) and not keyed.vectors.flags.writeable
+    np.testing.assert_array_equal(np.asarray(keyed.vectors), vectors)
+    word = vocabulary["word"].iloc[3]
+    assert keyed.get_vecattr(word, "count") == vocabulary["count"].iloc[3]
+    np.testing.assert_array_equal(keyed[word], vectors[3])
+
+
+def test_a_tampered_model_file_runs_nothing(trained, tmp_path):
+    import pickle
+
+    root = copy_run(trained[0], tmp_path / "run")
+    marker = tmp_path / "code-ran"
+    model = RunPaths(root).model_file("2001", 0)
+    cases = {
+        "a pickle named .npy": pickle.dumps(_Planted(str(marker))),
+        "an object array": None,
+        "a truncated array": model.read_bytes()[:200],
+    }
+    for case, data in cases.items():
+        if data is None:
+            with model.open("wb") as handle:
+                np.save(handle, np.array([_Planted(str(marker))], dtype=object), allow_pickle=True)
+        else:
+            model.write_bytes(data)
+        with pytest.raises(DriftError, match="not a model file as drift writes it"):
+            training.load_vectors(root, "2001", 0)
+        assert not marker.exists(), f"loading {case} ran code"
+    vocabulary = training.vocabulary_file(RunPaths(root).model_file("2002", 0))
+    vocabulary.write_bytes(pickle.dumps(_Planted(str(marker))))
+    with pytest.raises(DriftError, match="not a model file as drift writes it"):
+        training.load_vectors(root, "2002", 0)
+    assert not marker.exists()
+
+
+def test_a_run_folder_with_pickled_models_is_refused(tmp_path):
+    old = tmp_path / "old"
+    old.mkdir()
+    (old / "run.json").write_text(json.dumps({"format_version": 1, "stages": {}}))
+    with pytest.raises(DriftError, match="stored models as pickle files; this version never opens"):
+        training.load_vectors(old, "2001", 0)
