@@ -389,7 +389,11 @@ def check_text_type(kind: pa.DataType, column: str, role: str, where: str) -> No
     )
     if not nested:
         return
-    if role == "text":
+    raw = pa.types.is_binary(kind) or pa.types.is_large_binary(kind)
+    if raw:
+        option = "--text-col" if role == "text" else "--time-col"
+        fix = f"store it as text (UTF-8 strings), or name another column with {option}"
+    elif role == "text":
         fix = (
             "join each list into one string per document (tokens joined by spaces can be read "
             "with --pretokenized), or name another column with --text-col"
@@ -1022,7 +1026,13 @@ def open_source(
         return TextFolderReader(path, time_col, text_col, encoding)
     if path.stat().st_size == 0:
         raise DriftError(f"{path} is empty; give a file that holds documents.")
-    compression = detect_compression(path)
+    try:
+        compression = detect_compression(path)
+    except OSError as exc:
+        raise DriftError(
+            f"{path} cannot be read ({exc.strerror or exc.__class__.__name__}); check its "
+            "permissions."
+        ) from None
     if fmt in ("csv", "tsv"):
         sep = delimiter or ("\t" if fmt == "tsv" else ",")
         return CsvReader(path, compression, sep, time_col, text_col, encoding)

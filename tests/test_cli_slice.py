@@ -212,6 +212,9 @@ def test_parquet_text_column_of_lists_exits_2_naming_column_and_type(tmp_path, c
     pq.write_table(pa.table({"date": ["1990", "1991"], "text": [["a", "b"], ["c"]]}), path)
     err = assert_bad_input([path, "--out", tmp_path / "run"], capsys, "'text'", "list<")
     assert "--pretokenized" in err
+    raw = tmp_path / "bytes.parquet"
+    pq.write_table(pa.table({"date": ["1990"], "text": [b"\xff\xfe"]}), raw)
+    assert_bad_input([raw, "--out", tmp_path / "r2"], capsys, "holds binary values", "UTF-8")
 
 
 def test_binary_file_bytes_are_escaped_in_the_message(tmp_path, capsys):
