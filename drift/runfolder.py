@@ -43,7 +43,7 @@ class RunPaths:
     >>> from drift import RunPaths
     >>> paths = RunPaths("runs/letters")
     >>> paths.model_file("1950s", 0).as_posix()
-    'runs/letters/models/1950s/seed-0.kv'
+    'runs/letters/models/1950s/seed-0.npy'
     >>> paths.scores_parquet.name
     'scores.parquet'
     """

@@ -9,13 +9,13 @@ import numpy as np
 import pandas as pd
 import pytest
 from chart_run_fixture import LABELS, SEEDS, fixture_run_copy
-from gensim.models import KeyedVectors
 from scipy.spatial.distance import cdist
 
 from drift import neighbours
 from drift.alignment import prepare_vectors
 from drift.errors import DriftError
 from drift.runfolder import RunPaths
+from drift.training import read_keyed_vectors
 
 WORD = "government"
 
@@ -42,7 +42,7 @@ def count_model_loads(monkeypatch) -> Counter:
 
 def reference_neighbours(run: Path, word: str, k: int) -> pd.DataFrame:
     """Seed-averaged cosine similarity from SciPy's cdist over gensim's own vectors, prepared."""
-    kvs = {(label, seed): KeyedVectors.load(str(RunPaths(run).model_file(label, seed)))
+    kvs = {(label, seed): read_keyed_vectors(RunPaths(run).model_file(label, seed))
            for label in LABELS for seed in range(SEEDS)}
     candidates = [w for w in kvs[(LABELS[0], 0)].index_to_key
                   if all(w in kv.key_to_index for kv in kvs.values())]

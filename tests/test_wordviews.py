@@ -7,13 +7,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 from chart_run_fixture import LABELS, SEEDS, fixture_run_copy
-from gensim.models import KeyedVectors
 from scipy.linalg import orthogonal_procrustes
 from scipy.spatial.distance import cosine, pdist
 
 from drift import neighbours, wordviews
 from drift.alignment import prepare_vectors
 from drift.runfolder import RunPaths
+from drift.training import read_keyed_vectors
 
 WORD = "government"
 LETTERS = ["a", "b", "c", "d", "e", "f"]
@@ -52,7 +52,7 @@ def test_self_similarity_matches_scipy_procrustes_and_cosine(run, models):
     matrix = shape.self_similarity.loc[list(LABELS), list(LABELS)].to_numpy()
     expected = np.zeros((len(LABELS), len(LABELS)))
     for seed in range(SEEDS):
-        kvs = [KeyedVectors.load(str(RunPaths(run).model_file(label, seed))) for label in LABELS]
+        kvs = [read_keyed_vectors(RunPaths(run).model_file(label, seed)) for label in LABELS]
         ref = kvs[0]
         aligned = []
         for kv in kvs:
