@@ -168,6 +168,7 @@ def test_stage_boundaries_are_recorded(run):
         "scores.csv",
         "timeline.parquet",
         "terms.parquet",
+        "neighbours.parquet",
     }
     for stage in ("train", "rank", "charts"):
         assert runfolder.stale_reason(run, stage) is None
