@@ -155,6 +155,8 @@ def read_neighbours(run: str | Path) -> pd.DataFrame | None:
     path = runfolder.RunPaths(Path(run)).neighbours_parquet
     if not path.exists():
         return None
+    if runfolder.stale_reason(Path(run), "rank") is not None:
+        return None  # made from older models or slices: never shown, recomputed from the models
     table = pd.read_parquet(path)
     for column in ("word", "slice", "neighbour"):
         table[column] = table[column].astype(str).astype(object)

@@ -225,6 +225,40 @@ def test_train_to_rank_boundary_chart_after_a_retrain(run, capsys):
     assert f"{scores.loc[word, 'displacement']:.3f}" in page
 
 
+def test_rank_to_neighbours_boundary(run, capsys):
+    """neighbours.parquet (written by rank) is not shown once the models changed: the
+    neighbours are recomputed from the models there now."""
+    from drift import neighbours
+
+    stored = neighbours.read_neighbours(run)
+    word = str(stored["word"].iloc[0])
+    code, _, err = _drift(
+        [
+            "train",
+            run,
+            "--dim",
+            "20",
+            "--epochs",
+            "1",
+            "--seeds",
+            "1",
+            "--min-count",
+            "5",
+            "--workers",
+            "1",
+            "-q",
+        ],
+        capsys,
+    )
+    assert code == 0, err
+    assert neighbours.read_neighbours(run) is None  # the stale table is not used
+    shown = neighbours.word_neighbours(run, word, k=5)
+    fresh = neighbours.compute_neighbours(neighbours.load_run_models(run), [word], 5)
+    assert shown["neighbour"].tolist() == fresh["neighbour"].tolist()
+    old = stored[(stored["word"] == word) & (stored["rank"] <= 5)]
+    assert shown["neighbour"].tolist() != old["neighbour"].tolist()
+
+
 def test_rank_to_charts_boundary(run, capsys):
     """A new ranking removes the pages made from the old one; the report remakes them."""
     assert (run / "charts" / "index.html").exists()
