@@ -67,7 +67,7 @@ UNTITLED = {"title_text": "", "margin_t": 36}
 _CLICK_TO_PAGE = (
     "var gd=document.getElementById('{plot_id}');"
     "gd.on('plotly_click',function(ev){var p=ev.points[0];"
-    "var u=p&&p.customdata&&p.customdata[5];if(u){window.location.href=u;}});"
+    "var u=p&&p.customdata&&p.customdata[6];if(u){window.location.href=u;}});"
 )
 
 
@@ -192,10 +192,18 @@ def read_composition(run: Path) -> pd.DataFrame | None:
     return None
 
 
+def is_significant(value: object) -> bool:
+    """True only for a significant verdict; missing (no null to decide it) counts as not."""
+    try:
+        return bool(value is not None and not pd.isna(value) and value)
+    except (TypeError, ValueError):
+        return False
+
+
 def change_warranted(row: pd.Series | None, n_slices: int) -> bool:
     """A change point is shown only for a significant word whose step is positive (it moved
     away, not back), on a run of more than two slices."""
-    if row is None or n_slices <= 2 or not bool(row.get("significant")):
+    if row is None or n_slices <= 2 or not is_significant(row.get("significant")):
         return False
     point, step = row.get("change_point"), row.get("change_step")
     return (isinstance(point, str) and point != "" and step is not None
@@ -475,7 +483,7 @@ class WordView:
 def verdict_html(data: RunData, row: pd.Series) -> str:
     return (
         f'<span class="sig">significant</span> at q ≤ {data.alpha:g}'
-        if bool(row.get("significant"))
+        if is_significant(row.get("significant"))
         else f"not significant at q ≤ {data.alpha:g}"
     )
 
@@ -498,7 +506,7 @@ def word_summary_html(data: RunData, view: WordView) -> str:
         f"of {len(data.scores):,} measured words."
     )
     gained, lost = view.gained_lost(data)
-    if bool(row.get("significant")):
+    if is_significant(row.get("significant")):
         when = ""
         if view.change is not None:
             before, after = _boundary(data.labels, view.change.point)
@@ -551,7 +559,7 @@ def change_html(data: RunData, view: WordView) -> str:
         reason = "the word was not measured"
     elif len(data.labels) <= 2:
         reason = "a run of two slices has no boundary to choose"
-    elif not bool(row.get("significant")):
+    elif not is_significant(row.get("significant")):
         reason = "its change is not significant, so a boundary would only describe noise"
     else:
         reason = "its largest step goes back towards the reference, not away from it"
@@ -591,7 +599,7 @@ def word_facts_html(data: RunData, view: WordView) -> str:
     facts += [
         ("headline (the more conservative)" if both else "against the time-shuffled control",
          _triple(row, "")),
-        (f"significant at q ≤ {data.alpha:g}", fmt(bool(row.get("significant")))),
+        (f"significant at q ≤ {data.alpha:g}", fmt(is_significant(row.get("significant")))),
         (f"occurrences {a} → {b}", f"{fmt(row.get('count_from'))} → {fmt(row.get('count_to'))}"),
         ("per million tokens", f"{fmt(row.get('fpm_from'), 1)} → {fmt(row.get('fpm_to'), 1)}"),
     ]
@@ -601,7 +609,7 @@ def word_facts_html(data: RunData, view: WordView) -> str:
                       f"(step +{fmt(view.change.step)})"))
     else:
         facts.append(("change point", "none shown (see above)"))
-    if bool(row.get("significant")):
+    if is_significant(row.get("significant")):
         gained, lost = view.gained_lost(data)
         facts += [
             (f"neighbours gained by {b}", f'<span class="words">{_words_html(gained)}</span>'),
@@ -995,7 +1003,7 @@ def ranked_table_html(
             + (f'<td class="num">{fmt(row.score)}</td>' if show_score else "")
             + f'<td class="num">{fmt(row.displacement)} ± {fmt(row.displacement_sd, 2)}</td>'
             f'<td class="num">{fmt(row.z)}</td><td class="num">{fmt(row.q)}</td>'
-            f"<td>{'◆ yes' if bool(row.significant) else 'no'}</td>"
+            f"<td>{'◆ yes' if is_significant(row.significant) else 'no'}</td>"
             f'<td class="num">{fmt(row.count_from)} → {fmt(row.count_to)}</td>'
             f"<td>{_change_cell(row, len(labels), labels) if labels else ''}</td></tr>"
         )
@@ -1126,7 +1134,7 @@ def word_index_page(data: RunData, links: dict[str, str]) -> str:
         cell = esc(word)
         if word in links:
             cell = f'<a href="{esc(links[word])}">{cell}</a>'
-        sig = bool(row.significant)
+        sig = is_significant(row.significant)
         rows.append(
             f'<tr data-word="{esc(word)}" data-significant="{int(sig)}">'
             f'<td class="num">{fmt(row.rank)}</td><td class="word">{cell}</td>'

@@ -328,3 +328,22 @@ def test_the_word_index_finds_words_as_the_reader_types(run, tmp_path):
     result, _ = laid_out(pages_of(run)["index"], 420, tmp_path, search="gov")
     shown = [html.unescape(w) for w in result["search"]]
     assert shown and set(shown) == {w for w in words if "gov" in w.lower()}
+
+
+@pytest.mark.parametrize("kind", ["word", "report"])
+def test_pages_print_on_a4(run, tmp_path, kind):
+    pdf = tmp_path / f"{kind}.pdf"
+    command = [
+        chromium_path(), "--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
+        f"--user-data-dir={tmp_path / 'profile'}", "--host-resolver-rules=MAP * ~NOTFOUND",
+        "--proxy-server=127.0.0.1:9", "--virtual-time-budget=8000", "--no-pdf-header-footer",
+        f"--print-to-pdf={pdf}", pages_of(run)[kind].resolve().as_uri(),
+    ]
+    done = subprocess.run(command, capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0 and pdf.exists(), done.stderr[-2000:]
+    boxes = re.findall(rb"/MediaBox \[0 0 ([0-9.]+) ([0-9.]+)\]", pdf.read_bytes())
+    assert boxes
+    # ISO 216 A4 is 210 x 297 mm = 595.3 x 841.9 PostScript points (1 pt = 1/72 inch)
+    for width, height in boxes:
+        assert float(width) == pytest.approx(595.3, abs=1.0)
+        assert float(height) == pytest.approx(841.9, abs=1.0)

@@ -413,6 +413,8 @@ def edited_run(tmp_path: Path, **changes) -> Path:
     for column, value in changes.items():
         if column not in scores:
             scores[column] = np.nan
+        if value is None:  # a null in a bool column, as the rank stage writes an undecided one
+            scores[column] = scores[column].astype(object)
         scores.loc[scores["word"] == WORD, column] = value
     scores.to_parquet(RunPaths(copy).scores_parquet, index=False)
     return copy
@@ -623,3 +625,37 @@ def test_plotly_is_pinned_to_the_tested_major_version():
     assert upper, f"plotly is not pinned below a major version: {spec}"
     # the installed major version (the one the tests ran against) is the one allowed
     assert int(version("plotly").split(".")[0]) == int(upper.group(1)) - 1
+
+
+def test_a_click_on_a_charted_word_opens_its_page(run, built):
+    page = built.read_text(encoding="utf-8")
+    (scatter,) = [s for s in inline_scripts(page) if "plotly_click" in s]
+    at = int(re.search(r"p\.customdata\[(\d+)\];if\(u\)", scatter).group(1))
+    links = {html.unescape(w): u for w, u in re.findall(
+        r'<tr data-word="([^"]*)"><td class="num">\d+</td><td class="word"><a href="([^"]+)">',
+        page)}
+    clicked = {}
+    for part in plotly_figures(page)[0]["data"]:
+        for custom in part.get("customdata") or []:
+            if custom[at]:
+                clicked[html.unescape(custom[0])] = custom[at]
+    assert clicked == links and len(links) == 4
+
+
+def test_an_undecided_verdict_counts_as_not_significant(tmp_path):
+    # without a usable null the rank stage leaves significant empty (null), and z, p, q too
+    run = edited_run(tmp_path, significant=None, z=np.nan, p=np.nan, q=np.nan,
+                     change_point=LABELS[2], change_step=0.4)
+    page = report.chart_word(run, WORD).read_text(encoding="utf-8")
+    assert "has no calibrated verdict" in page
+    assert "No clear change point:</strong> its change is not significant" in page
+    assert "neighbours gained" not in page
+
+
+@pytest.mark.parametrize("value, expected", [(True, True), (np.bool_(True), True), (False, False),
+                                             (None, False), (np.nan, False), ("NA", False)])
+def test_is_significant_treats_missing_as_not(value, expected):
+    import pandas as pd
+
+    value = pd.NA if value == "NA" else value
+    assert report.is_significant(value) is expected  # bool(nan) would say True
