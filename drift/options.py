@@ -257,6 +257,23 @@ def _seed(value: Any) -> int:
     return int(value)
 
 
+def _columns(value: Any, option: str) -> tuple[str, ...]:
+    """Column names from 'a,b' or ['a', 'b,c']."""
+    items = [value] if isinstance(value, str) else list(value)
+    names = tuple(n.strip() for item in items for n in str(item).split(",") if n.strip())
+    if not names:
+        raise DriftError(f"{option} needs at least one column name, e.g. {option} source.")
+    return tuple(dict.fromkeys(names))
+
+
+def _where(value: Any) -> tuple[str, ...]:
+    from drift.documents import parse_where
+
+    specs = (value,) if isinstance(value, str) else tuple(value)
+    parse_where(specs)  # a malformed condition is an error here, before any reading
+    return specs
+
+
 #: The one seed: the balance draw, model k's gensim seed (seed + k) and the examples drawn.
 _SEED_HELP = "Seed of every random choice (balancing, models: seed + k, examples)."
 
@@ -319,6 +336,24 @@ class SliceOptions(StageOptions):
     keep_case: bool = opt(False, "Keep upper case (default: lower-case every token).")
     pretokenized: bool = opt(False, "Split on white space only.")
     seed: int = opt(1, _SEED_HELP, check=_seed)
+    id_col: str | None = opt(
+        None, "Column with document ids (default: the row number, or a .txt file's name).",
+        show_default=False,
+    )
+    meta: tuple[str, ...] | None = opt(
+        None, "Metadata columns for the document index and composition, e.g. 'source,author' "
+        "(repeatable).", cli_type=list[str], metavar="COLUMNS", show_default=False,
+        check=lambda value: _columns(value, "--meta"),
+    )
+    where: tuple[str, ...] | None = opt(
+        None, "Keep only matching documents: column=value or column!=value, several values with "
+        "commas; repeat for more conditions.", cli_type=list[str], metavar="COLUMN=VALUE",
+        show_default=False, check=_where,
+    )
+    balance_by: str | None = opt(
+        None, "Balance so every slice keeps the same mix of this metadata column (implies "
+        "--balance).", metavar="COLUMN", show_default=False,
+    )
 
 
 @dataclass(frozen=True)

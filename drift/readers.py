@@ -125,12 +125,15 @@ class DocBatch:
     """A batch of documents: raw time values and texts (Arrow arrays of equal length).
 
     ``continues`` is True when the first text continues the last document of the previous batch
-    (a long .txt file is read in pieces); it is then not a new document.
+    (a long .txt file is read in pieces); it is then not a new document. Documents are numbered
+    by their position in the source (the n-th data row, or the n-th .txt file).
     """
 
     times: pa.Array
     texts: pa.Array
     continues: bool = False
+    #: Extra columns asked for with :meth:`Reader.want` (id, metadata; as text), by name.
+    extra: dict[str, pa.Array] | None = None
 
     def __len__(self) -> int:
         return len(self.texts)
@@ -406,6 +409,13 @@ def check_text_type(kind: pa.DataType, column: str, role: str, where: str) -> No
 # ---------------------------------------------------------------------------- readers
 
 
+def _as_text(values: pa.Array) -> pa.Array:
+    """An Arrow array as strings (ids and metadata are kept as written)."""
+    if isinstance(values, pa.ChunkedArray):
+        values = values.combine_chunks()
+    return values if pa.types.is_string(values.type) else values.cast(pa.string())
+
+
 class Reader:
     """Base of the readers: the source, its resolved columns, progress and replaced characters."""
 
@@ -418,8 +428,26 @@ class Reader:
         self.time_col = ""
         self.text_col = ""
         self.columns: list[str] = []
+        self.extra_cols: list[str] = []
         self._streams: list[_Utf8Stream] = []
         self._done_bytes = 0
+
+    def want(self, column: str, option: str) -> str:
+        """Also read ``column`` (named with ``option``) into :attr:`DocBatch.extra`; returns its
+        name as the source spells it (a missing column is a DriftError listing the columns)."""
+        found = pick_column(self.columns, column, (), column, option, self.path.name)
+        if found not in self.extra_cols:
+            self.extra_cols.append(found)
+        return found
+
+    def _read_cols(self) -> list[str]:
+        """Time, text and extra columns, each once."""
+        return list(dict.fromkeys([self.time_col, self.text_col, *self.extra_cols]))
+
+    def _extra_of(self, batch) -> dict[str, pa.Array] | None:
+        if not self.extra_cols:
+            return None
+        return {c: _as_text(batch.column(c)) for c in self.extra_cols}
 
     @property
     def total_bytes(self) -> int:
@@ -575,7 +603,7 @@ class CsvReader(Reader):
         block, delivered = BATCH_BYTES, 0
         while True:
             try:
-                reader, stream = self._open(block, [self.time_col, self.text_col])
+                reader, stream = self._open(block, self._read_cols())
             except _RowTooLong:
                 block = self._larger(block)
                 continue
@@ -594,7 +622,11 @@ class CsvReader(Reader):
                         continue
                     batch, skip = batch.slice(skip), 0
                     delivered += batch.num_rows
-                    yield DocBatch(batch.column(self.time_col), batch.column(self.text_col))
+                    yield DocBatch(
+                        batch.column(self.time_col),
+                        batch.column(self.text_col),
+                        extra=self._extra_of(batch),
+                    )
             except _RowTooLong:
                 self._streams.remove(stream)  # read again from the start; count its bytes once
                 block = self._larger(block)
@@ -671,9 +703,17 @@ class JsonLinesReader(Reader):
             f"{self.path} is empty; give a JSON Lines file with one document per line."
         )
 
+    def _batch(self, times: list, texts: list, extra: dict[str, list]) -> DocBatch:
+        return DocBatch(
+            pa.array(times, pa.string()),
+            pa.array(texts, pa.string()),
+            extra={c: pa.array(v, pa.string()) for c, v in extra.items()} or None,
+        )
+
     def batches(self) -> Iterator[DocBatch]:
         times: list = []
         texts: list = []
+        extra: dict[str, list] = {c: [] for c in self.extra_cols}
         size = 0
         for number, line in self._lines():
             record = self._record(number, line)
@@ -687,12 +727,16 @@ class JsonLinesReader(Reader):
                     raise self._nested(number, value, column, role)
             times.append(None if when is None else str(when))
             texts.append("" if text is None else text if isinstance(text, str) else str(text))
+            for column, values in extra.items():
+                value = record.get(column)
+                values.append(None if value is None else str(value))
             size += len(line)
             if size >= BATCH_BYTES:
-                yield DocBatch(pa.array(times, pa.string()), pa.array(texts, pa.string()))
+                yield self._batch(times, texts, extra)
                 times, texts, size = [], [], 0
+                extra = {c: [] for c in self.extra_cols}
         if texts:
-            yield DocBatch(pa.array(times, pa.string()), pa.array(texts, pa.string()))
+            yield self._batch(times, texts, extra)
 
 
 class ParquetReader(Reader):
@@ -756,11 +800,13 @@ class ParquetReader(Reader):
         )
         rows = int(min(max(BATCH_BYTES // row_bytes, 1_000), 1_000_000))
         try:
-            for batch in self._file.iter_batches(
-                batch_size=rows, columns=[self.time_col, self.text_col]
-            ):
+            for batch in self._file.iter_batches(batch_size=rows, columns=self._read_cols()):
                 self._rows_done += batch.num_rows
-                yield DocBatch(batch.column(0), batch.column(1))
+                yield DocBatch(
+                    batch.column(self.time_col),
+                    batch.column(self.text_col),
+                    extra=self._extra_of(batch),
+                )
         except (pa.ArrowException, OSError) as exc:
             raise DriftError(
                 f"{self.path} is not a readable Parquet file ({printable(str(exc))}); check the "
@@ -966,15 +1012,29 @@ class TextFolderReader(Reader):
     def replaced(self) -> int:
         return self._replaced_done + sum(s.replaced for s in self._streams)
 
+    def relative_name(self, file: Path) -> str:
+        """The file's name relative to the folder (the ``file`` column and default id)."""
+        return file.relative_to(self.root).as_posix()
+
     def batches(self) -> Iterator[DocBatch]:
         times: list[str] = []
         texts: list[str] = []
+        names: list[str] = []
         size = 0
         continues = False
         self._replaced_done = self._legacy_done = 0  # each pass counts afresh
         self.legacy_files = []
+
+        def batch() -> DocBatch:
+            columns = {"file": names, "date": times}
+            extra = {c: pa.array(columns[c], pa.string()) for c in self.extra_cols} or None
+            return DocBatch(
+                pa.array(times, pa.string()), pa.array(texts, pa.string()), continues, extra
+            )
+
         for file in self.files:
             when = self.dates[file]
+            name = self.relative_name(file)
             pieces = 0
             for piece in self._pieces(file):
                 if pieces > 0 and not texts:
@@ -982,17 +1042,17 @@ class TextFolderReader(Reader):
                 pieces += 1
                 times.append(when)
                 texts.append(piece)
+                names.append(name)
                 size += len(piece)
                 if size >= BATCH_BYTES:
-                    yield DocBatch(
-                        pa.array(times, pa.string()), pa.array(texts, pa.string()), continues
-                    )
-                    times, texts, size, continues = [], [], 0, False
+                    yield batch()
+                    times, texts, names, size, continues = [], [], [], 0, False
             if pieces == 0:  # an empty file is an empty document
                 times.append(when)
                 texts.append("")
+                names.append(name)
         if texts:
-            yield DocBatch(pa.array(times, pa.string()), pa.array(texts, pa.string()), continues)
+            yield batch()
 
 
 # ---------------------------------------------------------------------------- entry point

@@ -73,6 +73,22 @@ class RunPaths:
         return self.root / "counts.parquet"
 
     @property
+    def documents_parquet(self) -> Path:
+        return self.root / "documents.parquet"
+
+    @property
+    def documents_csv(self) -> Path:
+        return self.root / "documents.csv"
+
+    @property
+    def composition_parquet(self) -> Path:
+        return self.root / "composition.parquet"
+
+    @property
+    def composition_csv(self) -> Path:
+        return self.root / "composition.csv"
+
+    @property
     def models_dir(self) -> Path:
         return self.root / "models"
 
@@ -99,8 +115,16 @@ class RunPaths:
         return self.root / "timeline.parquet"
 
     @property
+    def timeline_csv(self) -> Path:
+        return self.root / "timeline.csv"
+
+    @property
     def terms_parquet(self) -> Path:
         return self.root / "terms.parquet"
+
+    @property
+    def terms_csv(self) -> Path:
+        return self.root / "terms.csv"
 
     @property
     def neighbours_parquet(self) -> Path:

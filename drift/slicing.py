@@ -27,7 +27,7 @@ import os
 import shutil
 import tempfile
 import time
-from collections.abc import Callable, Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -40,7 +40,7 @@ import pyarrow.compute as pc
 import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 
-from drift import runfolder
+from drift import documents, runfolder
 from drift.errors import DriftError
 from drift.options import SliceOptions
 from drift.progress import progress_bars, stderr_console
@@ -360,6 +360,9 @@ class _BatchOutcome:
     parts: list[_Part]
     counts: BatchCounts | None
     day_tokens: tuple[np.ndarray, np.ndarray] | None = None
+    docs: documents.BatchDocuments | None = None
+    where_dropped: int = 0
+    where_values: dict[str, collections.Counter] | None = None
 
 
 @dataclass(frozen=True)
@@ -368,6 +371,8 @@ class _Settings:
     date_format: str | None
     keep_case: bool
     pretokenized: bool
+    where: tuple[documents.WhereClause, ...] = ()
+    index_columns: tuple[tuple[str, str], ...] = ()  # (name in the index work file, source column)
 
 
 def _lines_buffer(
@@ -427,7 +432,19 @@ def _process_batch(batch: DocBatch, settings: _Settings) -> _BatchOutcome:
         bad.add(batch.times, ok)
     keys = keys_for_days(settings.rule, days)
     outside = int((ok & (keys < 0)).sum())
-    valid = np.flatnonzero(ok & (keys >= 0))
+    in_range = ok & (keys >= 0)
+    where_dropped, where_values = 0, None
+    if settings.where:
+        chosen = documents.where_mask(batch.extra, settings.where, rows)
+        where_dropped = int((in_range & ~chosen).sum())
+        in_range &= chosen
+        where_values = {
+            c.column: collections.Counter(
+                pc.fill_null(batch.extra[c.column], "").to_pylist()
+            )
+            for c in settings.where
+        }
+    valid = np.flatnonzero(in_range)
     order = valid[np.argsort(keys[valid], kind="stable")]
     new_document = np.ones(rows, dtype=bool)
     new_document[0] = not batch.continues
@@ -468,7 +485,45 @@ def _process_batch(batch: DocBatch, settings: _Settings) -> _BatchOutcome:
         count_words=settings.rule.kind != "even",
         prefix=prefix,
     )
-    return _BatchOutcome(rows, bad, outside, empty, parts, counts, day_tokens)
+    docs = _batch_documents(batch, settings, valid, order, keys, days, per_document, line_doc)
+    return _BatchOutcome(
+        rows, bad, outside, empty, parts, counts, day_tokens, docs, where_dropped, where_values
+    )
+
+
+def _batch_documents(
+    batch: DocBatch,
+    settings: _Settings,
+    valid: np.ndarray,
+    order: np.ndarray,
+    keys: np.ndarray,
+    days: np.ndarray,
+    per_document: np.ndarray,
+    line_doc: np.ndarray,
+) -> documents.BatchDocuments:
+    """The kept documents of a batch in input order, for the document index."""
+    lines_by_order = np.bincount(line_doc, minlength=len(order)).astype(np.int64)
+    back = np.empty(len(order), dtype=np.int64)  # position in ``order`` of each valid row
+    back[np.searchsorted(valid, order)] = np.arange(len(order))
+    taken = pa.array(valid, pa.int64())
+    strings = {"date:": _as_text(batch.times).take(taken)}
+    for name, column in settings.index_columns:
+        strings[name] = _as_text(batch.extra[column]).take(taken)
+    return documents.BatchDocuments(
+        rows=valid,
+        keys=keys[valid],
+        days=days[valid],
+        lines=lines_by_order[back],
+        tokens=np.asarray(per_document, dtype=np.int64)[back],
+        strings=pa.table(strings),
+        continues=bool(batch.continues and len(valid) and valid[0] == 0),
+    )
+
+
+def _as_text(values) -> pa.Array:
+    if isinstance(values, pa.ChunkedArray):
+        values = values.combine_chunks()
+    return values if pa.types.is_string(values.type) else values.cast(pa.string())
 
 
 def _ordered_map(fn: Callable, items: Iterable, workers: int | None = None) -> Iterator:
@@ -565,6 +620,8 @@ class _ReadTotals:
     empty: int = 0
     bad: BadDates = field(default_factory=BadDates)
     day_tokens: list[tuple[np.ndarray, np.ndarray]] = field(default_factory=list)
+    where_dropped: int = 0
+    where_values: dict[str, collections.Counter] = field(default_factory=dict)
 
 
 def _first_pass(
@@ -574,16 +631,25 @@ def _first_pass(
     counts: WordCounts,
     skip_bad_dates: bool,
     quiet: bool,
+    index: documents.DocumentIndex | None = None,
 ) -> _ReadTotals:
-    """Read the source once: slice files (or per-year files for even:K) and word counts."""
+    """Read the source once: slice files (or per-year files for even:K), word counts and the
+    document index."""
     totals = _ReadTotals()
     with progress_bars(quiet or reader.total_bytes < PROGRESS_MIN_BYTES) as progress:
         task = progress.add_task(
             f"Reading {reader.path.name} (MB)", total=max(1, round(reader.total_bytes / 1e6))
         )
-        outcomes = _ordered_map(lambda batch: _process_batch(batch, settings), reader.batches())
-        for number, outcome in enumerate(outcomes):
+        outcomes = _ordered_map(
+            lambda batch: (_process_batch(batch, settings), batch.continues), reader.batches()
+        )
+        for number, (outcome, continues) in enumerate(outcomes):
             totals.rows += outcome.rows
+            totals.where_dropped += outcome.where_dropped
+            for column, counter in (outcome.where_values or {}).items():
+                totals.where_values.setdefault(column, collections.Counter()).update(counter)
+            if index is not None and outcome.docs is not None:
+                index.add(outcome.docs, outcome.rows, continues)
             totals.outside += outcome.outside
             totals.empty += outcome.empty
             totals.bad.count += outcome.bad.count
@@ -666,23 +732,41 @@ def lines_within_budget(line_tokens: np.ndarray, order: np.ndarray, budget: int)
 
 
 def _balance(
-    files: _SliceFiles, counts: WordCounts, budget: int, seed: int, keys: list[int]
-) -> dict[int, int]:
+    files: _SliceFiles,
+    counts: WordCounts,
+    budget: int,
+    seed: int,
+    keys: list[int],
+    strata: dict[int, np.ndarray] | None = None,
+    stratum_budgets: np.ndarray | None = None,
+) -> tuple[dict[int, int], dict[int, np.ndarray]]:
     """Down-sample every slice over ``budget`` tokens to at most ``budget`` (random lines, seeded).
 
-    Returns the tokens dropped per slice key; rewrites the work files, tallies and counts.
+    With ``strata`` (a stratum code per line of each slice), each stratum ``v`` is down-sampled
+    on its own to ``stratum_budgets[v]`` tokens, so every slice keeps the same mix.
+    Returns the tokens dropped per slice key and the kept-line masks of the slices that were cut;
+    rewrites the work files, tallies and counts.
     """
-    dropped = {}
+    dropped: dict[int, int] = {}
+    kept_lines: dict[int, np.ndarray] = {}
     for index, key in enumerate(keys):
         tally = files.tallies[key]
         dropped[key] = 0
-        if tally.tokens <= budget:
+        if tally.tokens <= budget and strata is None:
             continue
         line_tokens = np.concatenate(tally.line_tokens).astype(np.int64)
         doc_starts = np.concatenate(tally.doc_starts)
         order = np.random.default_rng([seed, index]).permutation(len(line_tokens))
         keep = np.zeros(len(line_tokens), dtype=bool)
-        keep[lines_within_budget(line_tokens, order, budget)] = True
+        if strata is None:
+            keep[lines_within_budget(line_tokens, order, budget)] = True
+        else:
+            codes = strata[key]
+            for code, share in enumerate(stratum_budgets):
+                if share > 0:
+                    within = order[codes[order] == code]
+                    keep[lines_within_budget(line_tokens, within, int(share))] = True
+        kept_lines[key] = keep
         counts.drop(key)
         source, target = files.path(key), files.path(key).with_suffix(".balanced")
         position = 0
@@ -703,7 +787,89 @@ def _balance(
         dropped[key] = tally.tokens - kept_tokens
         tally.tokens = kept_tokens
         tally.documents = len(np.unique(document_ids[keep & (document_ids >= 0)]))
-    return dropped
+    return dropped, kept_lines
+
+
+def _documents_by_slice(
+    bin_of: np.ndarray, lines: np.ndarray, order: np.ndarray, keys: list[int]
+) -> dict[int, np.ndarray]:
+    """For each slice key, its documents that have lines, in the order of the slice file."""
+    ordered = order[lines[order] > 0]
+    return {key: ordered[bin_of[ordered] == b] for b, key in enumerate(keys)}
+
+
+def _line_documents(tally: _Tally) -> np.ndarray:
+    """For each line of a slice, the position of its document among the slice's documents."""
+    return np.cumsum(np.concatenate(tally.doc_starts)) - 1
+
+
+def _apply_kept(
+    tally: _Tally, keep: np.ndarray, docs: np.ndarray, lines: np.ndarray, tokens: np.ndarray
+) -> None:
+    """Lines and tokens of each document that balancing kept."""
+    owner = _line_documents(tally)
+    line_tokens = np.concatenate(tally.line_tokens).astype(np.int64)
+    lines[docs] = np.bincount(owner[keep], minlength=len(docs))[: len(docs)]
+    tokens[docs] = np.bincount(
+        owner[keep], weights=line_tokens[keep], minlength=len(docs)
+    )[: len(docs)].astype(np.int64)
+
+
+def _strata(
+    index: documents.DocumentIndex,
+    column: str,
+    files: _SliceFiles,
+    keys: list[int],
+    in_slice: dict[int, np.ndarray],
+    bin_of: np.ndarray,
+    doc_tokens: np.ndarray,
+    budget: str | int,
+) -> tuple[dict[int, np.ndarray], np.ndarray, list[str]]:
+    """Stratum code of each line per slice, and each stratum's token budget: every slice keeps
+    as many tokens of a value as the slice that has fewest of it (scaled down to a numeric
+    ``budget``), so all slices keep the same mix. A value missing from a slice is left out."""
+    encoded = pc.dictionary_encode(index.column_values(f"meta:{column}"))
+    codes = encoded.indices.to_numpy(zero_copy_only=False).astype(np.int64)
+    values = encoded.dictionary.to_pylist()
+    per_slice = np.zeros((len(keys), len(values)), dtype=np.int64)
+    np.add.at(per_slice, (bin_of, codes), doc_tokens)
+    budgets = per_slice.min(axis=0)
+    notes = []
+    missing = [values[v] for v in np.flatnonzero(budgets == 0)]
+    if missing:
+        notes.append(
+            f"--balance-by {column} leaves out {', '.join(repr(m) for m in missing[:5])}"
+            f"{' ...' if len(missing) > 5 else ''}: missing from at least one slice, so no "
+            "slice can keep the same share of it."
+        )
+    if budgets.sum() == 0:
+        raise DriftError(
+            f"--balance-by {column}: no value of '{column}' occurs in every slice, so no mix can "
+            "be kept the same; choose another column or leave out --balance-by."
+        )
+    if budget != "smallest":
+        if int(budget) > budgets.sum():
+            raise DriftError(
+                f"--balance {budget} asks for more tokens than the same mix of '{column}' allows "
+                f"in every slice ({int(budgets.sum()):,}); give a smaller number, or --balance "
+                "alone."
+            )
+        budgets = np.floor(budgets * (int(budget) / budgets.sum())).astype(np.int64)
+    strata = {key: codes[in_slice[key]][_line_documents(files.tallies[key])] for key in keys}
+    return strata, budgets, notes
+
+
+def _index_columns(spec: documents.IndexSpec) -> tuple[tuple[str, str], ...]:
+    columns = [(f"id:{spec.id_col}", spec.id_col)] if spec.id_col else []
+    columns += [(f"meta:{name}", name) for name in spec.meta]
+    if spec.file_names:
+        columns.append(("file:", "file"))
+    return tuple(columns)
+
+
+def _check_where(settings: _Settings, totals: _ReadTotals, index: documents.DocumentIndex) -> None:
+    if settings.where and totals.rows and not any(len(k) for k in index.keys):
+        raise documents.where_error(settings.where, totals.where_values)
 
 
 # ---------------------------------------------------------------------------- reading the results
@@ -854,6 +1020,8 @@ def slice_warnings(summary: pd.DataFrame) -> list[str]:
 def _outputs_exist(paths: runfolder.RunPaths, labels: list[str] | None) -> bool:
     if not labels or not paths.slice_summary.exists() or not paths.counts.exists():
         return False
+    if not paths.documents_parquet.exists() or not paths.composition_parquet.exists():
+        return False
     return all(paths.slice_file(label).exists() for label in labels)
 
 
@@ -925,6 +1093,10 @@ def slice_archive(
     quiet: bool = False,
     encoding: str | None = _SLICE.encoding,
     delimiter: str | None = _SLICE.delimiter,
+    id_col: str | None = _SLICE.id_col,
+    meta: Sequence[str] | str | None = _SLICE.meta,
+    where: Sequence[str] | str | None = _SLICE.where,
+    balance_by: str | None = _SLICE.balance_by,
 ) -> pd.DataFrame:
     """Cut ``source`` into time slices in the run folder ``out`` and return the slice summary.
 
@@ -932,6 +1104,8 @@ def slice_archive(
     ``slices/summary.csv``, ``counts.parquet`` and the slice stage of ``run.json``; a rerun with
     the same source and options reuses the slices. Defaults and help texts of the options:
     :class:`drift.options.SliceOptions`.
+    Also writes the document index (``documents.parquet``/``.csv``) and the composition of each
+    slice (``composition.parquet``/``.csv``), see :mod:`drift.documents`.
 
     Parameters
     ----------
@@ -962,6 +1136,15 @@ def slice_archive(
     encoding, delimiter : str, optional
         Text encoding (default UTF-8, cp1252 when a file is not UTF-8) and CSV field separator,
         passed to :func:`drift.readers.open_source`.
+    id_col : str, optional
+        Column with document ids (default: the source row number, or a .txt file's name).
+    meta : str or sequence of str, optional
+        Metadata columns kept in the document index and counted in the composition.
+    where : str or sequence of str, optional
+        Keep part of the archive: ``column=value``, ``column!=value``, several values separated
+        by commas; every condition must hold.
+    balance_by : str, optional
+        Balance so that every slice keeps the same tokens of each value of this column.
 
     Returns
     -------
@@ -993,6 +1176,9 @@ def slice_archive(
     reader = open_source(
         source, fmt, time_col, text_col, encoding=encoding, delimiter=delimiter
     )
+    spec, clauses = _resolve_columns(reader, id_col, meta, where, balance_by)
+    if balance_by and budget is None:
+        budget = "smallest"
     if source.is_dir() and Path(out).resolve().is_relative_to(source.resolve()):
         raise DriftError(
             f"--out {out} is inside the source folder {source}, so its slices would be read as "
@@ -1012,6 +1198,10 @@ def slice_archive(
         "seed": int(seed),
         "encoding": reader.encoding,
         "delimiter": delimiter,
+        "id_col": spec.id_col,
+        "meta": list(spec.meta),
+        "where": [c.text() for c in clauses],
+        "balance_by": spec.meta[0] if balance_by else None,
     }
     with runfolder.run_lock(paths.root):
         inputs = runfolder.fingerprint_path(source)
@@ -1029,7 +1219,7 @@ def slice_archive(
             return summary
         runfolder.forget_stage(paths.root, STAGE)
         _clean_leftovers(paths)
-        summary, totals, timings = _run(reader, paths, rule, budget, params, seed, quiet)
+        summary, totals, timings = _run(reader, paths, rule, budget, params, seed, quiet, spec)
         labels = summary["label"].tolist()
         timings["total"] = round(time.perf_counter() - started, 3)
         runfolder.record_stage(
@@ -1045,7 +1235,18 @@ def slice_archive(
                 "timings": timings,
             },
         )
-    messages = slice_warnings(summary) + reader.notes()
+    messages = slice_warnings(summary) + summary.attrs.get("index_notes", []) + reader.notes()
+    labels = summary["label"].tolist()
+    if len(labels) > 1 and spec.meta:
+        pairs = [(labels[0], labels[-1])] + [
+            (a, b) for a, b in zip(labels, labels[1:], strict=False) if (a, b) != (labels[0], labels[-1])
+        ]
+        messages += documents.composition_shifts(summary.attrs["composition"], pairs)[1]
+    if totals.get("left_out_by_where"):
+        messages.append(
+            f"{_count(totals['left_out_by_where'], 'document')} left out by "
+            f"{' '.join('--where ' + w for w in params['where'])}."
+        )
     if totals["bad_dates_skipped"]:
         messages.append(
             f"{_count(totals['bad_dates_skipped'], 'document')} whose date does not parse "
@@ -1067,6 +1268,42 @@ def slice_archive(
     return summary
 
 
+def _resolve_columns(
+    reader: Reader,
+    id_col: str | None,
+    meta: Sequence[str] | str | None,
+    where: Sequence[str] | str | None,
+    balance_by: str | None,
+) -> tuple[documents.IndexSpec, tuple[documents.WhereClause, ...]]:
+    """Check the id, metadata and --where columns against the source (a missing one is an error
+    listing the columns) and ask the reader for them."""
+    if isinstance(meta, str):
+        meta = [meta]
+    names = [m.strip() for item in (meta or []) for m in str(item).split(",") if m.strip()]
+    if balance_by:
+        names = [balance_by, *[n for n in names if n != balance_by]]
+    resolved = []
+    for name in names:
+        found = reader.want(name, "--balance-by" if name == balance_by else "--meta")
+        if found in documents.INDEX_COLUMNS:
+            raise DriftError(
+                f"--meta {found} has the name of a column the document index already has "
+                f"({', '.join(documents.INDEX_COLUMNS)}); rename that column in the source."
+            )
+        if found not in resolved:
+            resolved.append(found)
+    clauses = documents.parse_where(where)
+    clauses = tuple(
+        documents.WhereClause(reader.want(c.column, "--where"), c.values, c.keep) for c in clauses
+    )
+    txt = reader.fmt == "txt"
+    if txt:
+        reader.want("file", "--meta")
+    id_found = reader.want(id_col, "--id-col") if id_col else None
+    spec = documents.IndexSpec(id_found, tuple(resolved), txt, reader.path.name)
+    return spec, clauses
+
+
 def _run(
     reader: Reader,
     paths: runfolder.RunPaths,
@@ -1075,20 +1312,31 @@ def _run(
     params: dict[str, Any],
     seed: int,
     quiet: bool,
+    spec: documents.IndexSpec | None = None,
 ) -> tuple[pd.DataFrame, dict[str, int], dict[str, float]]:
-    """Read, slice, balance and write; returns the summary, totals and timings."""
-    settings = _Settings(rule, params["date_format"], params["keep_case"], params["pretokenized"])
+    """Read, slice, balance and write; returns the summary, totals and timings.
+
+    The summary's ``attrs`` carry the composition table and the index's warnings."""
+    spec = spec or documents.IndexSpec(source_name=reader.path.name)
+    settings = _Settings(
+        rule, params["date_format"], params["keep_case"], params["pretokenized"],
+        documents.parse_where(params.get("where")), _index_columns(spec),
+    )
     timings: dict[str, float] = {}
     paths.slices_dir.mkdir(parents=True, exist_ok=True)
     counts = WordCounts()
     with tempfile.TemporaryDirectory(prefix=".work-", dir=paths.slices_dir) as work:
+        index = documents.DocumentIndex(spec, Path(work) / "index")
         clock = time.perf_counter()
+        skip = params["skip_bad_dates"]
         if rule.kind == "even":
             year_files = _SliceFiles(Path(work) / "years", keep_lines=False)
-            totals = _first_pass(
-                reader, settings, year_files, counts, params["skip_bad_dates"], quiet
-            )
-            _check_read(reader, totals, params["skip_bad_dates"], bool(year_files.tallies))
+            try:
+                totals = _first_pass(reader, settings, year_files, counts, skip, quiet, index)
+            finally:
+                index.close()
+            _check_where(settings, totals, index)
+            _check_read(reader, totals, skip, bool(year_files.tallies))
             days = np.concatenate([d for d, _ in totals.day_tokens])
             tokens = np.concatenate([t for _, t in totals.day_tokens])
             bins = even_bins(days, tokens, rule.count)
@@ -1097,26 +1345,54 @@ def _run(
             shutil.rmtree(year_files.folder, ignore_errors=True)
         else:
             files = _SliceFiles(Path(work) / "slices", keep_lines=budget is not None)
-            totals = _first_pass(reader, settings, files, counts, params["skip_bad_dates"], quiet)
-            _check_read(reader, totals, params["skip_bad_dates"], bool(files.tallies))
+            try:
+                totals = _first_pass(reader, settings, files, counts, skip, quiet, index)
+            finally:
+                index.close()
+            _check_where(settings, totals, index)
+            _check_read(reader, totals, skip, bool(files.tallies))
             _check_edges(rule, files)
             bins = [bin_for_key(rule, key) for key in sorted(files.tallies)]
         timings["read"] = round(time.perf_counter() - clock, 3)
         keys = [b.key for b in bins]
+        numbers = index.numbers()
+        if rule.kind == "even":
+            starts = np.array([b.start for b in bins], dtype=np.int64)
+            bin_of = np.searchsorted(starts, numbers["days"], side="right") - 1
+        else:
+            bin_of = np.searchsorted(np.asarray(keys), numbers["keys"])
+        order = documents.slice_order(bin_of, numbers["keys"], rule.kind == "even")
+        doc_lines, doc_tokens = numbers["lines"].copy(), numbers["tokens"].copy()
         dropped = dict.fromkeys(keys, 0)
+        notes: list[str] = []
         if budget is not None:
             clock = time.perf_counter()
-            target = min(files.tallies[k].tokens for k in keys) if budget == "smallest" else budget
-            short = [b for b in bins if files.tallies[b.key].tokens < target]
-            if short:
-                raise DriftError(
-                    f"--balance {budget} asks for more tokens than slice {short[0].label} holds "
-                    f"({files.tallies[short[0].key].tokens:,}); give a smaller number, or "
-                    "--balance "
-                    "alone for the smallest slice's size."
+            in_slice = _documents_by_slice(bin_of, doc_lines, order, keys)
+            if params.get("balance_by"):
+                strata, budgets, notes = _strata(
+                    index, params["balance_by"], files, keys, in_slice, bin_of, doc_tokens,
+                    budget,
                 )
-            dropped = _balance(files, counts, int(target), seed, keys)
+                dropped, kept = _balance(files, counts, 0, seed, keys, strata, budgets)
+            else:
+                target = (
+                    min(files.tallies[k].tokens for k in keys) if budget == "smallest" else budget
+                )
+                short = [b for b in bins if files.tallies[b.key].tokens < target]
+                if short:
+                    raise DriftError(
+                        f"--balance {budget} asks for more tokens than slice {short[0].label} "
+                        f"holds ({files.tallies[short[0].key].tokens:,}); give a smaller number, "
+                        "or --balance alone for the smallest slice's size."
+                    )
+                dropped, kept = _balance(files, counts, int(target), seed, keys)
+            for key, keep in kept.items():
+                _apply_kept(files.tallies[key], keep, in_slice[key], doc_lines, doc_tokens)
             timings["balance"] = round(time.perf_counter() - clock, 3)
+        first = documents.first_lines(bin_of, doc_lines, order)
+        composition, index_notes = documents.write_index(
+            index, paths, [b.label for b in bins], bin_of, doc_lines, doc_tokens, first
+        )
         clock = time.perf_counter()
         words, matrix = counts.matrix(keys)
         labels = [b.label for b in bins]
@@ -1143,10 +1419,12 @@ def _run(
         pq.write_table(table, tmp)
     runfolder.write_text_atomic(paths.slice_summary, summary.to_csv(index=False))
     timings["write"] = round(time.perf_counter() - clock, 3)
+    summary.attrs.update(composition=composition, index_notes=notes + index_notes)
     totals_out = {
         "documents_read": totals.rows,
         "bad_dates_skipped": totals.bad.count,
         "outside_edges": totals.outside,
+        "left_out_by_where": totals.where_dropped,
         "empty_documents": totals.empty,
         "replaced_characters": reader.replaced,
         "legacy_characters": reader.legacy,
