@@ -178,7 +178,7 @@ def run_demo(out: str | Path = "demo-run", *, quiet: bool = False, **options: An
     return run_all(
         demo_archive(),
         out,
-        slice_options={"by": DEMO_SLICING},
+        slice_options={"by": DEMO_SLICING, "id_col": "id", "meta": ["source"]},
         train_options=options.get("train_options"),
         rank_options=options.get("rank_options"),
         quiet=quiet,

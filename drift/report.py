@@ -656,6 +656,35 @@ def neighbours_table_html(view: WordView, labels: Sequence[str]) -> str:
     )
 
 
+def example_item_html(row: pd.Series | Any, word: str) -> str:
+    """One example as a list item: the passage as written (the word marked, text escaped, its
+    direction found per passage so right-to-left scripts read correctly), then where it is from:
+    document id, date, metadata, and the source row or file."""
+    data = row._asdict() if hasattr(row, "_asdict") else dict(row)
+    left, match, right = (str(data.get(k) or "") for k in ("left", "match", "right"))
+    if match:
+        text = f"{esc(left)}<mark>{esc(match)}</mark>{esc(right)}"
+    else:
+        text = highlight_html(str(data.get("sentence") or left), word)
+    tail = {"left", "match", "right", "sentence", "source_row", "source_file", "line",
+            "original", "word", "slice", "document", "date", "Index"}
+    facts = []
+    if data.get("document") is not None and pd.notna(data.get("document")):
+        facts.append(f"document <b>{esc(data['document'])}</b>")
+    if data.get("date") is not None and pd.notna(data.get("date")):
+        facts.append(esc(data["date"]))
+    facts += [f"{esc(k)}: {esc(v)}" for k, v in data.items() if k not in tail and pd.notna(v)]
+    if data.get("original"):
+        where = data.get("source_file") or ""
+        facts.append(f"{esc(where)}, row {int(data['source_row']):,}" if data.get("source_row")
+                     else esc(where))
+    else:
+        facts.append(f"tokenized text, slices/{esc(data.get('slice'))}.txt line "
+                     f"{int(data['line']):,}")
+    return (f'<li><bdi dir="auto" class="passage">{text}</bdi> <span class="muted">('
+            f"{' · '.join(facts)})</span></li>")
+
+
 def examples_html(examples: pd.DataFrame, word: str, labels: Sequence[str]) -> str:
     """Example passages per slice, the word highlighted, with where each comes from."""
     parts = []
@@ -665,12 +694,10 @@ def examples_html(examples: pd.DataFrame, word: str, labels: Sequence[str]) -> s
         if rows.empty:
             parts.append('<p class="muted">No occurrence in this slice.</p>')
             continue
-        items = "".join(
-            f'<li>{highlight_html(r.sentence, word)} <span class="muted">'
-            f"(slices/{esc(label)}.txt, line {int(r.line):,})</span></li>"
-            for r in rows.itertuples()
-        )
+        items = "".join(example_item_html(r, word) for r in rows.itertuples(index=False))
         parts.append(f'<ol class="examples">{items}</ol>')
+    for note in examples.attrs.get("notes", []):
+        parts.append(f'<p class="muted">Note: {esc(note)}</p>')
     return "\n".join(parts)
 
 
@@ -871,8 +898,8 @@ similarity; a word in bold was not among the {k} nearest in the slice before.</p
 <h2 id="numbers">The numbers</h2>
 {word_facts_html(data, view)}
 <h2 id="examples">Examples from each slice</h2>
-<p class="muted">Drawn at random (fixed seed) from the slice files; read them to check the change
-yourself.</p>
+<p class="muted">Passages from the original documents, as written, drawn at random (fixed seed),
+one per document and spread over sources; read them to check the change yourself.</p>
 {examples_html(examples, word, data.labels)}
 """
     scripts = [part.script for part in parts.values()]

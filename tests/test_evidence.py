@@ -29,7 +29,11 @@ def _matching_line_numbers(path: Path, word: str) -> list[int]:
 
 def test_examples_hold_the_word_and_come_from_its_slice(run):
     table = evidence.example_sentences(run, "government", per_slice=3, seed=0)
-    assert list(table.columns) == ["slice", "line", "sentence"]
+    # this fixture run has no document index: passages come from the tokenized slice files
+    assert list(table.columns) == ["slice", "document", "date", "left", "match", "right",
+                                   "sentence", "source_row", "source_file", "line", "original"]
+    assert not table["original"].any()
+    assert "no document index" in table.attrs["notes"][0]
     assert list(table["slice"].unique()) == list(LABELS)
     for row in table.itertuples():
         assert "government" in row.sentence.split(" ")

@@ -16,6 +16,7 @@ from drift.cli import cmd_slice  # noqa: F401
 from drift.cli import cmd_train  # noqa: F401
 from drift.cli import cmd_rank  # noqa: F401
 from drift.cli import cmd_chart  # noqa: F401
+from drift.cli import cmd_evidence  # noqa: F401
 from drift.cli import cmd_pipeline  # noqa: F401
 from drift.cli.app import app
 from drift.errors import DriftError
