@@ -281,6 +281,26 @@ _SEED_HELP = "Seed of every random choice (balancing, models: seed + k, examples
 # Options that several stages share are made by one function each, so they cannot differ.
 
 
+def _more_than_one(value: Any, option: str) -> float:
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        number = float("nan")
+    if not number > 1:
+        raise DriftError(f"{option} must be more than 1 (got {value}), e.g. 10 for tenfold.")
+    return number
+
+
+def _words() -> Any:
+    return opt(
+        None,
+        "A file of target words (one per line, or a CSV with a 'word' column): show and chart "
+        "exactly these, with the reason for each one not measured.",
+        metavar="FILE",
+        show_default=False,
+    )
+
+
 def _between() -> Any:
     return opt(
         None,
@@ -451,6 +471,17 @@ class RankOptions(StageOptions):
         metavar="N|FILE",
         show_default=False,
     )
+    term_count: int = opt(
+        20,
+        "Emerging/fading terms: at least this many uses in the slice where the word is common.",
+        check=_least(1, "--term-count"),
+    )
+    term_ratio: float = opt(
+        10.0,
+        "Emerging/fading terms: frequency per million at least this many times higher in one "
+        "compared slice than in the other.",
+        check=lambda value: _more_than_one(value, "--term-ratio"),
+    )
 
 
 @dataclass(frozen=True)
@@ -473,6 +504,15 @@ class ReportOptions(ChartOptions):
     """Options of ``drift report`` (``drift.build_report``): those of a chart, and ``top``."""
 
     top: int = _top()
+    words: str | None = _words()
+
+
+@dataclass(frozen=True)
+class ExamplesOptions(StageOptions):
+    """Options of ``drift examples`` (``drift.examples_for_words``)."""
+
+    examples: int = opt(3, "Example sentences per slice.", check=_least(0, "--examples"))
+    seed: int = opt(1, _SEED_HELP, check=_seed)
 
 
 @dataclass(frozen=True)
@@ -494,6 +534,7 @@ class ViewOptions(StageOptions):
         check=_choice(OUTPUT_FORMATS, "--output-format"),
         old=("--format",),
     )
+    words: str | None = _words()
 
 
 #: Every options class, in the order ``drift run --help`` lists their options.

@@ -438,39 +438,70 @@ def gained_and_lost(
     return gained, lost
 
 
+#: Emerging and fading terms: a word is *emerging* when it occurs at least TERM_MIN_COUNT times in
+#: the later compared slice and its frequency per million tokens there is at least TERM_RATIO times
+#: its frequency in the earlier one (fading: the same, the other way round). 20 is the training's
+#: default --min-count (so the word has enough uses to be trained where it is common); a tenfold
+#: change in relative frequency is our choice (common practice, no published threshold).
+TERM_MIN_COUNT = default(RankOptions, "term_count")
+TERM_RATIO = default(RankOptions, "term_ratio")
+
+
+def check_term_rule(min_count: int, ratio: float) -> tuple[int, float]:
+    """The emerging/fading rule's options, checked."""
+    if isinstance(min_count, bool) or int(min_count) != min_count or min_count < 1:
+        raise DriftError(f"--term-count must be a whole number of at least 1 (got {min_count}).")
+    if not ratio > 1:
+        raise DriftError(f"--term-ratio must be more than 1 (got {ratio}).")
+    return int(min_count), float(ratio)
+
+
 def emerging_and_fading(
-    inputs: RunInputs, vocab_from: SliceVectors, vocab_to: SliceVectors
+    inputs: RunInputs,
+    pair: Sequence[str],
+    measured: set[str] | None = None,
+    min_count: int = TERM_MIN_COUNT,
+    ratio: float = TERM_RATIO,
 ) -> pd.DataFrame:
-    """Words known to one compared slice's model and not the other's (below its min count)."""
-    emerging = [w for w in vocab_to.words if w not in vocab_from.index]
-    fading = [w for w in vocab_from.words if w not in vocab_to.index]
+    """Emerging and fading terms between the compared slices by the stated rule (see
+    TERM_MIN_COUNT and TERM_RATIO), from counts.parquet; ``measured`` says which of them the
+    rank stage could also score (known to both slices' models)."""
+    slice_from, slice_to = pair
+    counts = inputs.counts
+    count_from = counts[slice_from].to_numpy(np.int64) if slice_from in counts else None
+    count_to = counts[slice_to].to_numpy(np.int64) if slice_to in counts else None
+    if count_from is None or count_to is None:
+        count_from = count_to = np.zeros(len(counts), np.int64)
+    fpm_from = _per_million(count_from, inputs.tokens.get(slice_from))
+    fpm_to = _per_million(count_to, inputs.tokens.get(slice_to))
+    emerging = (count_to >= min_count) & (fpm_to >= ratio * fpm_from)
+    fading = (count_from >= min_count) & (fpm_from >= ratio * fpm_to)
     frames = []
-    for kind, words, present, absent_label in (
-        ("emerging", emerging, vocab_to, vocab_from.label),
-        ("fading", fading, vocab_from, vocab_to.label),
-    ):
-        model_counts = present.counts[present.rows(words)] if words else np.zeros(0, np.int64)
-        count_present = _counts_for(inputs, words, present.label, model_counts)
-        count_absent = _counts_for(inputs, words, absent_label, None)
-        count_from, count_to = (
-            (count_absent, count_present) if kind == "emerging" else (count_present, count_absent)
-        )
+    for kind, chosen, present in (("emerging", emerging, count_to), ("fading", fading, count_from)):
+        rows = np.flatnonzero(chosen)
+        words = counts.index.to_numpy()[rows]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            change = (fpm_to[rows] / fpm_from[rows]) if kind == "emerging" else \
+                (fpm_from[rows] / fpm_to[rows])
         frame = pd.DataFrame(
             {
                 "word": pd.Series(words, dtype=object),
                 "kind": kind,
-                "count_from": count_from,
-                "count_to": count_to,
-                "fpm_from": _per_million(count_from, inputs.tokens.get(vocab_from.label)),
-                "fpm_to": _per_million(count_to, inputs.tokens.get(vocab_to.label)),
+                "count_from": count_from[rows],
+                "count_to": count_to[rows],
+                "fpm_from": fpm_from[rows],
+                "fpm_to": fpm_to[rows],
+                "ratio": change,
+                "measured": [w in measured for w in words] if measured is not None else False,
             }
         )
         for label in inputs.labels:
             frame[f"fpm:{label}"] = _per_million(
                 _counts_for(inputs, words, label, None), inputs.tokens.get(label)
             )
-        order = "count_to" if kind == "emerging" else "count_from"
-        frames.append(frame.sort_values([order, "word"], ascending=[False, True], kind="stable"))
+        frame["_present"] = present[rows]
+        frames.append(frame.sort_values(["_present", "word"], ascending=[False, True],
+                                        kind="stable").drop(columns="_present"))
     return pd.concat(frames, ignore_index=True)
 
 
@@ -545,8 +576,12 @@ def rank_run(
     alpha: float = default(RankOptions, "alpha"),
     anchors: str | int | Sequence[str] | None = None,
     quiet: bool = False,
+    term_count: int = TERM_MIN_COUNT,
+    term_ratio: float = TERM_RATIO,
 ) -> pd.DataFrame:
     """Score every word of the compared pair; write scores, timeline and terms; return scores.
+
+    ``term_count`` and ``term_ratio`` are the emerging/fading rule (see TERM_MIN_COUNT).
 
     ``between``: the two compared slices (first and last by default); ``reference``: the slice
     the timeline is measured against (the first by default); ``anchors``: a number N (the N most
@@ -566,13 +601,15 @@ def rank_run(
         "k": int(k),
         "alpha": float(alpha),
         "anchors": _anchor_record(anchors, anchor_spec),
+        "term_count": check_term_rule(term_count, term_ratio)[0],
+        "term_ratio": float(term_ratio),
     }
     fingerprint = _inputs_fingerprint(
         inputs, list(anchor_spec) if isinstance(anchor_spec, list) else None
     )
     paths = inputs.paths
     outputs = (paths.scores_parquet, paths.timeline_parquet, paths.terms_parquet,
-               paths.neighbours_parquet)
+               paths.neighbours_parquet, paths.terms_csv, paths.timeline_csv)
     if runfolder.stage_is_current(root, "rank", params, fingerprint) and all(
         p.exists() for p in outputs
     ) and runfolder.stale_reason(root, "rank") is None:
@@ -581,7 +618,8 @@ def rank_run(
 
     with runfolder.run_lock(root):
         scores, timeline, terms, extra = compute_scores(
-            inputs, (slice_from, slice_to), ref, measure, int(k), float(alpha), anchor_spec, quiet
+            inputs, (slice_from, slice_to), ref, measure, int(k), float(alpha), anchor_spec, quiet,
+            term_rule=check_term_rule(term_count, term_ratio),
         )
         with runfolder.atomic_path(inputs.paths.scores_parquet) as tmp:
             scores.to_parquet(tmp, index=False)
@@ -592,6 +630,10 @@ def rank_run(
         with runfolder.atomic_path(inputs.paths.terms_parquet) as tmp:
             terms.to_parquet(tmp, index=False)
         _write_neighbours(root, list(scores["word"]))
+        with runfolder.atomic_path(inputs.paths.terms_csv) as tmp:
+            terms.to_csv(tmp, index=False)
+        with runfolder.atomic_path(inputs.paths.timeline_csv) as tmp:
+            timeline.to_csv(tmp, index=False)
         runfolder.record_stage(
             root, "rank", params, fingerprint, time.perf_counter() - started, extra=extra,
             outputs=[*outputs, paths.scores_csv],
@@ -615,6 +657,7 @@ def compute_scores(
     alpha: float,
     anchors: AnchorSpec,
     quiet: bool = False,
+    term_rule: tuple[int, float] = (TERM_MIN_COUNT, TERM_RATIO),
 ) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame, dict[str, Any]]:
     """The rank stage's tables (scores, timeline, terms) and the extra run.json entries."""
     slice_from, slice_to = pair
@@ -689,7 +732,7 @@ def compute_scores(
     scores = order_scores(scores)
     scores["rank"] = np.arange(1, len(scores) + 1, dtype=np.int64)
     scores = scores[SCORE_COLUMNS]
-    terms = emerging_and_fading(inputs, vocab_from, vocab_to)
+    terms = emerging_and_fading(inputs, pair, set(words), *term_rule)
     extra = {
         "control_flagged": flagged,
         "seeds": list(inputs.seeds),

@@ -1038,14 +1038,28 @@ def ranked_table_html(
                  "</table>")
 
 
-def terms_table_html(terms: pd.DataFrame, kind: str, a: str, b: str, limit: int = 15) -> str:
+def shown_terms(terms: pd.DataFrame, kind: str, limit: int = 15) -> pd.DataFrame:
+    """The terms of one kind the overview lists: the largest changes of frequency first."""
     part = terms[terms["kind"] == kind]
+    growth = (part["fpm_to"] - part["fpm_from"]).abs()
+    return part.loc[growth.sort_values(ascending=False, kind="stable").index].head(limit)
+
+
+def terms_table_html(
+    terms: pd.DataFrame, kind: str, a: str, b: str, limit: int = 15,
+    links: dict[str, str] | None = None,
+) -> str:
+    part = shown_terms(terms, kind, limit)
     if part.empty:
         return f'<p class="muted">No {esc(kind)} terms.</p>'
-    growth = (part["fpm_to"] - part["fpm_from"]).abs()
-    part = part.loc[growth.sort_values(ascending=False, kind="stable").index].head(limit)
+    links = links or {}
+
+    def word_cell(word: str) -> str:
+        link = links.get(word)
+        return f'<a href="{esc(link)}">{esc(word)}</a>' if link else esc(word)
+
     rows = "".join(
-        f'<tr><td class="word">{esc(r.word)}</td><td class="num">{fmt(r.count_from)} → '
+        f'<tr><td class="word">{word_cell(r.word)}</td><td class="num">{fmt(r.count_from)} → '
         f'{fmt(r.count_to)}</td><td class="num">{fmt(r.fpm_from, 1)} → {fmt(r.fpm_to, 1)}</td></tr>'
         for r in part.itertuples()
     )
@@ -1055,10 +1069,96 @@ def terms_table_html(terms: pd.DataFrame, kind: str, a: str, b: str, limit: int 
     )
 
 
-def report_page(data: RunData, links: dict[str, str], top: int) -> str:
-    """The whole HTML page of the overview report."""
+def term_rule_html(data: RunData) -> str:
+    """The emerging/fading rule of the run, in words."""
+    params = data.rank_params
+    count = params.get("term_count", ranking.TERM_MIN_COUNT)
+    ratio = params.get("term_ratio", ranking.TERM_RATIO)
+    return (
+        f"A word is <b>emerging</b> when it occurs at least {fmt(count)} times in {esc(data.between[1])} "
+        f"and its frequency per million tokens there is at least {fmt(ratio)} times that in "
+        f"{esc(data.between[0])}; <b>fading</b> is the same the other way round "
+        "(--term-count, --term-ratio)."
+    )
+
+
+def unmeasured_html(unmeasured: pd.DataFrame | None) -> str:
+    """Target words that have no score, each with the reason."""
+    if unmeasured is None or unmeasured.empty:
+        return ""
+    items = "".join(
+        f'<li><span class="word">{esc(r.word)}</span>: {esc(r.reason)}</li>'
+        for r in unmeasured.itertuples()
+    )
+    return f"<h3>Target words not measured</h3><ul>{items}</ul>"
+
+
+def term_page(
+    data: RunData,
+    word: str,
+    neighbours: pd.DataFrame,
+    examples: pd.DataFrame,
+    *,
+    report_link: bool = False,
+) -> str:
+    """The page of an emerging or fading term: the rule it met, its frequency in every slice,
+    its neighbours in the slices whose models know it, and examples from each slice."""
+    term = data.terms[data.terms["word"] == word].iloc[0]
     a, b = data.between
-    ranked = data.scores.sort_values("rank", kind="stable").head(top)
+    from drift.slicing import read_counts
+
+    table = read_counts(data.root)
+    counts = table.loc[word] if word in table.index else None
+    tokens = dict(zip(data.summary["label"].astype(str), data.summary["tokens"], strict=False))
+    rows = pd.DataFrame({
+        "slice": list(data.labels),
+        "count": [float(counts[label]) if counts is not None and label in counts else 0.0
+                  for label in data.labels],
+    })
+    rows["fpm"] = [c * 1e6 / tokens[label] if tokens.get(label) else float("nan")
+                   for c, label in zip(rows["count"], rows["slice"], strict=True)]
+    figure = figure_html(charts.frequency_figure(rows, word=word, slices=data.labels), "fig-frequency")
+    if neighbours.empty:
+        near = '<p class="muted">No slice\'s model knows this word (it is under the minimum count '
+        near += "everywhere), so it has no neighbours.</p>"
+    else:
+        near = facts_table(
+            (label, f'<span class="words">{_words_html(" ".join(part["neighbour"]))}</span>')
+            for label, part in neighbours.groupby("slice", sort=False)
+        )
+    nav = '<nav><a href="../index.html">← overview report</a></nav>' if report_link else ""
+    body = f"""
+{nav}
+<p class="muted">drift · {esc(data.root.name)} · {esc(term["kind"])} term</p>
+<h1 class="word">{esc(word)}</h1>
+<p class="lead">{esc(term["kind"]).capitalize()} between {esc(a)} and {esc(b)}:
+{fmt(term["count_from"])} → {fmt(term["count_to"])} uses,
+{fmt(term["fpm_from"], 1)} → {fmt(term["fpm_to"], 1)} per million tokens.
+{'Its displacement is measured too (both slices know it).' if term.get("measured") else
+ 'It is too rare in one of the slices to measure its displacement.'}</p>
+<p class="muted">{term_rule_html(data)}</p>
+{caution_html()}
+<h2 id="frequency">How often it occurs</h2>
+<div class="figure">{figure.html}</div>
+<h2 id="neighbours">Its neighbours where it is known</h2>
+{near}
+<h2 id="examples">Examples from each slice</h2>
+<p class="muted">Passages from the original documents, as written, drawn at random (fixed seed),
+one per document and spread over sources.</p>
+{examples_html(examples, word, data.labels)}
+"""
+    return page_html(f"{word} · drift", body, f"../{PLOTLY_JS}", [figure.script])
+
+
+def report_page(
+    data: RunData, links: dict[str, str], top: int, targets: pd.DataFrame | None = None,
+    unmeasured: pd.DataFrame | None = None,
+) -> str:
+    """The whole HTML page of the overview report (``targets``: the rows of the target words
+    to list instead of the top ones, ``unmeasured``: target words without a score)."""
+    a, b = data.between
+    ranked = (data.scores.sort_values("rank", kind="stable").head(top) if targets is None
+              else targets)
     scatter = charts.change_vs_frequency_figure(
         data.scores, measure=data.rank_params.get("measure"), links=links, alpha=data.alpha
     )
@@ -1095,6 +1195,7 @@ significant at q ≤ {data.alpha:g}. <a href="word-index.html">Search every meas
 timeline, neighbours and example sentences. A change point is listed only for a significant word
 whose distance stepped up.</p>
 {ranked_table_html(ranked, links, data.rank_params.get("measure"), data.labels)}
+{unmeasured_html(unmeasured)}
 <h2 id="scatter">Change against frequency</h2>
 <p class="muted">Rare words move more by chance. The line is the control's typical
 {esc(charts.MEASURE_TITLES.get(charts.measure_column(data.scores, data.measure), "score"))} at
@@ -1105,10 +1206,10 @@ page.{sampled}</p>
 <div class="figure">{parts[0].html}</div>
 <h2 id="terms">Emerging and fading terms</h2>
 <p class="muted">Words present in one period and absent or rare in the other cannot be measured by
-displacement; here are their frequencies.</p>
+displacement; here are their frequencies. {term_rule_html(data)}</p>
 <div class="columns">
-<div><h3>Emerging by {esc(b)}</h3>{terms_table_html(data.terms, "emerging", a, b)}</div>
-<div><h3>Fading since {esc(a)}</h3>{terms_table_html(data.terms, "fading", a, b)}</div>
+<div><h3>Emerging by {esc(b)}</h3>{terms_table_html(data.terms, "emerging", a, b, links=links)}</div>
+<div><h3>Fading since {esc(a)}</h3>{terms_table_html(data.terms, "fading", a, b, links=links)}</div>
 </div>
 {terms_fig}
 <h2 id="run">The run</h2>
@@ -1228,18 +1329,8 @@ def word_page_path(run: Path, word: str) -> Path:
 
 def _check_word(data: RunData, word: str) -> None:
     known = data.known_words()
-    if word in known:
+    if word in known or word in set(data.terms["word"]):
         return
-    term = data.terms[data.terms["word"] == word]
-    if not term.empty:
-        kind = str(term["kind"].iloc[0])
-        a, b = data.between
-        raise DriftError(
-            f"'{word}' was not measured: it is {'an' if kind[0] in 'aeiou' else 'a'} {kind} term "
-            f"(too rare in "
-            f"{a if kind == 'emerging' else b} to compare); see its frequencies in the report's "
-            f"emerging and fading terms ('drift report {data.root}')."
-        )
     raise unknown_word_error(word, known, where=f"the measured words of {data.root}")
 
 
@@ -1253,12 +1344,19 @@ def _write_word_pages(
     report_link: bool,
 ) -> dict[str, Path]:
     drawn = evidence.examples_for_words(data.root, words, per_slice=examples, seed=seed)
-    views = word_views(data, words, k=k)
+    measured = data.known_words()
+    views = word_views(data, [w for w in words if w in measured], k=k)
     written = {}
     for word in words:
-        page = word_page(
-            data, views[word], drawn[drawn["word"] == word], report_link=report_link
-        )
+        examples_of = drawn[drawn["word"] == word]
+        if word in views:
+            page = word_page(data, views[word], examples_of, report_link=report_link)
+        else:  # an emerging or fading term without a score
+            try:
+                near = ranking.neighbours_by_slice(data.root, word, k=k)
+            except DriftError:  # no slice's model knows it
+                near = pd.DataFrame(columns=["slice", "rank", "neighbour", "similarity"])
+            page = term_page(data, word, near, examples_of, report_link=report_link)
         target = word_page_path(data.root, word)
         write_page(target, page)
         written[word] = target
@@ -1324,9 +1422,10 @@ def chart_word(
 
 def build_report(
     run: Path, *, top: int = _REPORT.top, k: int = _REPORT.k, examples: int = _REPORT.examples,
-    seed: int = _REPORT.seed,
+    seed: int = _REPORT.seed, words: str | Path | Sequence[str] | None = _REPORT.words,
 ) -> Path:
-    """Write the overview report, the word index and the pages of the ``top`` ranked words.
+    """Write the overview report, the word index, the pages of the ``top`` ranked words (or
+    of the target ``words``) and of the emerging and fading terms it lists.
 
     Defaults and help texts of the options: :class:`drift.options.ReportOptions`.
 
@@ -1342,6 +1441,9 @@ def build_report(
         Example sentences per slice.
     seed : int
         Seed of the example draw.
+    words : str, Path or list of str, optional
+        Target words (a word-list file or a list): chart exactly these; the overview lists the
+        ones not measured with the reason.
 
     Returns
     -------
@@ -1357,19 +1459,29 @@ def build_report(
     --------
     >>> import drift
     >>> index = drift.build_report(run, top=2, examples=1)
-    >>> index.name, len(list(index.parent.glob("words/*.html")))
-    ('index.html', 2)
+    >>> index.name, len(list(index.parent.glob("words/*.html"))) >= 2
+    ('index.html', True)
     """
+    from drift.targets import read_word_list, target_scores
+
     run = Path(run)
     ReportOptions(top=top, k=k, examples=examples, seed=seed)
     started = time.perf_counter()
     data = load_run(run)
     paths = RunPaths(run)
-    words = list(data.scores.sort_values("rank", kind="stable")["word"].head(top))
+    targets = unmeasured = None
+    if words is not None:
+        wanted = read_word_list(words) if isinstance(words, str | Path) else list(words)
+        targets, unmeasured = target_scores(run, wanted, data.scores)
+        charted = list(targets["word"])
+    else:
+        charted = list(data.scores.sort_values("rank", kind="stable")["word"].head(top))
+    terms = [w for kind in ("emerging", "fading") for w in shown_terms(data.terms, kind)["word"]]
+    charted += [w for w in terms if w not in set(charted)]
     with runfolder.run_lock(run):
         write_plotly_js(paths.charts_dir)
         written = _write_word_pages(
-            data, words, k=k, examples=examples, seed=seed, report_link=True
+            data, charted, k=k, examples=examples, seed=seed, report_link=True
         )
         links = {word: f"words/{path.name}" for word, path in written.items()}
         existing = {
@@ -1380,7 +1492,7 @@ def build_report(
         write_page(paths.charts_dir / "word-index.html",
                    word_index_page(data, {**existing, **links}))
         index = paths.charts_dir / "index.html"
-        write_page(index, report_page(data, links, top))
+        write_page(index, report_page(data, links, top, targets, unmeasured))
         runfolder.record_stage(
             run,
             "charts",

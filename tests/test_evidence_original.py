@@ -144,14 +144,19 @@ def test_text_folder_documents_are_quoted_from_their_files(tmp_path):
 
 def test_cli_examples_prints_and_writes_csv(run, tmp_path):
     target = tmp_path / "ex.csv"
+    shown = CliRunner().invoke(app, ["examples", str(run), "Police", "--examples", "2"])
+    assert shown.exit_code == 0, shown.output
+    assert "police" in shown.stdout.lower() and "lee-" in shown.stdout
     result = CliRunner().invoke(
-        app, ["examples", str(run), "police", "--per-slice", "2", "--csv", str(target)]
+        app, ["examples", str(run), "police", "--examples", "2", "--output-format", "csv",
+              "-o", str(target)]
     )
     assert result.exit_code == 0, result.output
-    assert "police" in result.stdout.lower() and "lee-" in result.stdout
     written = pd.read_csv(target)
     assert len(written) == 4 and written["original"].all()
-    as_json = CliRunner().invoke(app, ["examples", str(run), "police", "--format", "json"])
+    as_json = CliRunner().invoke(
+        app, ["examples", str(run), "police", "--output-format", "json"]
+    )
     assert json.loads(as_json.stdout)[0]["word"] == "police"
 
 

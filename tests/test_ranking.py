@@ -106,7 +106,7 @@ def test_scores_follow_the_contract(geometry_run):
     params = runfolder.read_manifest(root)["stages"]["rank"]
     assert params["params"] == {
         "between": ["2001", "2003"], "reference": "2001", "measure": "displacement", "k": 10,
-        "alpha": 0.05, "anchors": None,
+        "alpha": 0.05, "anchors": None, "term_count": 20, "term_ratio": 10.0,
     }
     assert isinstance(params["control_flagged"], int)
 
@@ -164,16 +164,45 @@ def test_timeline_rows_and_reference(geometry_run):
 
 
 def test_terms_list_emerging_and_fading(geometry_run):
-    root, _ = geometry_run
+    root, scores = geometry_run
     terms = read_terms(root)
-    expected = [["newword", "emerging"], ["oldword", "fading"]]
-    assert terms[["word", "kind"]].values.tolist() == expected
+    # the rule: at least 20 uses where common and a tenfold change of frequency per million
+    counts = pd.read_parquet(runfolder.RunPaths(root).counts).set_index("word")
+    first, last = counts["2001"], counts["2003"]
+    rising = counts.index[(last >= 20) & (last >= 10 * first)]
+    falling = counts.index[(first >= 20) & (first >= 10 * last)]  # equal slice sizes: fpm ~ count
+    assert set(terms.loc[terms["kind"] == "emerging", "word"]) == set(rising) == {"newword"}
+    assert set(terms.loc[terms["kind"] == "fading", "word"]) == set(falling)
+    assert {"oldword", *FREQUENCY_ONLY} <= set(falling)
     assert terms.columns.tolist() == [
-        "word", "kind", "count_from", "count_to", "fpm_from", "fpm_to",
+        "word", "kind", "count_from", "count_to", "fpm_from", "fpm_to", "ratio", "measured",
         "fpm:2001", "fpm:2002", "fpm:2003",
     ]
     new = terms.iloc[0]
     assert (new["count_from"], new["count_to"], new["fpm:2003"]) == (0, 300, 300.0)
+    assert new["ratio"] == np.inf and not new["measured"]
+    measured = set(terms.loc[terms["measured"], "word"])
+    assert measured == set(FREQUENCY_ONLY) and measured <= set(scores["word"])
+    assert pd.read_csv(runfolder.RunPaths(root).terms_csv)["word"].tolist() == terms["word"].tolist()
+
+
+def test_term_rule_options(geometry_run, tmp_path):
+    import shutil
+
+    root = tmp_path / "run"
+    shutil.copytree(geometry_run[0], root)
+    rank_run(root, k=10, term_count=500, quiet=True)
+    assert read_terms(root).empty  # no word reaches 500 uses where it is common
+    rank_run(root, k=10, term_count=350, term_ratio=30, quiet=True)
+    counts = pd.read_parquet(runfolder.RunPaths(root).counts).set_index("word")
+    first, last = counts["2001"], counts["2003"]
+    tokens = pd.read_csv(runfolder.RunPaths(root).slice_summary, dtype={"label": str})
+    size = dict(zip(tokens["label"], tokens["tokens"], strict=True))
+    fpm_first, fpm_last = first / size["2001"], last / size["2003"]
+    falling = set(counts.index[(first >= 350) & (fpm_first >= 30 * fpm_last)])
+    assert set(read_terms(root)["word"]) == falling and "oldword" in falling
+    with pytest.raises(DriftError, match="term-ratio"):
+        rank_run(root, k=10, term_ratio=1, quiet=True)
 
 
 def test_gained_and_lost_neighbours(geometry_run):

@@ -205,7 +205,7 @@ def test_hostile_word_is_text_and_never_a_path(run, word):
 def test_report_escapes_hostile_words_in_tables(run, built):
     page = built.read_text(encoding="utf-8")
     terms = page.split('id="terms"', 1)[1]
-    assert f'<td class="word">{html.escape(HOSTILE_WORDS[0])}</td>' in terms
+    assert f'">{html.escape(HOSTILE_WORDS[0])}</a></td>' in terms  # a term, linked to its page
     assert HOSTILE_WORDS[0] not in page
 
 
@@ -218,7 +218,8 @@ def test_report_writes_index_and_the_top_pages(run, built):
     assert built == RunPaths(run).charts_dir / "index.html"
     page = built.read_text(encoding="utf-8")
     scores = pd.read_parquet(RunPaths(run).scores_parquet).sort_values("rank")
-    links = re.findall(r'<a href="(words/[^"]+)">', page)
+    ranked = page.split('id="ranked"')[1].split('id="scatter"')[0]
+    links = re.findall(r'<a href="(words/[^"]+)">', ranked)
     assert len(links) == 4
     for word, link in zip(scores["word"].head(4), links, strict=True):
         assert link == f"words/{runfolder.safe_name(word)}.html"
@@ -244,7 +245,10 @@ def test_report_summarises_the_run(run, built):
     for kind in ("Emerging by 2003", "Fading since 2001"):
         assert kind in page
     assert manifest["stages"]["charts"]["params"]["top"] == 4
-    assert manifest["stages"]["charts"]["pages"] == 4
+    terms = pd.read_parquet(RunPaths(run).terms_parquet)
+    listed = {w for kind in ("emerging", "fading") for w in report.shown_terms(terms, kind)["word"]}
+    scores = pd.read_parquet(RunPaths(run).scores_parquet).sort_values("rank")
+    assert manifest["stages"]["charts"]["pages"] == len(listed | set(scores["word"].head(4)))
 
 
 def test_report_says_when_there_is_no_control(tmp_path):
@@ -262,11 +266,16 @@ def test_report_says_when_there_is_no_control(tmp_path):
     assert "gave no usable null" in report.warnings_html(report.load_run(run))
 
 
-def test_report_with_top_zero_writes_no_word_pages(tmp_path):
+def test_report_with_top_zero_writes_only_term_pages(tmp_path):
+    import pandas as pd
+
     run = fixture_run_copy(tmp_path / "run")
     index = report.build_report(run, top=0)
     assert index.exists()
-    assert not list(RunPaths(run).word_charts_dir.glob("*.html"))
+    terms = pd.read_parquet(RunPaths(run).terms_parquet)
+    listed = {w for kind in ("emerging", "fading") for w in report.shown_terms(terms, kind)["word"]}
+    written = {p.name for p in RunPaths(run).word_charts_dir.glob("*.html")}
+    assert written == {f"{runfolder.safe_name(w)}.html" for w in listed}
 
 
 def test_pages_are_readable_by_others(run, built):
@@ -282,15 +291,15 @@ def test_unknown_word_suggests_close_words(run):
         report.chart_word(run, "goverment")
 
 
-def test_emerging_term_is_explained_not_just_unknown(run):
+def test_emerging_term_gets_a_term_page(run):
     import pandas as pd
 
     terms = pd.read_parquet(RunPaths(run).terms_parquet)
     scored = set(pd.read_parquet(RunPaths(run).scores_parquet)["word"])
     for kind in ("emerging", "fading"):
         word = next(w for w in terms.loc[terms["kind"] == kind, "word"] if w not in scored)
-        with pytest.raises(DriftError, match=f"'{word}' was not measured: it is an? {kind} term"):
-            report.chart_word(run, word)
+        page = report.chart_word(run, word).read_text(encoding="utf-8")
+        assert f"{kind} term" in page and 'id="frequency"' in page and 'id="examples"' in page
 
 
 def test_run_without_scores_is_a_clear_error(tmp_path):
@@ -347,11 +356,15 @@ def test_cli_chart_prints_the_page_path(run, capsys):
 
 
 def test_cli_report_prints_the_index_path(tmp_path, capsys):
+    import pandas as pd
+
     run = fixture_run_copy(tmp_path / "run")
     code, out, _ = run_cli(["report", str(run), "--top", "2"], capsys)
     assert code == 0
     assert Path(out.strip()) == RunPaths(run).charts_dir / "index.html"
-    assert len(list(RunPaths(run).word_charts_dir.glob("*.html"))) == 2
+    written = {p.name for p in RunPaths(run).word_charts_dir.glob("*.html")}
+    top = pd.read_parquet(RunPaths(run).scores_parquet).sort_values("rank")["word"].head(2)
+    assert {f"{runfolder.safe_name(w)}.html" for w in top} <= written
 
 
 def test_cli_unknown_word_exits_2_with_suggestions(run, capsys):

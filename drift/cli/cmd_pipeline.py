@@ -18,7 +18,9 @@ def _show_result(result, view: ViewOptions, out: Path | None = None) -> None:
     from drift.ranking import rank_record, top_rows
 
     record = rank_record(result.run)
-    rows = top_rows(result.scores, top=view.top, all_rows=view.all_rows, min_count=view.min_count)
+    from drift.cli.cmd_rank import shown_rows
+
+    rows = shown_rows(result.run, result.scores, view)
     params = record.get("params", {})
     calibrated = record.get("control_flagged") is not None
     print_rows(

@@ -34,13 +34,28 @@ def rank_command(
     from drift.ranking import rank_record, rank_run, top_rows
 
     scores = rank_run(run, quiet=quiet, **options.kwargs())
-    rows = top_rows(scores, top=view.top, all_rows=view.all_rows, min_count=view.min_count)
+    rows = shown_rows(run, scores, view)
     record = rank_record(run)
     calibrated = record.get("control_flagged") is not None
     params = record.get("params", {})
     print_rows(
         rows, view.output_format, lambda width: scores_table(rows, params, calibrated, width), out
     )
+
+
+def shown_rows(run: Path, scores, view: ViewOptions):
+    """The rows to print: the target words of --words (each one not measured gets a line on
+    stderr saying why), else the top rows."""
+    from drift.ranking import top_rows
+
+    if view.words is None:
+        return top_rows(scores, top=view.top, all_rows=view.all_rows, min_count=view.min_count)
+    from drift.targets import read_word_list, target_scores
+
+    rows, unmeasured = target_scores(run, read_word_list(view.words), scores)
+    for row in unmeasured.itertuples():
+        typer.echo(f"drift: not measured: {row.word}: {row.reason}", err=True)
+    return rows
 
 
 @command("neighbours")
