@@ -96,7 +96,9 @@ def where_mask(extra: dict[str, pa.Array] | None, clauses: Sequence[WhereClause]
     return keep
 
 
-def where_error(clauses: Sequence[WhereClause], counts: dict[str, collections.Counter]) -> DriftError:
+def where_error(
+    clauses: Sequence[WhereClause], counts: dict[str, collections.Counter]
+) -> DriftError:
     """The error for a --where that keeps nothing: how many documents each value has."""
     described = []
     for column, counter in counts.items():
@@ -403,7 +405,9 @@ def total_variation(p: pd.Series, q: pd.Series) -> float:
 
 
 def composition_shifts(
-    composition: pd.DataFrame, pairs: Iterable[tuple[str, str]], threshold: float = MIX_SHIFT_WARNING
+    composition: pd.DataFrame,
+    pairs: Iterable[tuple[str, str]],
+    threshold: float = MIX_SHIFT_WARNING,
 ) -> tuple[pd.DataFrame, list[str]]:
     """Total variation distance of the token mix for each pair of slices and metadata column,
     and a warning for each over ``threshold``."""

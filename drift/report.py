@@ -1075,7 +1075,8 @@ def term_rule_html(data: RunData) -> str:
     count = params.get("term_count", ranking.TERM_MIN_COUNT)
     ratio = params.get("term_ratio", ranking.TERM_RATIO)
     return (
-        f"A word is <b>emerging</b> when it occurs at least {fmt(count)} times in {esc(data.between[1])} "
+        f"A word is <b>emerging</b> when it occurs at least {fmt(count)} times in "
+        f"{esc(data.between[1])} "
         f"and its frequency per million tokens there is at least {fmt(ratio)} times that in "
         f"{esc(data.between[0])}; <b>fading</b> is the same the other way round "
         "(--term-count, --term-ratio)."
@@ -1117,7 +1118,9 @@ def term_page(
     })
     rows["fpm"] = [c * 1e6 / tokens[label] if tokens.get(label) else float("nan")
                    for c, label in zip(rows["count"], rows["slice"], strict=True)]
-    figure = figure_html(charts.frequency_figure(rows, word=word, slices=data.labels), "fig-frequency")
+    figure = figure_html(
+        charts.frequency_figure(rows, word=word, slices=data.labels), "fig-frequency"
+    )
     if neighbours.empty:
         near = '<p class="muted">No slice\'s model knows this word (it is under the minimum count '
         near += "everywhere), so it has no neighbours.</p>"
@@ -1208,8 +1211,8 @@ page.{sampled}</p>
 <p class="muted">Words present in one period and absent or rare in the other cannot be measured by
 displacement; here are their frequencies. {term_rule_html(data)}</p>
 <div class="columns">
-<div><h3>Emerging by {esc(b)}</h3>{terms_table_html(data.terms, "emerging", a, b, links=links)}</div>
-<div><h3>Fading since {esc(a)}</h3>{terms_table_html(data.terms, "fading", a, b, links=links)}</div>
+<div><h3>Emerging by {esc(b)}</h3>{terms_table_html(data.terms, "emerging", a, b, 15, links)}</div>
+<div><h3>Fading since {esc(a)}</h3>{terms_table_html(data.terms, "fading", a, b, 15, links)}</div>
 </div>
 {terms_fig}
 <h2 id="run">The run</h2>

@@ -197,7 +197,8 @@ def test_composition_warns_when_the_mix_changes(tmp_path):
     frame = frame[early | (frame["source"] != "letter") | (frame.index % 10 == 0)]
     path = tmp_path / "mix.csv"
     frame.to_csv(path, index=False)
-    summary = slice_archive(path, tmp_path / "run", by="edges:1990,1996,2002", meta="source", quiet=True)
+    summary = slice_archive(path, tmp_path / "run", by="edges:1990,1996,2002", meta="source",
+                            quiet=True)
     composition = documents.read_composition(tmp_path / "run")
     shifts, warnings = documents.composition_shifts(composition, [("1990-1995", "1996-2001")])
     assert shifts["distance"].iloc[0] > documents.MIX_SHIFT_WARNING

@@ -43,7 +43,8 @@ def test_spearman_matches_the_hand_computed_textbook_example():
 
 def test_fisher_interval_by_hand():
     # rho = 0.5, n = 28: z = atanh(0.5) = 0.549306, half width = 1.959964 / sqrt(25) = 0.391993,
-    # interval tanh(0.157313) = 0.156028 to tanh(0.941299) = 0.735818 (by hand, tanh(x) = (e^2x - 1) / (e^2x + 1); Fisher 1915)
+    # interval tanh(0.157313) = 0.156028 to tanh(0.941299) = 0.735818 (by hand, with
+    # tanh(x) = (e^2x - 1) / (e^2x + 1); Fisher 1915)
     low, high = evaluation.fisher_interval(0.5, 28)
     assert low == pytest.approx(0.156028, abs=1e-5)
     assert high == pytest.approx(0.735818, abs=1e-5)
@@ -73,8 +74,9 @@ def _write(tmp_path, text: str):
 @pytest.mark.parametrize(
     ("text", "message"),
     [
-        ("word,score\na,0.5\nb,high\n", "Line 3 of .* has 'high' as its score, which is not a number"),
-        ("word,score\na,0.5\nb,0.1\na,0.2\n", "Line 4 of .* repeats the word 'a' \\(first on line 2\\)"),
+        ("word,score\na,0.5\nb,high\n", "Line 3 of .* 'high' as its score, which is not a"),
+        ("word,score\na,0.5\nb,0.1\na,0.2\n",
+         "Line 4 of .* repeats the word 'a' \\(first on line 2\\)"),
         ("word,changed\na,1\nb,2\n", "Line 3 of .* changed = '2'; write 1"),
         ("term,value\na,1\n", "needs a 'word' column .* its columns are: term, value"),
         ("word,score\n,0.5\n", "Line 2 of .* has no word"),

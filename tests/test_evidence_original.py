@@ -27,7 +27,8 @@ ARABIC = "قال الرجل: مرحبا بالعالم، ثم مضى."
 
 def frame() -> pd.DataFrame:
     """gensim's real Lee documents (their case and punctuation as written) over two years,
-    with ids and three sources (every fourth holds three lines), plus a Hebrew, an Arabic and a very long document."""
+    with ids and three sources (every fourth holds three lines), plus a Hebrew, an Arabic and
+    a very long document."""
     rows = [
         {"id": f"lee-{i}", "date": f"{1990 + i % 2}-{1 + i % 12:02d}-05",
          "source": SOURCES[(i // 2) % 3],

@@ -183,7 +183,8 @@ def test_terms_list_emerging_and_fading(geometry_run):
     assert new["ratio"] == np.inf and not new["measured"]
     measured = set(terms.loc[terms["measured"], "word"])
     assert measured == set(FREQUENCY_ONLY) and measured <= set(scores["word"])
-    assert pd.read_csv(runfolder.RunPaths(root).terms_csv)["word"].tolist() == terms["word"].tolist()
+    on_disk = pd.read_csv(runfolder.RunPaths(root).terms_csv)
+    assert on_disk["word"].tolist() == terms["word"].tolist()
 
 
 def test_term_rule_options(geometry_run, tmp_path):

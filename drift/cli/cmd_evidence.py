@@ -73,7 +73,8 @@ def _number(value, digits: int = 3) -> str:
 def evaluate_command(
     run: Path = typer.Argument(..., help="Run folder ranked with 'drift rank'."),
     gold: Path = typer.Option(
-        ..., "--gold", show_default=False, help="CSV of gold values: word,score (graded change) or word,changed (0/1)."
+        ..., "--gold", show_default=False,
+        help="CSV of gold values: word,score (graded change) or word,changed (0/1).",
     ),
     by: str = typer.Option(
         None, "--by", help="Scores column to correlate (default: z with a control, else score).",
@@ -97,7 +98,9 @@ def evaluate_command(
     if view.output_format == "csv":
         typer.echo(result.pairs.to_csv(index=False), nl=False)
         return
-    typer.echo(f"gold: {gold} ({result.kind}), {result.n} words measured; system value: {result.by}")
+    typer.echo(
+        f"gold: {gold} ({result.kind}), {result.n} words measured; system value: {result.by}"
+    )
     typer.echo(
         f"Spearman's rho = {_number(result.rho)} (p = {result.p:.3g}; 95% CI "
         f"{_number(result.ci_low)} to {_number(result.ci_high)}, Fisher z)"

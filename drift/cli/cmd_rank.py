@@ -31,7 +31,7 @@ def rank_command(
 ) -> None:
     """Rank the words of RUN by how much their meaning moved; write scores, timeline and terms."""
     from drift.cli.rank_views import scores_table
-    from drift.ranking import rank_record, rank_run, top_rows
+    from drift.ranking import rank_record, rank_run
 
     scores = rank_run(run, quiet=quiet, **options.kwargs())
     rows = shown_rows(run, scores, view)
