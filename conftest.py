@@ -37,7 +37,7 @@ def example_run(example_archive: Path, tmp_path_factory: pytest.TempPathFactory)
     import drift
 
     run = tmp_path_factory.mktemp("doctest") / "run"
-    drift.slice_archive(example_archive, run, by="decade", quiet=True)
+    drift.slice_archive(example_archive, run, by="decade", id_col="id", meta="source", quiet=True)
     drift.train_run(run, quiet=True, **EXAMPLE_TRAINING)
     drift.rank_run(run, quiet=True)
     return run

@@ -66,7 +66,27 @@ _WHERE_RE = re.compile(r"^\s*([^=!]+?)\s*(!=|=)\s*(.*)$")
 
 
 def parse_where(specs: Iterable[str] | str | None) -> tuple[WhereClause, ...]:
-    """Read ``--where`` values such as ``source=gazette``, ``source!=letter,minutes``."""
+    """Read ``--where`` values such as ``source=gazette``, ``source!=letter,minutes``.
+
+    Parameters
+    ----------
+    specs : str or iterable of str, optional
+        One condition or several (all must hold).
+
+    Returns
+    -------
+    tuple of WhereClause
+
+    Raises
+    ------
+    DriftError
+        A condition that is not ``column=value`` or ``column!=value``.
+
+    Examples
+    --------
+    >>> [c.text() for c in parse_where(["source!=letter,minutes", "lang = en"])]
+    ['source!=letter,minutes', 'lang=en']
+    """
     if specs is None:
         return ()
     if isinstance(specs, str):
@@ -376,7 +396,35 @@ def write_composition(paths: runfolder.RunPaths, composition: pd.DataFrame) -> N
 
 
 def read_documents(run: str | Path, columns: Sequence[str] | None = None) -> pd.DataFrame:
-    """The document index of a sliced run (documents.parquet)."""
+    """The document index of a sliced run (``documents.parquet``).
+
+    Parameters
+    ----------
+    run : str or Path
+        A run folder sliced with :func:`drift.slice_archive`.
+    columns : sequence of str, optional
+        Read only these columns.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per document kept, in input order: ``document, date``, the ``--meta`` columns,
+        ``slice, source_row, source_file, line, lines, tokens``.
+
+    Raises
+    ------
+    DriftError
+        The folder holds no slices, or was sliced before the index existed.
+
+    Examples
+    --------
+    >>> import drift
+    >>> index = drift.read_documents(run)
+    >>> list(index.columns)
+    ['document', 'date', 'source', 'slice', 'source_row', 'source_file', 'line', 'lines', 'tokens']
+    >>> index["document"].iloc[0]
+    'pm-00001'
+    """
     paths = runfolder.existing_run(Path(run), needs="slices")
     if not paths.documents_parquet.exists():
         raise DriftError(
@@ -397,7 +445,13 @@ def meta_columns(run: str | Path) -> list[str]:
 
 
 def total_variation(p: pd.Series, q: pd.Series) -> float:
-    """Half the sum of absolute differences of two distributions (shares, aligned by index)."""
+    """Half the sum of absolute differences of two distributions (shares, aligned by index).
+
+    Examples
+    --------
+    >>> round(total_variation(pd.Series({"a": 50, "b": 50}), pd.Series({"a": 80, "b": 20})), 6)
+    0.3
+    """
     p, q = p.align(q, fill_value=0.0)
     p = p / p.sum() if p.sum() > 0 else p
     q = q / q.sum() if q.sum() > 0 else q
@@ -437,7 +491,16 @@ def composition_shifts(
 
 
 def read_composition(run: str | Path) -> pd.DataFrame:
-    """composition.parquet: slice, column, value, documents, tokens, share."""
+    """``composition.parquet``: ``slice, column, value, documents, tokens, share`` (the share of
+    the slice's tokens; empty when the run was sliced without ``--meta``).
+
+    Examples
+    --------
+    >>> import drift
+    >>> table = drift.read_composition(run)
+    >>> sorted(table["value"].unique())
+    ['gazette', 'letter', 'minutes']
+    """
     paths = runfolder.existing_run(Path(run), needs="slices")
     if not paths.composition_parquet.exists():
         raise DriftError(
@@ -450,9 +513,37 @@ def read_composition(run: str | Path) -> pd.DataFrame:
 def composition(
     run: str | Path, between: Sequence[str] | None = None
 ) -> tuple[pd.DataFrame, pd.DataFrame, list[str]]:
-    """The composition of each slice (tokens per slice and metadata value), the total variation
-    distance of the mix between the compared slices (``between``: the rank stage's pair, else the
-    first and last slice) and between neighbouring slices, and warnings for large changes."""
+    """The composition of each slice and how much the mix changes between slices.
+
+    Parameters
+    ----------
+    run : str or Path
+        A run folder sliced with ``--meta``.
+    between : two slice labels, optional
+        The compared pair (default: the rank stage's pair, else the first and last slice).
+
+    Returns
+    -------
+    table : pandas.DataFrame
+        ``slice, column, value, documents, tokens, share`` (see :func:`read_composition`).
+    shifts : pandas.DataFrame
+        ``column, from, to, distance``: the total variation distance of the token mix for the
+        compared pair and for each pair of neighbouring slices.
+    warnings : list of str
+        One sentence per distance over :data:`MIX_SHIFT_WARNING`.
+
+    Raises
+    ------
+    DriftError
+        The run has no composition table.
+
+    Examples
+    --------
+    >>> import drift
+    >>> table, shifts, warnings = drift.composition(run)
+    >>> list(shifts.columns), bool((shifts["distance"] <= 1).all())
+    (['column', 'from', 'to', 'distance'], True)
+    """
     from drift.slicing import slice_labels
 
     table = read_composition(run)

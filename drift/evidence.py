@@ -317,6 +317,16 @@ def examples_for_words(
     the source), ``line`` (line number in ``slices/<slice>.txt``) and ``original`` (True when the
     passage is the original text, False when it comes from the tokenized slice file). Slices in
     time order, passages in file order. ``attrs["notes"]`` says why originals were not used.
+
+    Examples
+    --------
+    >>> import drift
+    >>> table = drift.examples_for_words(run, ["tablet", "screen"], per_slice=1)
+    >>> bool(table["original"].all()), sorted(table["word"].unique())
+    (True, ['screen', 'tablet'])
+    >>> row = table.iloc[0]
+    >>> row["document"].startswith("pm-"), row["match"].lower()
+    (True, 'tablet')
     """
     run = Path(run)
     words = list(dict.fromkeys(words))

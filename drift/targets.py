@@ -21,7 +21,28 @@ UNMEASURED_COLUMNS = ["word", "reason"]
 
 
 def read_word_list(path: str | Path) -> list[str]:
-    """The words of a word-list file, in file order, each once."""
+    r"""The words of a word-list file, in file order, each once.
+
+    Parameters
+    ----------
+    path : str or Path
+        One word per line (blank lines and ``#`` lines skipped), or a CSV with a ``word`` column.
+
+    Returns
+    -------
+    list of str
+
+    Raises
+    ------
+    DriftError
+        A missing file, a CSV without a ``word`` column, or no words.
+
+    Examples
+    --------
+    >>> _ = (workdir / "words.txt").write_text("tablet\n# planted\nscreen\ntablet\n")
+    >>> read_word_list(workdir / "words.txt")
+    ['tablet', 'screen']
+    """
     path = Path(path)
     if not path.is_file():
         raise DriftError(f"There is no word list at {path}; give a file with one word per line.")
@@ -103,8 +124,31 @@ def unmeasured_reasons(run: str | Path, words: Sequence[str], pair: Sequence[str
 def target_scores(
     run: str | Path, words: Sequence[str], scores: pd.DataFrame | None = None
 ) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """The scores rows of exactly ``words`` (best first), and a row with the reason for each
-    word that was not measured."""
+    """The scores rows of exactly ``words`` (best first), and why each other word has none.
+
+    Parameters
+    ----------
+    run : str or Path
+        A ranked run folder.
+    words : sequence of str
+        The target words (normalised as the run's tokens: NFC, lower case unless it kept case).
+    scores : pandas.DataFrame, optional
+        The run's scores, when already read.
+
+    Returns
+    -------
+    rows : pandas.DataFrame
+        The scores rows of the measured target words, ordered by rank.
+    unmeasured : pandas.DataFrame
+        ``word, reason`` for each target word without a score.
+
+    Examples
+    --------
+    >>> import drift
+    >>> rows, unmeasured = drift.target_scores(run, ["Tablet", "zzzq"])
+    >>> rows["word"].tolist(), unmeasured["reason"].tolist()
+    (['tablet'], ['does not occur in the archive'])
+    """
     from drift.ranking import rank_record, read_scores
 
     run = Path(run)

@@ -103,10 +103,11 @@ def test_word_page_draws_its_figures(run, tmp_path):
 def test_report_draws_its_figures_and_hostile_terms_as_text(run, tmp_path):
     dom, log = render(run / "charts" / "index.html", tmp_path)
     assert_page_ran_cleanly(dom, log, figures=2)
-    assert dom.count('<a href="words/') == 2
+    ranked = dom.split('id="ranked"')[1].split('id="scatter"')[0]
+    assert ranked.count('<a href="words/') == 2
     assert '<a href="word-index.html">' in dom
     assert "data-pwned" not in dom
-    assert f'<td class="word">{html.escape(HOSTILE_WORDS[0], quote=False)}</td>' in dom
+    assert f'">{html.escape(HOSTILE_WORDS[0], quote=False)}</a></td>' in dom  # a linked term
 
 
 # Markup-bearing words (the path-like one is a file-name concern, tested in test_report.py).

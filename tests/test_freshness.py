@@ -167,8 +167,10 @@ def test_stage_boundaries_are_recorded(run):
         "scores.parquet",
         "scores.csv",
         "timeline.parquet",
+        "timeline.csv",
         "terms.parquet",
         "neighbours.parquet",
+        "terms.csv",
     }
     for stage in ("train", "rank", "charts"):
         assert runfolder.stale_reason(run, stage) is None
