@@ -491,8 +491,23 @@ def composition_shifts(
 
 
 def read_composition(run: str | Path) -> pd.DataFrame:
-    """``composition.parquet``: ``slice, column, value, documents, tokens, share`` (the share of
-    the slice's tokens; empty when the run was sliced without ``--meta``).
+    """The composition of each slice (``composition.parquet``).
+
+    Parameters
+    ----------
+    run : str or Path
+        A run folder sliced with :func:`drift.slice_archive`.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``slice, column, value, documents, tokens, share`` (the share of the slice's tokens);
+        empty when the run was sliced without ``--meta``.
+
+    Raises
+    ------
+    DriftError
+        The folder holds no slices or no composition table.
 
     Examples
     --------

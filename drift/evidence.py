@@ -311,12 +311,31 @@ def examples_for_words(
 ) -> pd.DataFrame:
     """Example passages for several words, reading each slice file once.
 
-    Returns a DataFrame with columns ``word, slice, document, date``, the run's metadata columns,
+    Parameters
+    ----------
+    run : str or Path
+        A run folder sliced with :func:`drift.slice_archive`.
+    words : iterable of str
+        The words, as tokenized (lower case unless the run keeps case).
+    per_slice : int
+        Passages per word and slice at most (one per document).
+    seed : int
+        Seed of the draw: the same seed gives the same passages.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``word, slice, document, date``, the run's metadata columns,
     then ``left, match, right`` (the passage: the word as written with its context),
     ``sentence`` (the whole passage), ``source_row, source_file`` (where the document lies in
     the source), ``line`` (line number in ``slices/<slice>.txt``) and ``original`` (True when the
     passage is the original text, False when it comes from the tokenized slice file). Slices in
     time order, passages in file order. ``attrs["notes"]`` says why originals were not used.
+
+    Raises
+    ------
+    DriftError
+        A negative ``per_slice``, a folder without slices or a missing slice file.
 
     Examples
     --------

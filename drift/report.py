@@ -712,7 +712,8 @@ def _anchors(data: RunData) -> Any:
 
 
 def word_views(
-    data: RunData, words: Sequence[str], *, k: int = neighbours.PAGE_K, geometry: bool = True
+    data: RunData, words: Sequence[str], *, k: int = neighbours.PAGE_K, geometry: bool = True,
+    models: neighbours.RunModels | None = None,
 ) -> dict[str, WordView]:
     """The views of ``words``: neighbours from neighbours.parquet (or the models), change
     ranges and, with ``geometry``, path and self-similarity; each model is loaded at most once."""
@@ -723,7 +724,8 @@ def word_views(
     needs_models = geometry or table is None or neighbours.stored_k(table) < k or not set(
         words
     ) <= set(table["word"])
-    models = neighbours.load_run_models(data.root) if needs_models else None
+    if needs_models and models is None:
+        models = neighbours.load_run_models(data.root)
     near = neighbours.neighbours_for(data.root, words, k, models=models)
     shapes = (
         wordviews.word_geometry(models, words, near, data.reference, _anchors(data))
@@ -1348,18 +1350,18 @@ def _write_word_pages(
 ) -> dict[str, Path]:
     drawn = evidence.examples_for_words(data.root, words, per_slice=examples, seed=seed)
     measured = data.known_words()
-    views = word_views(data, [w for w in words if w in measured], k=k)
+    terms = [w for w in words if w not in measured]  # emerging or fading terms without a score
+    models = neighbours.load_run_models(data.root) if terms else None  # loaded once for both
+    views = word_views(data, [w for w in words if w in measured], k=k, models=models)
+    near = neighbours.compute_neighbours(models, terms, k) if terms else None
     written = {}
     for word in words:
         examples_of = drawn[drawn["word"] == word]
         if word in views:
             page = word_page(data, views[word], examples_of, report_link=report_link)
-        else:  # an emerging or fading term without a score
-            try:
-                near = ranking.neighbours_by_slice(data.root, word, k=k)
-            except DriftError:  # no slice's model knows it
-                near = pd.DataFrame(columns=["slice", "rank", "neighbour", "similarity"])
-            page = term_page(data, word, near, examples_of, report_link=report_link)
+        else:
+            own = near[near["word"] == word].drop(columns="word").reset_index(drop=True)
+            page = term_page(data, word, own, examples_of, report_link=report_link)
         target = word_page_path(data.root, word)
         write_page(target, page)
         written[word] = target

@@ -142,6 +142,11 @@ def target_scores(
     unmeasured : pandas.DataFrame
         ``word, reason`` for each target word without a score.
 
+    Raises
+    ------
+    DriftError
+        The run has no scores yet.
+
     Examples
     --------
     >>> import drift

@@ -589,6 +589,7 @@ def test_report_shows_the_slice_composition_when_the_run_has_it(tmp_path):
 def test_a_report_of_twenty_words_loads_each_model_once(tmp_path, monkeypatch):
     from collections import Counter
 
+    import pandas as pd
     from chart_run_fixture import SEEDS
 
     import drift.training
@@ -603,7 +604,11 @@ def test_a_report_of_twenty_words_loads_each_model_once(tmp_path, monkeypatch):
 
     monkeypatch.setattr(drift.training, "load_vectors", counted)
     report.build_report(run, top=20)
-    assert len(list(RunPaths(run).word_charts_dir.glob("*.html"))) == 20
+    terms = pd.read_parquet(RunPaths(run).terms_parquet)
+    listed = {w for kind in ("emerging", "fading") for w in report.shown_terms(terms, kind)["word"]}
+    top = set(pd.read_parquet(RunPaths(run).scores_parquet).sort_values("rank")["word"].head(20))
+    pages = len(list(RunPaths(run).word_charts_dir.glob("*.html")))
+    assert pages == len(top | listed)  # the top words' pages and the listed terms' pages
     assert loads == Counter({(label, seed, False): 1 for label in LABELS for seed in range(SEEDS)})
 
 
