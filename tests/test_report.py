@@ -657,7 +657,9 @@ def test_a_click_on_a_charted_word_opens_its_page(run, built):
         for custom in part.get("customdata") or []:
             if custom[at]:
                 clicked[html.unescape(custom[0])] = custom[at]
-    assert clicked == links and len(links) == 4
+    assert len(links) == 4 and links.items() <= clicked.items()
+    # other clickable words are listed terms with pages of their own
+    assert all((built.parent / url).exists() for url in clicked.values())
 
 
 def test_an_undecided_verdict_counts_as_not_significant(tmp_path):
