@@ -76,10 +76,11 @@ def evaluate_command(
         ..., "--gold", show_default=False,
         help="CSV of gold values: word,score (graded change) or word,changed (0/1).",
     ),
-    by: str = typer.Option(
-        None, "--by", help="Scores column to correlate (default: z with a control, else score).",
-        show_default=False,
+    column: str = typer.Option(
+        None, "--column", show_default=False,
+        help="Scores column to correlate (default: z with a control, else score).",
     ),
+    old_by: str = typer.Option(None, "--by", hidden=True),
     output_format: str = field_option(ViewOptions, "output_format"),
 ) -> None:
     """Judge the ranking of RUN against gold values: Spearman's rho with its p-value and 95%
@@ -87,7 +88,7 @@ def evaluate_command(
     from drift.evaluation import evaluate_run
 
     view = ViewOptions(output_format=output_format)
-    result = evaluate_run(run, gold, by=by)
+    result = evaluate_run(run, gold, by=column or old_by)
     for row in result.unmeasured.itertuples():
         typer.echo(f"drift: not measured: {row.word}: {row.reason}", err=True)
     for note in result.notes:
