@@ -19,9 +19,12 @@ import numpy as np
 from scipy.linalg import svd
 
 from drift.errors import DriftError
+from drift.options import check_anchor_trim
 
 #: Fewer anchors than this cannot fix a rotation at all.
 MIN_ANCHORS = 2
+#: Refits of an alignment with trimmed anchors (the rotation settles after two or three).
+TRIM_ROUNDS = 3
 
 #: What ``--anchors`` may hold once parsed: a number of most frequent shared words, or words.
 AnchorSpec = int | Sequence[str] | None
@@ -150,12 +153,40 @@ def align_onto(
     source: SliceVectors,
     target: SliceVectors,
     anchors: AnchorSpec = None,
+    trim: float = 0.0,
 ) -> np.ndarray:
     """The rotation that carries ``source``'s prepared vectors onto ``target``'s.
 
     Fitted on the anchor words (see :func:`anchor_words`); apply it as ``source.vectors @ R``.
+    With ``trim`` > 0 the fit is repeated ``TRIM_ROUNDS`` times on the anchors that moved least,
+    leaving out the ``trim`` share that the previous rotation displaced most, so that words which
+    really changed do not pull the rotation towards themselves (iterative anchor trimming).
     """
+    trim = check_anchor_trim(trim)
     words = anchor_words(source, target, anchors)
-    return procrustes_rotation(
-        source.vectors[source.rows(words)], target.vectors[target.rows(words)]
+    moved = source.vectors[source.rows(words)]
+    fixed = target.vectors[target.rows(words)]
+    rotation = procrustes_rotation(moved, fixed)
+    keep_n = max(MIN_ANCHORS, int(round(len(words) * (1.0 - trim))))
+    if trim > 0 and keep_n < len(words):
+        for _ in range(TRIM_ROUNDS):
+            # Prepared vectors are unit length and the rotation orthogonal: cosine = dot product.
+            distance = 1.0 - np.einsum("ij,ij->i", moved @ rotation, fixed)
+            keep = np.argsort(distance, kind="stable")[:keep_n]
+            rotation = procrustes_rotation(moved[keep], fixed[keep])
+    return rotation
+
+
+def seed_instability(first: SliceVectors, other: SliceVectors) -> np.ndarray:
+    """Each word's optimisation noise: the cosine distance between its vectors from two seeds of
+    the same slice, ``other`` rotated onto ``first`` over every shared word; one value per word
+    of ``first`` (NaN where ``other`` lacks it)."""
+    rotation = align_onto(other, first)
+    rows_other = np.fromiter(
+        (other.index.get(w, -1) for w in first.words), dtype=np.int64, count=len(first.words)
     )
+    present = rows_other >= 0
+    out = np.full(len(first.words), np.nan)
+    moved = other.vectors[rows_other[present]] @ rotation
+    out[present] = 1.0 - np.einsum("ij,ij->i", moved, first.vectors[present])
+    return out

@@ -394,7 +394,7 @@ def evaluate(
     injected, frequency_only, donors = set(injected), set(frequency_only), set(donors)
     words = ranked_words(scores, by)
     significant = (
-        set(scores.loc[scores["significant"].astype(bool), "word"])
+        set(scores.loc[scores["significant"].fillna(False).astype(bool), "word"])
         if "significant" in scores.columns
         else set()
     )
@@ -522,7 +522,9 @@ def protocol_table(
                     donors_significant=every["donors_significant"],
                 )
             else:
-                row["false_positive_rate"] = float(scores["significant"].mean())
+                row["false_positive_rate"] = float(
+                    scores["significant"].fillna(False).astype(bool).mean()
+                )
             row["words"] = len(scores)
             rows.append(row)
     return pd.DataFrame(rows)

@@ -36,6 +36,7 @@ from drift.errors import DriftError, close_matches
 
 #: The measures a run can be ranked by (``--measure``).
 MEASURES = ("displacement", "turnover", "local", "combined")
+COMPARE_MODES = ("pair", "steps")
 #: Training architectures (``--architecture``).
 ARCHITECTURES = ("skipgram", "cbow")
 #: Where training runs (``--engine``).
@@ -97,6 +98,28 @@ def check_whole(value: Any, option: str, least: int, advice: str = "") -> int:
 def check_k(k: Any, option: str = "--k") -> int:
     """A neighbourhood size: a whole number of at least 1."""
     return check_whole(k, option, 1)
+
+
+def check_anchor_trim(share: Any) -> float:
+    """A share of anchors to leave out of a refitted alignment: at least 0, below 0.9.
+
+    >>> check_anchor_trim(0.1)
+    0.1
+    >>> check_anchor_trim(0.95)  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    drift.errors.DriftError: --anchor-trim must lie in [0, 0.9) (got 0.95); ...
+    """
+    try:
+        value = float(share)
+    except (TypeError, ValueError):
+        value = float("nan")
+    if not 0.0 <= value < 0.9:
+        raise DriftError(
+            f"--anchor-trim must lie in [0, 0.9) (got {share}); 0.1 leaves out the tenth of "
+            "anchors that moved most."
+        )
+    return value
 
 
 def check_alpha(alpha: Any) -> float:
@@ -481,6 +504,18 @@ class RankOptions(StageOptions):
         "Emerging/fading terms: frequency per million at least this many times higher in one "
         "compared slice than in the other.",
         check=lambda value: _more_than_one(value, "--term-ratio"),
+    )
+    anchor_trim: float = opt(
+        0.0,
+        "Refit the alignment without this share of the anchors that moved most (0: keep all).",
+        metavar="SHARE",
+        check=check_anchor_trim,
+    )
+    compare: str = opt(
+        "pair",
+        "pair: judge the change between the compared slices; steps: each word's largest "
+        "calibrated step between adjacent slices, over the whole timeline.",
+        check=_choice(COMPARE_MODES, "--compare"),
     )
 
 

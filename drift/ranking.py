@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import json
 import time
+import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -36,7 +37,14 @@ import numpy as np
 import pandas as pd
 
 from drift import options, runfolder
-from drift.alignment import AnchorSpec, SliceVectors, align_onto, parse_anchors, prepare_vectors
+from drift.alignment import (
+    AnchorSpec,
+    SliceVectors,
+    align_onto,
+    parse_anchors,
+    prepare_vectors,
+    seed_instability,
+)
 from drift.changepoint import change_points
 from drift.errors import DriftError
 from drift.measures import (
@@ -63,12 +71,18 @@ CONTROL_NAMES = ("control-a", "control-b")
 SCORE_COLUMNS = [
     "word", "rank", "score", "displacement", "displacement_sd", "turnover", "turnover_sd",
     "local", "local_sd", "count_from", "count_to", "fpm_from", "fpm_to", "log_freq_ratio",
-    "null_centre", "null_spread", "z", "p", "q", "significant", "change_point", "change_step",
+    "seed_noise", "null_centre", "null_spread", "noise_z", "noise_p", "noise_q",
+    "typical", "typical_spread", "drift_z", "drift_p", "drift_q",
+    "z", "p", "q", "significant", "significance_note", "change_point", "change_step",
     "gained", "lost",
 ]
 TIMELINE_COLUMNS = [
     "word", "slice", "distance", "distance_sd", "turnover", "count", "fpm", "null_p95",
+    "typical",
 ]
+COMPARE_MODES = options.COMPARE_MODES
+#: Default share of anchors left out of the refitted alignment (see alignment.align_onto).
+DEFAULT_ANCHOR_TRIM: float = default(RankOptions, "anchor_trim")
 
 
 # ---------------------------------------------------------------------------- reading a run
@@ -171,8 +185,14 @@ def resolve_slices(
     return slice_from, slice_to, ref
 
 
-def _check_options(measure: str, k: int, alpha: float) -> None:
-    RankOptions(measure=measure, k=k, alpha=alpha)
+def _check_options(measure: str, k: int, alpha: float, anchor_trim: float = 0.0,
+                   compare: str = "pair") -> None:
+    RankOptions(measure=measure, k=k, alpha=alpha, anchor_trim=anchor_trim, compare=compare)
+    if compare == "steps" and measure != "displacement":
+        raise DriftError(
+            "--compare steps judges displacement between adjacent slices; leave --measure at "
+            "displacement."
+        )
 
 
 def _anchor_record(raw: Any, spec: AnchorSpec) -> Any:
@@ -273,12 +293,22 @@ def measure_pair(
     )
 
 
-def _check_k(k: int, n_candidates: int, what: str) -> None:
-    if n_candidates <= k:
+def usable_k(k: int, n_candidates: int, what: str, notes: list[str] | None = None) -> int:
+    """``k``, or fewer neighbours (with a note) when ``what`` knows too few candidate words."""
+    if n_candidates < 2:
         raise DriftError(
-            f"Only {n_candidates} words are known to {what}, too few for --k {k} neighbours; "
-            "use a smaller --k or more text per slice."
+            f"Only {n_candidates} word is known to {what}, too few for any neighbours; use more "
+            "text per slice or a lower --min-count."
         )
+    if n_candidates > k:
+        return k
+    lowered = max(1, (n_candidates - 1) // 2)
+    if notes is not None:
+        notes.append(
+            f"only {n_candidates} words are known to {what}, too few for --k {k}; neighbour "
+            f"measures use k = {lowered} instead."
+        )
+    return lowered
 
 
 @dataclass
@@ -289,6 +319,22 @@ class SeedResult:
     distance: np.ndarray  # words x slices, against the reference
     turnover: np.ndarray  # words x slices, against the reference
     control: PairMeasures | None
+    #: words x slices: each word's distance between this seed and the first seed of the same
+    #: slice (None for the first seed itself)
+    instability: np.ndarray | None = None
+    #: control words x 4: the same in control-a, control-b and the compared pair's two slices
+    control_instability: np.ndarray | None = None
+    #: words x 2: the pair's words' seed distance in control-a and control-b
+    control_on_pair: np.ndarray | None = None
+    #: words x (slices - 1): displacement between each slice and the next (for --compare steps)
+    steps: np.ndarray | None = None
+
+
+def _instability_of(first: SliceVectors, other: SliceVectors, words: Sequence[str]) -> np.ndarray:
+    per_word = seed_instability(first, other)
+    rows = np.fromiter((first.index.get(w, -1) for w in words), dtype=np.int64, count=len(words))
+    out = np.where(rows >= 0, per_word[np.maximum(rows, 0)], np.nan)
+    return out
 
 
 def measure_seed(
@@ -300,8 +346,15 @@ def measure_seed(
     k: int,
     anchors: AnchorSpec,
     advance: Any = None,
-) -> tuple[SeedResult, list[str]]:
-    """Load one seed's models, align, measure the pair, the timeline and the control pair."""
+    first_seed: dict[str, SliceVectors] | None = None,
+    trim: float = DEFAULT_ANCHOR_TRIM,
+) -> tuple[SeedResult, list[str], dict[str, SliceVectors]]:
+    """Load one seed's models, align, measure the pair, the timeline and the control pair.
+
+    ``first_seed`` holds the first seed's models (slices and control); with it, each word's
+    distance to its own vector of the first seed (its optimisation noise) is measured too.
+    Returns the result, the candidate words, and this seed's models (for ``first_seed``).
+    """
     labels = inputs.labels
     slices = {label: load_slice_vectors(inputs.paths, label, seed) for label in labels}
     for label in pair:
@@ -312,7 +365,6 @@ def measure_seed(
                 "slices."
             )
     cand_words = candidate_words([slices[label] for label in labels])
-    _check_k(k, len(cand_words), "every slice")
     cand_index = {w: i for i, w in enumerate(cand_words)}
     candidates = {label: s.vectors[s.rows(cand_words)] for label, s in slices.items()}
     neighbours = {}
@@ -323,7 +375,8 @@ def measure_seed(
 
     ref = slices[reference]
     rotations = {
-        label: align_onto(slices[label], ref, anchors) for label in labels if label != reference
+        label: align_onto(slices[label], ref, anchors, trim)
+        for label in labels if label != reference
     }
     rotations[reference] = np.eye(ref.vectors.shape[1])
     distance = np.column_stack(
@@ -341,18 +394,46 @@ def measure_seed(
     if slice_from == reference:
         rotation = rotations[slice_to]
     else:
-        rotation = align_onto(slices[slice_to], slices[slice_from], anchors)
+        rotation = align_onto(slices[slice_to], slices[slice_from], anchors, trim)
     pair_result = measure_pair(
         slices[slice_from], slices[slice_to], words,
         candidates[slice_from], candidates[slice_to],
         neighbours[slice_from], neighbours[slice_to], rotation,
     )
-    del slices, candidates, neighbours
+    steps = np.column_stack(
+        [
+            displacement_rows(slices[b], slices[a], align_onto(slices[b], slices[a], anchors, trim),
+                              words)
+            for a, b in zip(labels[:-1], labels[1:], strict=True)
+        ]
+    )
+    instability = None
+    if first_seed is not None:
+        instability = np.column_stack(
+            [_instability_of(first_seed[label], slices[label], words) for label in labels]
+        )
+    del candidates, neighbours
 
-    control = None
+    control, control_instability, control_on_pair = None, None, None
     if inputs.control:
-        control = measure_control(inputs, seed, cand_words, k, anchors, advance)
-    return SeedResult(pair_result, distance, turnover, control), cand_words
+        control, models = measure_control(inputs, seed, cand_words, k, anchors, advance, trim)
+        if first_seed is not None:
+            # A word's noisiness is its own: the control models (trained on the same text as
+            # the pair) measure it again, so both the pair's words and the control's words get
+            # the mean of four seed distances (two slices, two control models).
+            control_instability = np.column_stack(
+                [_instability_of(first_seed[name], models[name], control.words)
+                 for name in CONTROL_NAMES]
+                + [_instability_of(first_seed[label], slices[label], control.words)
+                   for label in pair]
+            )
+            control_on_pair = np.column_stack(
+                [_instability_of(first_seed[name], models[name], words) for name in CONTROL_NAMES]
+            )
+        slices.update(models)
+    result = SeedResult(pair_result, distance, turnover, control, instability,
+                        control_instability, control_on_pair, steps)
+    return result, cand_words, slices
 
 
 def measure_control(
@@ -362,14 +443,16 @@ def measure_control(
     k: int,
     anchors: AnchorSpec,
     advance: Any = None,
-) -> PairMeasures:
-    """The control pair (control-a vs control-b) measured exactly like the compared pair."""
+    trim: float = DEFAULT_ANCHOR_TRIM,
+) -> tuple[PairMeasures, dict[str, SliceVectors]]:
+    """The control pair (control-a vs control-b) measured exactly like the compared pair; also
+    returns the two control models."""
     first, second = (
         load_slice_vectors(inputs.paths, name, seed, control=True) for name in CONTROL_NAMES
     )
     words = [w for w in first.words if w in second.index]
     ctrl_cands = [w for w in cand_words if w in first.index and w in second.index]
-    _check_k(k, len(ctrl_cands), "both control models and every slice")
+    k = usable_k(k, len(ctrl_cands), "both control models and every slice")
     cand_index = {w: i for i, w in enumerate(ctrl_cands)}
     cands_first = first.vectors[first.rows(ctrl_cands)]
     cands_second = second.vectors[second.rows(ctrl_cands)]
@@ -379,11 +462,12 @@ def measure_control(
     near_second = slice_neighbours(second, words, cands_second, cand_index, k)
     if advance:
         advance()
-    rotation = align_onto(second, first, anchors)
-    return measure_pair(
+    rotation = align_onto(second, first, anchors, trim)
+    measured = measure_pair(
         first, second, words, cands_first, cands_second,
         near_first, near_second, rotation,
     )
+    return measured, dict(zip(CONTROL_NAMES, (first, second), strict=True))
 
 
 # ---------------------------------------------------------------------------- assembling
@@ -505,45 +589,325 @@ def emerging_and_fading(
     return pd.concat(frames, ignore_index=True)
 
 
-def _calibration(
-    values: np.ndarray,
-    count_from: np.ndarray,
-    count_to: np.ndarray,
-    control: list[PairMeasures],
-    measure: str,
-    alpha: float,
+@dataclass
+class Measured:
+    """Everything the rank stage measured, before calibration (:func:`measure_run`)."""
+
+    words: list[str]
+    pair: tuple[str, str]
+    reference: str
+    k: int
+    results: list[SeedResult]
+    cand_words: list[str]
+    vocab_from: SliceVectors
+    vocab_to: SliceVectors
+    notes: list[str] = field(default_factory=list)
+
+
+def measure_run(
+    inputs: RunInputs,
+    pair: tuple[str, str],
+    reference: str,
+    k: int,
+    anchors: AnchorSpec,
+    trim: float = DEFAULT_ANCHOR_TRIM,
     quiet: bool = False,
-):
-    """(calibration columns, the displacement null or None, control_flagged) for the scores.
+) -> Measured:
+    """Measure every seed of a run (the expensive part of ranking; no calibration yet)."""
+    slice_from, slice_to = pair
+    notes: list[str] = []
+    if inputs.control is None:
+        notes.append(
+            "this run has no control pair (trained with --no-control), so the noise null and the "
+            "headline z, p, q are empty; retrain without --no-control to calibrate it."
+        )
+    elif list(inputs.control.get("between", pair)) != [slice_from, slice_to]:
+        drawn = " and ".join(str(x) for x in inputs.control.get("between", []))
+        notes.append(
+            f"the control pair was drawn from slices {drawn}, not {slice_from} and {slice_to}; "
+            "its null fits slices of those sizes."
+        )
+    first_seed = inputs.seeds[0]
+    vocab_from = load_slice_vectors(inputs.paths, slice_from, first_seed)
+    vocab_to = load_slice_vectors(inputs.paths, slice_to, first_seed)
+    words = [w for w in vocab_from.words if w in vocab_to.index]
+    if not words:
+        raise DriftError(
+            f"Slices {slice_from} and {slice_to} share no words; check the slicing and min count."
+        )
+    steps = len(inputs.seeds) * (len(inputs.labels) + (2 if inputs.control else 0))
+    results: list[SeedResult] = []
+    cand_words: list[str] = []
+    seed_zero: dict[str, SliceVectors] | None = None
+    with progress_bars(quiet) as progress:
+        task = progress.add_task("rank: neighbours", total=steps)
 
-    Without a control, or with one too small to fit a null, the columns are empty (NaN, nothing
-    significant) and a note says why.
+        def advance() -> None:
+            progress.advance(task)
+
+        for seed in inputs.seeds:
+            if not cand_words:
+                every = [load_slice_vectors(inputs.paths, label, seed) for label in inputs.labels]
+                k = usable_k(k, len(candidate_words(every)), "every slice", notes)
+                del every
+            result, seed_cands, models = measure_seed(
+                inputs, seed, words, pair, reference, k, anchors, advance, seed_zero, trim
+            )
+            if cand_words and seed_cands != cand_words:
+                raise DriftError(
+                    "The seeds of this run have different vocabularies; retrain with "
+                    f"'drift train {inputs.paths.root}' so every seed uses the same slices."
+                )
+            cand_words = seed_cands
+            seed_zero = models if seed_zero is None else seed_zero
+            results.append(result)
+    return Measured(words, pair, reference, k, results, cand_words, vocab_from, vocab_to, notes)
+
+
+def _nanmean(stacked: np.ndarray, axis: int) -> np.ndarray:
+    """``np.nanmean`` without the warning for all-NaN slices (they stay NaN)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return np.nanmean(stacked, axis=axis)
+
+
+def _mean_instability(blocks: Sequence[np.ndarray | None]) -> np.ndarray | None:
+    """Seed noise per word and column, averaged over the seeds after the first."""
+    present = [b for b in blocks if b is not None]
+    return _nanmean(np.stack(present), 0) if present else None
+
+
+@dataclass(frozen=True)
+class CalibrationOptions:
+    """How the nulls are fitted (the defaults are the benchmark's winners; see the README)."""
+
+    use_seed_noise: bool = True
+    #: how a word's seed distances are combined: 'max' of the two compared models (as the
+    #: rarer count: a word is as noisy as its noisier side), 'mean' of them, or 'four' (the
+    #: mean over both compared slices and both control models)
+    noise: str = "max"
+    #: fit the nulls to log(measure): the benchmark found its standardised control residuals
+    #: close to normal (skew and excess kurtosis near 0), unlike the raw measure's (skewed)
+    log_scale: bool = True
+    tail: str = "normal"
+    #: the drift null borrows the noise null's shape (else: a normal tail)
+    shared_shape: bool = True
+
+
+def _combine_noise(columns: np.ndarray, how: str) -> np.ndarray:
+    if how == "max":
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            return np.nanmax(columns, axis=1)
+    return _nanmean(columns, 1)
+
+
+def pair_seed_noise(
+    measured: Measured, labels: Sequence[str], how: str = "max"
+) -> np.ndarray | None:
+    """Each word's seed noise for the compared pair, from its seed distances in the two slices
+    (``how``: see :class:`CalibrationOptions`); None with one seed only."""
+    per_slice = _mean_instability([r.instability for r in measured.results[1:]])
+    if per_slice is None:
+        return None
+    a, b = (labels.index(x) for x in measured.pair)
+    parts = [per_slice[:, [a, b]]]
+    on_control = _mean_instability([r.control_on_pair for r in measured.results[1:]])
+    if how == "four" and on_control is not None:
+        parts.append(on_control)
+    return _combine_noise(np.column_stack(parts), how)
+
+
+def _noise_nulls(
+    measured: Measured, measure: str, options: CalibrationOptions, with_noise: bool,
+    reasons: list[str], record: dict[str, Any],
+) -> tuple[Any, Any]:
+    """The control pair's nulls: for ``measure`` and for displacement (the timeline's band).
+
+    (None, None) when there is no control or it is too small; ``reasons`` then says why.
     """
-    from drift.calibration import CALIBRATION_COLUMNS, fit_null
+    from drift.calibration import WEAK_NULL_WORDS, calibrate, fit_null
 
-    empty = pd.DataFrame({c: np.full(len(values), np.nan) for c in CALIBRATION_COLUMNS})
-    empty["significant"] = None  # undecided without a null: null in JSON, empty in CSV
-    if not control:
-        return empty, None, None
-    first = control[0]
-    if any(c.words != first.words for c in control[1:]):
+    controls = [r.control for r in measured.results if r.control is not None]
+    if not controls:
+        reasons.append("no control pair was trained (--no-control)")
+        return None, None
+    first = controls[0]
+    if any(c.words != first.words for c in controls[1:]):
         raise DriftError(
             "The control models of different seeds have different vocabularies; retrain the "
             "run with 'drift train' so every seed uses the same control slices."
         )
-    control_values, _ = mean_and_spread([c.value(measure) for c in control])
+    control_noise = _mean_instability([r.control_instability for r in measured.results[1:]])
+    c_noise = None
+    if with_noise and control_noise is not None:
+        columns = control_noise if options.noise == "four" else control_noise[:, :2]
+        c_noise = _combine_noise(columns, options.noise)
     try:
-        null = fit_null(control_values, first.counts_from, first.counts_to, alpha=alpha)
+        control_values, _ = mean_and_spread([c.value(measure) for c in controls])
+        noise_null = fit_null(control_values, first.counts_from, first.counts_to, c_noise,
+                              tail=options.tail, what="control pair",
+                              log_scale=options.log_scale)
+        displacement_null = noise_null
+        if measure != "displacement":
+            control_disp, _ = mean_and_spread([c.displacement for c in controls])
+            displacement_null = fit_null(control_disp, first.counts_from, first.counts_to,
+                                         c_noise, tail=options.tail, what="control pair",
+                                         log_scale=options.log_scale)
     except DriftError as exc:
-        _note(f"no z, p or q for this ranking: {exc}", quiet)
-        return empty, None, None
-    columns = null.score(values, count_from, count_to, alpha)
-    if measure == "displacement":
-        displacement_null = null
+        reasons.append(f"no noise null: {exc}")
+        return None, None
+    flagged = calibrate(control_values, first.counts_from, first.counts_to, seed_noise=c_noise,
+                        noise_null=noise_null, drift_null=noise_null)["noise_q"] <= ALPHA_RECORD
+    record["control_flagged"] = int(flagged.sum())
+    record["noise_null"] = noise_null.describe()
+    if noise_null.words < WEAK_NULL_WORDS:
+        reasons.append(f"the control pair gave only {noise_null.words} words (weak below "
+                       f"{WEAK_NULL_WORDS})")
+    return noise_null, displacement_null
+
+
+#: The level at which run.json's control_flagged counts the control words the null flags.
+ALPHA_RECORD = 0.05
+
+
+def _significance(noise_null: Any, drift_null: Any, reasons: list[str]) -> tuple[str, str]:
+    """(status, note): 'full', 'weak' or 'unavailable', and a sentence for the table."""
+    if noise_null is None or drift_null is None:
+        status = "unavailable"
     else:
-        control_disp, _ = mean_and_spread([c.displacement for c in control])
-        displacement_null = fit_null(control_disp, first.counts_from, first.counts_to, alpha=alpha)
-    return columns, displacement_null, int(null.control_flagged)
+        status = "weak" if reasons else "full"
+    note = "" if status == "full" else f"significance {status}: " + "; ".join(
+        reason.rstrip(".") for reason in reasons
+    )
+    return status, note
+
+
+def _calibration(
+    measured: Measured,
+    scores: pd.DataFrame,
+    measure: str,
+    alpha: float,
+    labels: Sequence[str],
+    options: CalibrationOptions,
+) -> tuple[pd.DataFrame, Any, dict[str, Any]]:
+    """(calibration columns, the displacement noise null or None, run.json entries).
+
+    Without a control, or with one too small to fit a null, the noise null's columns (and the
+    headline) are empty and ``significance`` in run.json says why.
+    """
+    from drift.calibration import calibrate, fit_null
+
+    values = scores["score"].to_numpy(dtype=float)
+    count_from = scores["count_from"].to_numpy(dtype=float)
+    count_to = scores["count_to"].to_numpy(dtype=float)
+    noise = pair_seed_noise(measured, labels, options.noise) if options.use_seed_noise else None
+    reasons: list[str] = []
+    if noise is None:
+        reasons.append("one training seed only, so each word's own noise is unknown "
+                       "(train with --seeds 2 or more)")
+    record: dict[str, Any] = {"control_flagged": None}
+    noise_null, displacement_null = _noise_nulls(
+        measured, measure, options, noise is not None, reasons, record
+    )
+    drift_null = None
+    try:
+        drift_null = fit_null(values, count_from, count_to, noise, tail="normal",
+                              what=f"pair {measured.pair[0]}-{measured.pair[1]}",
+                              shape_from=noise_null if options.shared_shape else None,
+                              log_scale=options.log_scale)
+        record["drift_null"] = drift_null.describe()
+    except DriftError as exc:
+        reasons.append(f"no drift null: {exc}")
+    columns = calibrate(values, count_from, count_to, seed_noise=noise, noise_null=noise_null,
+                        drift_null=drift_null, alpha=alpha)
+    columns.insert(0, "seed_noise", noise if noise is not None else np.nan)
+    status, note = _significance(noise_null, drift_null, reasons)
+    columns["significance_note"] = note
+    record["significance"] = {"status": status, "reasons": reasons}
+    return columns, displacement_null, record
+
+
+def _steps_calibration(
+    inputs: RunInputs,
+    measured: Measured,
+    alpha: float,
+    options: CalibrationOptions,
+) -> tuple[pd.DataFrame, Any, dict[str, Any]]:
+    """Whole-timeline calibration (``--compare steps``): each word's largest calibrated step.
+
+    Every adjacent pair of slices is a step; a word's displacement over each step is judged by
+    the control pair's noise null (at that step's counts and seed noise) and by a drift null
+    fitted on that step's own words. The word's step is the one with the smallest headline p;
+    its p values are multiplied by the number of steps measured (Bonferroni, capped at 1), then
+    Benjamini-Hochberg runs over the words.
+    """
+    from drift.calibration import bh_qvalues, calibrate, fit_null
+
+    labels, words = inputs.labels, measured.words
+    step_values, _ = mean_and_spread([r.steps for r in measured.results])
+    per_slice = _mean_instability([r.instability for r in measured.results[1:]])
+    use_noise = per_slice is not None and options.use_seed_noise
+    counts = np.column_stack([_counts_for(inputs, words, label, None) for label in labels])
+    reasons: list[str] = []
+    if not use_noise:
+        reasons.append("one training seed only, so each word's own noise is unknown "
+                       "(train with --seeds 2 or more)")
+    record: dict[str, Any] = {"control_flagged": None}
+    noise_null, displacement_null = _noise_nulls(
+        measured, "displacement", options, use_noise, reasons, record
+    )
+    n_steps = len(labels) - 1
+    tables = []
+    for j in range(n_steps):
+        values = step_values[:, j]
+        noise = _combine_noise(per_slice[:, [j, j + 1]], options.noise) if use_noise else None
+        drift_null = None
+        try:
+            drift_null = fit_null(values, counts[:, j], counts[:, j + 1], noise,
+                                  what=f"step {labels[j]}-{labels[j + 1]}",
+                                  shape_from=noise_null if options.shared_shape else None,
+                                  log_scale=options.log_scale)
+        except DriftError as exc:
+            reasons.append(f"no drift null for step {labels[j]}-{labels[j + 1]}: {exc}")
+        table = calibrate(values, counts[:, j], counts[:, j + 1], seed_noise=noise,
+                          noise_null=noise_null, drift_null=drift_null, alpha=alpha)
+        table.insert(0, "seed_noise", noise if noise is not None else np.nan)
+        tables.append(table)
+    headline = np.column_stack([t["p"].to_numpy(dtype=float) for t in tables])
+    fallback = np.column_stack([t["drift_p"].to_numpy(dtype=float) for t in tables])
+    chooser = np.where(np.isfinite(headline), headline, np.inf)
+    if not np.isfinite(chooser).any():
+        chooser = np.where(np.isfinite(fallback), fallback, np.inf)
+    best = np.argmin(chooser, axis=1)
+    measured_steps = np.isfinite(step_values).sum(axis=1).clip(min=1)
+    rows = np.arange(len(words))
+    columns = pd.DataFrame(
+        {name: np.column_stack([t[name].to_numpy(dtype=float) for t in tables])[rows, best]
+         for name in ("seed_noise", "null_centre", "null_spread", "noise_z", "noise_p",
+                      "typical", "typical_spread", "drift_z", "drift_p", "z", "p")}
+    )
+    for name in ("noise_p", "drift_p", "p"):
+        columns[name] = np.minimum(1.0, columns[name] * measured_steps)
+    columns["noise_q"] = bh_qvalues(columns["noise_p"])
+    columns["drift_q"] = bh_qvalues(columns["drift_p"])
+    columns["q"] = bh_qvalues(columns["p"])
+    significant = pd.array(np.where(np.isfinite(columns["q"]), columns["q"] <= alpha, False),
+                           dtype="boolean")
+    if noise_null is None:
+        significant[:] = pd.NA
+    columns["significant"] = significant
+    status, note = _significance(noise_null, True, reasons)
+    columns["significance_note"] = note
+    record["significance"] = {"status": status, "reasons": reasons}
+    best_values = step_values[rows, best]
+    columns["score"] = best_values
+    columns["change_point"] = pd.Series(
+        np.where(np.isfinite(best_values), np.asarray(labels, dtype=object)[best + 1], None),
+        dtype=object,
+    )
+    columns["change_step"] = best_values
+    return columns, displacement_null, record
 
 
 def _note(message: str, quiet: bool) -> None:
@@ -575,6 +939,8 @@ def rank_run(
     k: int = DEFAULT_K,
     alpha: float = default(RankOptions, "alpha"),
     anchors: str | int | Sequence[str] | None = None,
+    anchor_trim: float = DEFAULT_ANCHOR_TRIM,
+    compare: str = "pair",
     quiet: bool = False,
     term_count: int = TERM_MIN_COUNT,
     term_ratio: float = TERM_RATIO,
@@ -582,14 +948,18 @@ def rank_run(
     """Score every word of the compared pair; write scores, timeline and terms; return scores.
 
     ``term_count`` and ``term_ratio`` are the emerging/fading rule (see TERM_MIN_COUNT).
+    ``compare``: 'pair' (default) judges the change between the two compared slices; 'steps'
+    judges each word's largest calibrated step between adjacent slices over the whole timeline
+    (``change_point`` then names the slice after that step).
 
     ``between``: the two compared slices (first and last by default); ``reference``: the slice
     the timeline is measured against (the first by default); ``anchors``: a number N (the N most
     frequent shared words), a word-list file path, or a list of words (all shared words by
-    default). Reuses the files of an earlier run with the same inputs and parameters.
+    default); ``anchor_trim``: share of the anchors that moved most left out of a refitted
+    alignment. Reuses the files of an earlier run with the same inputs and parameters.
     """
     started = time.perf_counter()
-    _check_options(measure, k, alpha)
+    _check_options(measure, k, alpha, anchor_trim, compare)
     inputs = read_run_inputs(run)
     root = inputs.paths.root
     slice_from, slice_to, ref = resolve_slices(inputs.labels, between, reference)
@@ -603,6 +973,8 @@ def rank_run(
         "anchors": _anchor_record(anchors, anchor_spec),
         "term_count": check_term_rule(term_count, term_ratio)[0],
         "term_ratio": float(term_ratio),
+        "anchor_trim": float(anchor_trim),
+        "compare": compare,
     }
     fingerprint = _inputs_fingerprint(
         inputs, list(anchor_spec) if isinstance(anchor_spec, list) else None
@@ -617,10 +989,16 @@ def rank_run(
         return read_scores(root)
 
     with runfolder.run_lock(root):
-        scores, timeline, terms, extra = compute_scores(
-            inputs, (slice_from, slice_to), ref, measure, int(k), float(alpha), anchor_spec, quiet,
+        measured = measure_run(inputs, (slice_from, slice_to), ref, int(k), anchor_spec,
+                               float(anchor_trim), quiet)
+        scores, timeline, terms, extra = assemble_scores(
+            inputs, measured, measure, float(alpha), compare=compare,
             term_rule=check_term_rule(term_count, term_ratio),
         )
+        for message in measured.notes:
+            _note(message, quiet)
+        if scores["significance_note"].iloc[:1].any():
+            _note(str(scores["significance_note"].iloc[0]) + ".", quiet)
         with runfolder.atomic_path(inputs.paths.scores_parquet) as tmp:
             scores.to_parquet(tmp, index=False)
         with runfolder.atomic_path(inputs.paths.scores_csv) as tmp:
@@ -658,64 +1036,49 @@ def compute_scores(
     anchors: AnchorSpec,
     quiet: bool = False,
     term_rule: tuple[int, float] = (TERM_MIN_COUNT, TERM_RATIO),
+    trim: float = DEFAULT_ANCHOR_TRIM,
+    options: CalibrationOptions | None = None,
 ) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame, dict[str, Any]]:
     """The rank stage's tables (scores, timeline, terms) and the extra run.json entries."""
-    slice_from, slice_to = pair
-    if inputs.control is None:
-        _note(
-            "this run has no control pair (trained with --no-control), so z, p and q are empty "
-            "and the ranking is descriptive; retrain without --no-control to calibrate it.",
-            quiet,
-        )
-    elif list(inputs.control.get("between", pair)) != [slice_from, slice_to]:
-        drawn = " and ".join(str(x) for x in inputs.control.get("between", []))
-        _note(
-            f"the control pair was drawn from slices {drawn}, not {slice_from} and {slice_to}; "
-            "its null fits slices of those sizes.",
-            quiet,
-        )
+    measured = measure_run(inputs, pair, reference, k, anchors, trim, quiet)
+    return assemble_scores(inputs, measured, measure, alpha, options, term_rule=term_rule)
 
-    first_seed = inputs.seeds[0]
-    vocab_from = load_slice_vectors(inputs.paths, slice_from, first_seed)
-    vocab_to = load_slice_vectors(inputs.paths, slice_to, first_seed)
-    words = [w for w in vocab_from.words if w in vocab_to.index]
-    if not words:
-        raise DriftError(
-            f"Slices {slice_from} and {slice_to} share no words; check the slicing and min count."
-        )
-    steps = len(inputs.seeds) * (len(inputs.labels) + (2 if inputs.control else 0))
-    results: list[SeedResult] = []
-    cand_words: list[str] = []
-    with progress_bars(quiet) as progress:
-        task = progress.add_task("rank: neighbours", total=steps)
 
-        def advance() -> None:
-            progress.advance(task)
+def assemble_scores(
+    inputs: RunInputs,
+    measured: Measured,
+    measure: str,
+    alpha: float,
+    options: CalibrationOptions | None = None,
+    compare: str = "pair",
+    term_rule: tuple[int, float] = (TERM_MIN_COUNT, TERM_RATIO),
+) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame, dict[str, Any]]:
+    """Calibrate what :func:`measure_run` measured: scores, timeline, terms, run.json entries.
 
-        for seed in inputs.seeds:
-            result, seed_cands = measure_seed(
-                inputs, seed, words, pair, reference, k, anchors, advance
-            )
-            if cand_words and seed_cands != cand_words:
-                raise DriftError(
-                    "The seeds of this run have different vocabularies; retrain with "
-                    f"'drift train {inputs.paths.root}' so every seed uses the same slices."
-                )
-            cand_words = seed_cands
-            results.append(result)
-
-    scores = _scores_frame(inputs, results, words, pair, measure, vocab_from, vocab_to)
-    controls = [r.control for r in results if r.control is not None]
-    calibration, displacement_null, flagged = _calibration(
-        scores["score"].to_numpy(), scores["count_from"].to_numpy(),
-        scores["count_to"].to_numpy(), controls, measure, alpha, quiet,
-    )
-    for column in calibration.columns:
-        scores[column] = calibration[column].to_numpy()
-
+    ``compare``: 'pair' judges the compared pair; 'steps' judges each word's largest step
+    between adjacent slices (see :func:`_steps_calibration`).
+    """
+    options = options or CalibrationOptions()
+    words, results = measured.words, measured.results
+    scores = _scores_frame(inputs, results, words, measured.pair, measure,
+                           measured.vocab_from, measured.vocab_to)
     distance, distance_sd = mean_and_spread([r.distance for r in results])
     turnover, _ = mean_and_spread([r.turnover for r in results])
-    if len(inputs.labels) > 2:
+    if compare == "steps":
+        calibration, displacement_null, record = _steps_calibration(
+            inputs, measured, alpha, options
+        )
+        for column in calibration.columns:
+            scores[column] = calibration[column].to_numpy()
+    else:
+        calibration, displacement_null, record = _calibration(
+            measured, scores, measure, alpha, inputs.labels, options
+        )
+        for column in calibration.columns:
+            scores[column] = calibration[column].to_numpy()
+    if compare == "steps":
+        pass  # change_point and change_step are the word's largest calibrated step
+    elif len(inputs.labels) > 2:
         position, step = change_points(distance)
         labels = np.asarray(inputs.labels, dtype=object)
         scores["change_point"] = pd.Series(
@@ -725,31 +1088,50 @@ def compute_scores(
     else:
         scores["change_point"] = pd.Series([None] * len(words), dtype=object)
         scores["change_step"] = np.nan
-    scores["gained"], scores["lost"] = gained_and_lost(results, cand_words, k)
+    scores["gained"], scores["lost"] = gained_and_lost(results, measured.cand_words, measured.k)
 
-    timeline = _timeline_frame(inputs, words, distance, distance_sd, turnover, reference,
-                               displacement_null)
+    timeline_noise = None
+    per_slice = _mean_instability([r.instability for r in results[1:]])
+    if per_slice is not None and options.use_seed_noise:
+        at_ref = inputs.labels.index(measured.reference)
+        reference_column = np.repeat(per_slice[:, [at_ref]], per_slice.shape[1], 1)
+        stacked = np.stack([per_slice, reference_column])
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            timeline_noise = (
+                np.nanmax(stacked, 0) if options.noise == "max" else np.nanmean(stacked, 0)
+            )
+    timeline = _timeline_frame(inputs, words, distance, distance_sd, turnover,
+                               measured.reference, displacement_null, timeline_noise)
     scores = order_scores(scores)
     scores["rank"] = np.arange(1, len(scores) + 1, dtype=np.int64)
     scores = scores[SCORE_COLUMNS]
-    terms = emerging_and_fading(inputs, pair, set(words), *term_rule)
+    terms = emerging_and_fading(inputs, measured.pair, set(words), *term_rule)
     extra = {
-        "control_flagged": flagged,
+        **record,
         "seeds": list(inputs.seeds),
         "words": len(words),
-        "candidates": len(cand_words),
+        "candidates": len(measured.cand_words),
+        "k_used": int(measured.k),
+        "notes": list(measured.notes),
     }
     return scores, timeline, terms, extra
 
 
 def order_scores(scores: pd.DataFrame) -> pd.DataFrame:
-    """Order words by z (change beyond what the word's frequency explains), then by score.
+    """Order words by the headline z (both nulls), then by score.
 
     With a control, z is the ranking: the synthetic change injection benchmark
     (benchmarks/injection_eval.py) found injected changes about three times more precisely by z
-    than by the raw measure, which puts noisy rare words first. Without a control, by score.
+    than by the raw measure, which puts noisy rare words first. Without a control, by the drift
+    null's z when it exists, else by score.
     """
-    keys = ["z", "score", "word"] if scores["z"].notna().any() else ["score", "word"]
+    for first in ("z", "drift_z"):
+        if first in scores and scores[first].notna().any():
+            keys = [first, "score", "word"]
+            break
+    else:
+        keys = ["score", "word"]
     ascending = [False] * (len(keys) - 1) + [True]
     return scores.sort_values(keys, ascending=ascending, na_position="last",
                               kind="stable").reset_index(drop=True)
@@ -789,19 +1171,43 @@ def _timeline_frame(
     turnover: np.ndarray,
     reference: str,
     displacement_null: Any,
+    noise: np.ndarray | None = None,
 ) -> pd.DataFrame:
-    """One row per word and slice (word-major order)."""
+    """One row per word and slice (word-major order).
+
+    ``null_p95``: the noise null's 95th percentile at the word's rarer count and seed noise;
+    ``typical``: the drift null's centre for that slice against the reference (how far words of
+    that frequency and noise generally moved), fitted on that slice's own words.
+    """
+    from drift.calibration import fit_null
+
     labels = inputs.labels
     counts = np.column_stack([_counts_for(inputs, words, label, None) for label in labels])
     fpm = np.column_stack(
         [_per_million(counts[:, i], inputs.tokens.get(label)) for i, label in enumerate(labels)]
     )
+    ref_counts = counts[:, labels.index(reference)][:, None]
+    rarer = np.minimum(ref_counts, counts)
     null_p95 = np.full(distance.shape, np.nan)
-    if displacement_null is not None:
-        ref_counts = counts[:, labels.index(reference)][:, None]
-        rarer = np.minimum(ref_counts, counts)
-        measured = np.isfinite(distance)
-        null_p95[measured] = displacement_null.quantile(rarer[measured], 0.95)
+    typical = np.full(distance.shape, np.nan)
+    for j, label in enumerate(labels):
+        measured = np.isfinite(distance[:, j])
+        column_noise = None if noise is None else noise[measured, j]
+        if displacement_null is not None:
+            wanted = column_noise if displacement_null.uses_noise else None
+            if not displacement_null.uses_noise or wanted is not None:
+                null_p95[measured, j] = displacement_null.quantile(
+                    0.95, rarer[measured, j], wanted
+                )
+        if label == reference:
+            typical[measured, j] = 0.0
+            continue
+        try:
+            drift_null = fit_null(distance[measured, j], rarer[measured, j], rarer[measured, j],
+                                  column_noise, what=f"slice {label}")
+        except DriftError:
+            continue
+        typical[measured, j] = drift_null.centre(rarer[measured, j], column_noise)
     n_words, n_slices = distance.shape
     return pd.DataFrame(
         {
@@ -813,6 +1219,7 @@ def _timeline_frame(
             "count": counts.ravel(),
             "fpm": fpm.ravel(),
             "null_p95": null_p95.ravel(),
+            "typical": typical.ravel(),
         }
     )[TIMELINE_COLUMNS]
 

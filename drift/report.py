@@ -115,7 +115,7 @@ class RunData:
 
     @property
     def significance(self) -> dict[str, Any] | None:
-        """``stages.rank.significance`` ({"status": "full"|"weak"|"unavailable", "reason"})."""
+        """``stages.rank.significance`` ({"status": "full"|"weak"|"unavailable", "reasons"})."""
         found = self.rank_record.get("significance")
         return found if isinstance(found, dict) else None
 
@@ -160,6 +160,10 @@ def load_run(run: Path) -> RunData:
     for table in (scores, timeline, terms):
         table["word"] = table["word"].astype(str)
     timeline["slice"] = timeline["slice"].astype(str)
+    if "significant" in scores:
+        # Undecided (no null) reads as None, which pages treat as "not significant".
+        decided = scores["significant"].notna()
+        scores["significant"] = scores["significant"].astype(object).where(decided, None)
     return RunData(
         root=run,
         labels=ranking.slice_labels(run),
@@ -816,7 +820,8 @@ def warnings_html(data: RunData) -> str:
     if sig and sig.get("status") in ("weak", "unavailable"):
         what = ("Significance is weak" if sig["status"] == "weak"
                 else "Significance is unavailable")
-        messages.append(f"{what}: {sig.get('reason') or 'see the run record'}")
+        reasons = sig.get("reasons") or ([sig["reason"]] if sig.get("reason") else [])
+        messages.append(f"{what}: {'; '.join(map(str, reasons)) or 'see the run record'}")
     elif sig is None and _control_without_null(data):
         messages.append(
             "The time-shuffled control gave no usable null (too few words measured in it), so "

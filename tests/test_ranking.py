@@ -107,6 +107,7 @@ def test_scores_follow_the_contract(geometry_run):
     assert params["params"] == {
         "between": ["2001", "2003"], "reference": "2001", "measure": "displacement", "k": 10,
         "alpha": 0.05, "anchors": None, "term_count": 20, "term_ratio": 10.0,
+        "anchor_trim": 0.0, "compare": "pair",
     }
     assert isinstance(params["control_flagged"], int)
 
@@ -254,10 +255,16 @@ def test_too_small_control_gives_a_descriptive_ranking(tmp_path, capsys):
             for name in ("control-a", "control-b")}
     root = write_array_run(tmp_path / "run", slices, tiny)
     scores = rank_run(root, k=5)
-    assert scores["z"].isna().all() and not scores["significant"].any()
-    assert "no z, p or q for this ranking: The control pair has only 30 measured words" in (
-        capsys.readouterr().err
-    )
+    assert scores["z"].isna().all() and scores["noise_z"].isna().all()
+    assert scores["significant"].isna().all()  # unknown, not False
+    assert scores["drift_z"].notna().all()  # the drift null needs no control
+    err = capsys.readouterr().err.replace("\n", " ")
+    assert "significance unavailable: " in err
+    assert "no noise null: The control pair has only 30 measured words" in err
+    assert (scores["significance_note"] == scores["significance_note"].iloc[0]).all()
+    assert scores["significance_note"].iloc[0].startswith("significance unavailable")
+    status = runfolder.read_manifest(root)["stages"]["rank"]["significance"]["status"]
+    assert status == "unavailable"
     assert scores["change_point"].isna().all()  # two slices: no change point
 
 
@@ -285,7 +292,6 @@ def test_between_reference_and_anchors(own_geometry_run, tmp_path):
         ({"reference": "1990"}, "--reference 1990 is not a slice"),
         ({"measure": "speed"}, "--measure speed is unknown"),
         ({"k": 0}, "--k must be a whole number"),
-        ({"k": 500}, "too few for --k 500"),
         ({"alpha": 1.5}, "--alpha must lie strictly between 0 and 1"),
         ({"anchors": "no-such-file.txt"}, "neither a number of words nor an existing"),
     ],
@@ -428,3 +434,40 @@ def test_real_text_null_flags_few_control_words(lee_run):
     assert stage["control_flagged"] <= 0.05 * len(scores)
     assert stage["seeds"] == [0]
     json.dumps(stage)
+
+
+def test_k_larger_than_the_vocabulary_is_lowered_with_a_note(geometry_run, tmp_path, capsys):
+    root, _ = geometry_run
+    copy = tmp_path / "run"
+    shutil.copytree(root, copy)
+    scores = rank_run(copy, k=500)
+    err = capsys.readouterr().err.replace("\n", " ")
+    assert "too few for --k 500" in err and "k = " in err
+    record = runfolder.read_manifest(copy)["stages"]["rank"]
+    assert record["params"]["k"] == 500 and record["k_used"] < 500
+    assert scores["turnover"].between(0, 1).all()
+
+
+def test_whole_timeline_finds_the_step_where_words_moved(geometry_run, tmp_path):
+    """--compare steps: the eight words moved between 2002 and 2003 (the fixture's truth), so
+    their largest calibrated step is that one, and they lead the ranking."""
+    root, _ = geometry_run
+    copy = tmp_path / "run"
+    shutil.copytree(root, copy)
+    scores = rank_run(copy, k=10, compare="steps", quiet=True)
+    moved = scores.set_index("word").loc[MOVED]
+    assert (moved["change_point"] == "2003").all()
+    assert set(scores.head(len(MOVED))["word"]) == set(MOVED)
+    assert moved["significant"].all()
+    assert scores["p"].between(0, 1).all()
+    # Bonferroni over the two steps: p is at least twice the smaller step's headline p.
+    assert (scores["p"] >= scores[["noise_p", "drift_p"]].max(axis=1) - 1e-12).all()
+    stable = scores[scores["word"].str.startswith("w")]
+    assert stable["significant"].sum() <= 2
+    assert runfolder.read_manifest(copy)["stages"]["rank"]["params"]["compare"] == "steps"
+
+
+def test_steps_needs_displacement(geometry_run):
+    root, _ = geometry_run
+    with pytest.raises(DriftError, match="--compare steps judges displacement"):
+        rank_run(root, compare="steps", measure="turnover", quiet=True)

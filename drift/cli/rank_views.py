@@ -175,11 +175,17 @@ def scores_table(
     kept, dropped = _fit(columns, width, order) if width else (columns, [])
     shown = {c.key for c in kept}
     notes = [
-        f"z: {measure} beyond what the word's frequency explains (control null); q: "
-        f"Benjamini-Hochberg q, * significant at alpha {params.get('alpha', 0.05)}."
+        f"z, q: the headline of two questions, both needed: did {measure} move beyond noise "
+        "(control pair: noise_z, noise_q) and more than words of its frequency and noisiness "
+        "moved here (drift null: drift_z, drift_q)? z is the smaller z, q the "
+        f"Benjamini-Hochberg q of the larger p; * significant at alpha "
+        f"{params.get('alpha', 0.05)}. scores.csv has both questions' numbers."
         if calibrated
-        else "No control pair in this run: no z, p or q; the ranking is descriptive."
+        else "No control pair in this run: no headline z, p or q (only the drift null's "
+        "drift_z, drift_q in scores.csv); the ranking is descriptive."
     ]
+    if len(rows) and "significance_note" in rows and str(rows["significance_note"].iloc[0]):
+        notes.append(str(rows["significance_note"].iloc[0]) + ".")
     if "count" in shown:
         notes.append(f"count: occurrences in {first} {ARROW} {last}.")
     if "change" in shown:
@@ -196,7 +202,7 @@ def scores_table(
         notes.append(f"Not shown at this width: {', '.join(dropped)} ({_WIDER}).")
     title = (
         f"Words that changed most from {first} to {last} "
-        f"(ranked by z: {measure} beyond what frequency explains)"
+        f"(ranked by z: {measure} beyond noise and beyond the archive's drift)"
         if calibrated
         else f"Words that changed most from {first} to {last} (ranked by {measure})"
     )
