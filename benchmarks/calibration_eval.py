@@ -27,6 +27,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import pickle
 import platform
 import sys
 import time
@@ -227,8 +228,15 @@ def candidate_scores(run: Path, trims: list[float]) -> dict[str, pd.DataFrame]:
         if all(f.exists() for f in files.values()):
             out.update({names[n]: pd.read_parquet(f) for n, f in files.items()})
             continue
-        measured = measure_run(inputs, pair, inputs.labels[0], 50, parse_anchors(None), trim,
-                               quiet=True)
+        kept = cache / f"measured-trim{trim}.pickle"  # a cache of this benchmark's own making
+        if kept.exists():
+            with kept.open("rb") as handle:
+                measured = pickle.load(handle)
+        else:
+            measured = measure_run(inputs, pair, inputs.labels[0], 50, parse_anchors(None), trim,
+                                   quiet=True)
+            with kept.open("wb") as handle:
+                pickle.dump(measured, handle)
         for name in wanted:
             measure, fields = CANDIDATES[name]
             options = CalibrationOptions(**fields)

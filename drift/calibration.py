@@ -14,12 +14,17 @@ generic words used in many unrelated contexts). drift therefore judges each word
   vector wanders between seeds wanders between slices too, for no reason of meaning. Without two
   seeds this covariate is left out.
 
-A null is a robust regression of the measure on these covariates (:func:`fit_null`): the centre
-is a least-squares fit on a quadratic surface of the two covariates, refitted after discarding
-points whose robust residual exceeds ``TRIM_Z`` (iterated, so that the words that really moved
-do not pull the centre up); the spread is a fit of the log squared residuals on the same surface,
-rescaled so that the median absolute standardised residual is that of a standard normal (0.6745).
-Then ``z = (value - centre) / spread`` and p is one-sided (larger means more change).
+A null is a robust regression of ``log(measure)`` on these covariates (:func:`fit_null`; on the
+log scale the standardised control residuals of the benchmark were close to normal, skew and
+excess kurtosis near 0, while on the measure's own scale they were skewed with a heavy tail): the
+centre is a median (least absolute deviation) fit of a quadratic surface of the two covariates,
+the spread a median fit of the log absolute residuals on a plane of the same covariates (a plane
+bends less at the edges, where a few movers could otherwise widen it); both are refitted after
+discarding points whose standardised residual exceeds ``TRIM_Z``, and the covariates are
+winsorised at their 1st and 99th percentiles, so that the words that really moved, even the most
+frequent ones, neither pull the centre up nor widen the spread. The spread is rescaled so that the
+median absolute standardised residual is that of a standard normal (0.6745). Then
+``z = (log value - centre) / spread`` and p is one-sided (larger means more change).
 
 The two questions:
 
@@ -128,11 +133,43 @@ def bh_qvalues(p: Any) -> np.ndarray:
 
 
 def _design(x_count: np.ndarray, x_noise: np.ndarray | None) -> np.ndarray:
-    """A quadratic surface in the covariates: 1, c, c^2 (and n, n^2, c*n)."""
-    columns = [np.ones_like(x_count), x_count, x_count**2]
+    """A quadratic surface in the covariates: 1, c, n, c^2, n^2, c*n (n only with noise)."""
+    columns = [np.ones_like(x_count), x_count]
     if x_noise is not None:
-        columns += [x_noise, x_noise**2, x_count * x_noise]
+        columns += [x_noise]
+    columns += [x_count**2]
+    if x_noise is not None:
+        columns += [x_noise**2, x_count * x_noise]
     return np.column_stack(columns)
+
+
+def _linear(design: np.ndarray) -> np.ndarray:
+    """The constant and linear columns of a :func:`_design` (the spread's plane)."""
+    return design[:, :3] if design.shape[1] == 6 else design[:, :2]
+
+
+#: Covariates are winsorised at these quantiles before the surfaces are fitted.
+COVARIATE_QUANTILES = (0.01, 0.99)
+
+
+def _inner_range(x: np.ndarray) -> tuple[float, float]:
+    low, high = np.quantile(x, COVARIATE_QUANTILES)
+    return float(low), float(high)
+
+
+def _median_fit(design: np.ndarray, y: np.ndarray, rounds: int = 30) -> np.ndarray:
+    """Least-absolute-deviation regression by iteratively reweighted least squares (weights
+    1 / |residual|, floored), started from ordinary least squares."""
+    coef = np.linalg.lstsq(design, y, rcond=None)[0]
+    floor = 1e-6 * max(float(np.std(y)), 1e-12)
+    for _ in range(rounds):
+        weight = 1.0 / np.maximum(np.abs(y - design @ coef), floor)
+        root = np.sqrt(weight)
+        new = np.linalg.lstsq(design * root[:, None], y * root, rcond=None)[0]
+        if np.allclose(new, coef, rtol=1e-6, atol=1e-9):
+            return new
+        coef = new
+    return coef
 
 
 def _robust_scale(residuals: np.ndarray) -> float:
@@ -180,7 +217,9 @@ class Null:
 
     def model_spread(self, count: Any, noise: Any = None) -> np.ndarray:
         """The spread (a standard deviation) on the modelled scale."""
-        return self.spread_scale * np.exp(0.5 * (self._x(count, noise) @ self.spread_coef))
+        return self.spread_scale * np.exp(
+            0.5 * (_linear(self._x(count, noise)) @ self.spread_coef)
+        )
 
     def centre(self, count: Any, noise: Any = None) -> np.ndarray:
         """The null's centre (its median) on the measure's own scale, for words of rarer-side
@@ -289,14 +328,26 @@ def fit_null(
         raise DriftError(
             f"Every word of the {what} has the same measure, so no null can be fitted."
         )
+    # Winsorise the covariates: a word beyond the 1st or 99th percentile is fitted (and later
+    # scored) at that percentile, so that a few extreme words (the most frequent, say, which may
+    # be the very words that moved) have no leverage on the surface's curvature.
+    count_range = _inner_range(xc)
+    xc = np.clip(xc, *count_range)
+    noise_range = None
+    if xn is not None:
+        noise_range = _inner_range(xn)
+        xn = np.clip(xn, *noise_range)
     design = _design(xc, xn)
     inside = np.ones(len(vals), dtype=bool)
     for _ in range(TRIM_ROUNDS):
-        coef = np.linalg.lstsq(design[inside], vals[inside], rcond=None)[0]
+        # Median (least absolute deviation) fits: a handful of words that moved far cannot pull
+        # the centre or inflate the spread towards themselves, even where they have leverage.
+        coef = _median_fit(design[inside], vals[inside])
         residual = vals - design @ coef
-        log_sq = np.log(np.maximum(residual[inside] ** 2, 1e-12))
-        spread_coef = np.linalg.lstsq(design[inside], log_sq, rcond=None)[0]
-        spread = np.exp(0.5 * (design @ spread_coef))
+        log_abs = np.log(np.maximum(np.abs(residual[inside]), 1e-12))
+        plane = _linear(design)
+        spread_coef = 2.0 * _median_fit(plane[inside], log_abs)
+        spread = np.exp(0.5 * (plane @ spread_coef))
         standard = residual / spread
         scale = _robust_scale(standard[inside])
         now_inside = np.abs(standard / scale) <= TRIM_Z
@@ -304,7 +355,7 @@ def fit_null(
             break
         inside = now_inside
     # Rescale so that the median |standardised residual| of the kept words is that of N(0, 1).
-    standard = (vals - design @ coef) / np.exp(0.5 * (design @ spread_coef))
+    standard = (vals - design @ coef) / np.exp(0.5 * (_linear(design) @ spread_coef))
     scale = float(np.median(np.abs(standard[inside]))) / HALF_NORMAL_MEDIAN
     scale = scale if scale > 0 else 1.0
     residuals = np.sort(standard / scale)
@@ -321,8 +372,7 @@ def fit_null(
     if shape_from is not None:
         return Null(
             centre_coef=coef, spread_coef=spread_coef, spread_scale=scale,
-            count_range=(float(xc.min()), float(xc.max())),
-            noise_range=(float(xn.min()), float(xn.max())) if xn is not None else None,
+            count_range=count_range, noise_range=noise_range,
             residuals=shape_from.residuals, tail=shape_from.tail,
             tail_threshold=shape_from.tail_threshold, tail_shape=shape_from.tail_shape,
             tail_scale=shape_from.tail_scale, words=int(len(vals)), kept=int(inside.sum()),
@@ -332,8 +382,8 @@ def fit_null(
         centre_coef=coef,
         spread_coef=spread_coef,
         spread_scale=scale,
-        count_range=(float(xc.min()), float(xc.max())),
-        noise_range=(float(xn.min()), float(xn.max())) if xn is not None else None,
+        count_range=count_range,
+        noise_range=noise_range,
         residuals=residuals,
         tail=tail,
         tail_threshold=float(threshold),

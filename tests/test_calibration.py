@@ -133,7 +133,7 @@ def test_planted_changes_are_found_and_z_is_frequency_fair():
 def test_noisy_words_are_judged_by_their_own_noise():
     """The same value is ordinary for a word with noisy seeds and extreme for a steady one."""
     null = fitted(7)
-    count, noisy, steady = 500.0, 0.5, 0.05
+    count, noisy, steady = 500.0, 0.3, 0.07  # both inside the bulk of the drawn noise
     xc, xn = np.log(count), noise_covariate(noisy)
     value = np.exp(true_centre(xc, xn) + 1.0 * true_spread(xc, xn))
     p = null.p_of_z(null.z([value, value], [count, count], [noisy, steady]))

@@ -240,7 +240,10 @@ def test_rank_without_control_is_descriptive(tmp_path, capsys):
     assert scores["displacement_sd"].isna().all()  # one seed: no spread
     assert "no control pair" in capsys.readouterr().err
     assert runfolder.read_manifest(root)["stages"]["rank"]["control_flagged"] is None
-    assert set(top_rows(scores, top=len(MOVED), min_count=30)["word"]) == set(MOVED)
+    # Ordered by the drift null's z (no control): the 8 planted movers among the first 10 of
+    # the words seen at least 30 times (about 100 words).
+    assert set(MOVED) <= set(top_rows(scores, top=len(MOVED) + 2, min_count=30)["word"])
+    assert scores["drift_z"].notna().all()
     assert read_timeline(root)["null_p95"].isna().all()
 
 
