@@ -241,10 +241,11 @@ def test_injected_targets_come_first(injected_run):
     shuffled = [average_precision(list(rng.permutation(by_z)), archive.targets)
                 for _ in range(2000)]
     assert observed > np.quantile(shuffled, 0.999), (observed, np.quantile(shuffled, 0.999))
-    # Every injected target moves more than the typical untouched word.
+    # Every strong target moves more than 90% of the untouched words: by chance alone each would
+    # with probability 0.1, all of them with probability 0.1 ** len(strong) (1e-6 for six).
     untouched = scores[~scores["word"].isin(archive.targets + archive.donors)]
-    median_z = untouched["z"].median()
-    assert (scores.set_index("word").loc[strong, "z"] > median_z + 2).all()
+    top_decile = untouched["z"].quantile(0.9)
+    assert (scores.set_index("word").loc[strong, "z"] > top_decile).all()
 
 
 @pytest.mark.slow
@@ -262,11 +263,12 @@ def test_frequency_only_changes_are_not_significant(injected_run):
 
 @pytest.mark.slow
 def test_shuffled_text_stays_calibrated(shuffled_run):
-    """Without injections the two slices differ by chance only: at most 5% of the words may be
-    significant at q <= 0.05 (Benjamini-Hochberg on a complete null lets through about none)."""
+    """Without injections the two slices differ by chance only: at most 1% of the words may be
+    significant at q <= 0.05, the level the README states (Benjamini-Hochberg on a complete null
+    lets through about none)."""
     scores, run = shuffled_run
     assert len(scores) > 1000
-    assert scores["significant"].mean() <= 0.05
+    assert scores["significant"].fillna(False).astype(bool).mean() <= 0.01
     assert scores["p"].between(0, 1).all()
     flagged = runfolder.read_manifest(run)["stages"]["rank"]["control_flagged"]
     assert flagged <= 0.05 * len(scores)
