@@ -420,6 +420,39 @@ def calibrate(
     A missing null (None) leaves its columns NaN. The headline needs both: with either missing,
     ``z``, ``p``, ``q`` are NaN and ``significant`` is missing (pandas NA), since the question
     the headline answers cannot be answered.
+
+    Parameters
+    ----------
+    values, count_from, count_to : array-like
+        One measure and one pair of counts (in the two compared slices) per word.
+    seed_noise : array-like, optional
+        Each word's seed-to-seed distance, when the nulls were fitted with it.
+    noise_null, drift_null : Null, optional
+        The nulls from :func:`fit_null` (control pair, and the pair's own words).
+    alpha : float
+        False discovery rate for ``significant``.
+
+    Returns
+    -------
+    pandas.DataFrame
+        The :data:`CALIBRATION_COLUMNS`, in the order of ``values``.
+
+    Raises
+    ------
+    DriftError
+        An ``alpha`` outside (0, 1), or a null that needs seed noise called without it.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> counts = rng.integers(20, 2000, 500).astype(float)
+    >>> values = np.exp(-1.0 - 0.1 * np.log(counts) + 0.2 * rng.standard_normal(500))
+    >>> null = fit_null(values, counts, counts)
+    >>> table = calibrate([values[0], 5.0], counts[:2], counts[:2],
+    ...                   noise_null=null, drift_null=null)
+    >>> table["significant"].tolist()
+    [False, True]
     """
     alpha = check_alpha(alpha)
     vals = np.asarray(values, dtype=float).ravel()

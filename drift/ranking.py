@@ -947,16 +947,63 @@ def rank_run(
 ) -> pd.DataFrame:
     """Score every word of the compared pair; write scores, timeline and terms; return scores.
 
-    ``term_count`` and ``term_ratio`` are the emerging/fading rule (see TERM_MIN_COUNT).
-    ``compare``: 'pair' (default) judges the change between the two compared slices; 'steps'
-    judges each word's largest calibrated step between adjacent slices over the whole timeline
-    (``change_point`` then names the slice after that step).
+    Aligns every slice onto the reference slice (orthogonal Procrustes), measures displacement,
+    neighbour turnover and local neighbourhood change between the two compared slices, and
+    calibrates them against frequency-matched nulls (z, p and Benjamini-Hochberg q; README.md,
+    "How to read significance"). Reuses the files of an earlier run with the same inputs and
+    parameters. Defaults and help texts of the options: :class:`drift.options.RankOptions`.
 
-    ``between``: the two compared slices (first and last by default); ``reference``: the slice
-    the timeline is measured against (the first by default); ``anchors``: a number N (the N most
-    frequent shared words), a word-list file path, or a list of words (all shared words by
-    default); ``anchor_trim``: share of the anchors that moved most left out of a refitted
-    alignment. Reuses the files of an earlier run with the same inputs and parameters.
+    Parameters
+    ----------
+    run : str or Path
+        A run folder trained with :func:`drift.train_run`.
+    between : pair of str, optional
+        The two compared slices (default: the first and the last).
+    reference : str, optional
+        The slice the timeline is measured against (default: the first).
+    measure : str
+        The ranking measure: ``displacement``, ``turnover``, ``local`` or ``combined``.
+    k : int
+        Neighbours per word for turnover and local change.
+    alpha : float
+        False discovery rate for ``significant``.
+    anchors : int, str or list of str, optional
+        Align on the N most frequent shared words, on the words of a file, or on a list of
+        words (default: every shared word).
+    anchor_trim : float
+        Share of the anchors that moved most left out of a refitted alignment (0: keep all).
+    compare : str
+        ``pair`` judges the change between the two compared slices; ``steps`` each word's
+        largest calibrated step between adjacent slices over the whole timeline
+        (``change_point`` then names the slice after that step).
+    quiet : bool
+        No progress bars or notes.
+    term_count, term_ratio : int, float
+        The emerging and fading rule: at least ``term_count`` uses where the word is common, and
+        a frequency per million at least ``term_ratio`` times that in the other slice.
+
+    Returns
+    -------
+    pandas.DataFrame
+        The scores (as :func:`read_scores` returns them): ordered by the headline ``z`` (both
+        nulls) when the run has a control pair, else by the drift null's ``drift_z``.
+
+    Raises
+    ------
+    DriftError
+        A value out of range (named as on the command line), an unknown slice (with close
+        matches), a run without models, a folder in use.
+
+    Examples
+    --------
+    >>> import drift
+    >>> scores = drift.rank_run(run, measure="turnover", k=10, quiet=True)
+    >>> bool((scores["score"] == scores["turnover"]).all())
+    True
+    >>> drift.rank_run(run, alpha=2)
+    Traceback (most recent call last):
+    ...
+    drift.errors.DriftError: --alpha must lie strictly between 0 and 1 (got 2); use e.g. 0.05.
     """
     started = time.perf_counter()
     _check_options(measure, k, alpha, anchor_trim, compare)
