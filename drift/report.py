@@ -888,10 +888,11 @@ averaged over seeds); gained, lost and turnover are counted among these {k}.</p>
 the control pair ({esc(a)} and {esc(b)} pooled and split at random, so without real change): 95%
 of control words this frequent moved less than its top edge. It is a per-slice line, not corrected
 for testing {len(data.scores):,} words at once, so a point above it is not by itself significant;
-the verdict uses q, which is corrected (Benjamini-Hochberg). p is read from the control's own
-distribution of standardised values (not a normal curve), so a large z can sit beside a modest
-p.{' The dotted line is the typical movement of words this frequent in this corpus.'
-   if 'typical' in data.timeline else ''}</p>
+the verdict uses q, which is corrected (Benjamini-Hochberg). z is measured on the log of the
+distance, against words of the same frequency and the same seed-to-seed noise, and the verdict
+needs both nulls: beyond noise, and beyond the corpus's own drift.{
+    ' The dotted line is the typical movement of words this frequent in this corpus.'
+    if 'typical' in data.timeline else ''}</p>
 {change_html(data, view)}
 <div class="figure">{parts["timeline"].html}</div>
 <h2 id="neighbours">Its neighbours in each slice</h2>
