@@ -15,7 +15,7 @@ Two steps, so that the trained models serve every candidate method:
 ``build`` makes, for each protocol seed, the text shuffled into four pseudo-years with eight
 target words given a second sense in the last year (a share of 0.4 to 0.8 of a donor word's
 occurrences become the target; Shoemark et al. 2019 protocol), and the same shuffle without any
-injection; and, once, the real dated change-log archive cut into four periods, trained twice
+injection; and, once, the real dated change-log archive cut into three periods, trained twice
 with different seeds. ``evaluate`` ranks every run with every candidate calibration and prints
 the figures issue #9 asks for.
 

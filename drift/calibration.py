@@ -9,10 +9,10 @@ generic words used in many unrelated contexts). drift therefore judges each word
   slices. A vector is only as stable as its less frequent side.
 - ``log(seed_noise)``: the word's own optimisation noise, the cosine distance between its
   vectors from two training seeds of the *same* model (aligned by Procrustes over the whole
-  vocabulary), averaged over the two compared slices and the two control models (four
-  measurements of one word's noisiness; the control's words get the same average). A word whose
-  vector wanders between seeds wanders between slices too, for no reason of meaning. Without two
-  seeds this covariate is left out.
+  vocabulary), the larger of its values in the two compared models (for the control's words:
+  in the two control models), averaged over seeds after the first. A word whose vector wanders
+  between seeds wanders between slices too, for no reason of meaning. Without two seeds this
+  covariate is left out.
 
 A null is a robust regression of ``log(measure)`` on these covariates (:func:`fit_null`; on the
 log scale the standardised control residuals of the benchmark were close to normal, skew and

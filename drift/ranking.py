@@ -322,10 +322,8 @@ class SeedResult:
     #: words x slices: each word's distance between this seed and the first seed of the same
     #: slice (None for the first seed itself)
     instability: np.ndarray | None = None
-    #: control words x 4: the same in control-a, control-b and the compared pair's two slices
+    #: control words x 2: the same for the two control models
     control_instability: np.ndarray | None = None
-    #: words x 2: the pair's words' seed distance in control-a and control-b
-    control_on_pair: np.ndarray | None = None
     #: words x (slices - 1): displacement between each slice and the next (for --compare steps)
     steps: np.ndarray | None = None
 
@@ -348,12 +346,14 @@ def measure_seed(
     advance: Any = None,
     first_seed: dict[str, SliceVectors] | None = None,
     trim: float = DEFAULT_ANCHOR_TRIM,
-) -> tuple[SeedResult, list[str], dict[str, SliceVectors]]:
+    notes: list[str] | None = None,
+) -> tuple[SeedResult, list[str], dict[str, SliceVectors], int]:
     """Load one seed's models, align, measure the pair, the timeline and the control pair.
 
     ``first_seed`` holds the first seed's models (slices and control); with it, each word's
     distance to its own vector of the first seed (its optimisation noise) is measured too.
-    Returns the result, the candidate words, and this seed's models (for ``first_seed``).
+    Returns the result, the candidate words, this seed's models (for ``first_seed``) and the k
+    used (lowered, with a line in ``notes``, when the slices share too few candidate words).
     """
     labels = inputs.labels
     slices = {label: load_slice_vectors(inputs.paths, label, seed) for label in labels}
@@ -365,6 +365,7 @@ def measure_seed(
                 "slices."
             )
     cand_words = candidate_words([slices[label] for label in labels])
+    k = usable_k(k, len(cand_words), "every slice", notes)
     cand_index = {w: i for i, w in enumerate(cand_words)}
     candidates = {label: s.vectors[s.rows(cand_words)] for label, s in slices.items()}
     neighbours = {}
@@ -414,26 +415,18 @@ def measure_seed(
         )
     del candidates, neighbours
 
-    control, control_instability, control_on_pair = None, None, None
+    control, control_instability = None, None
     if inputs.control:
         control, models = measure_control(inputs, seed, cand_words, k, anchors, advance, trim)
         if first_seed is not None:
-            # A word's noisiness is its own: the control models (trained on the same text as
-            # the pair) measure it again, so both the pair's words and the control's words get
-            # the mean of four seed distances (two slices, two control models).
             control_instability = np.column_stack(
                 [_instability_of(first_seed[name], models[name], control.words)
                  for name in CONTROL_NAMES]
-                + [_instability_of(first_seed[label], slices[label], control.words)
-                   for label in pair]
-            )
-            control_on_pair = np.column_stack(
-                [_instability_of(first_seed[name], models[name], words) for name in CONTROL_NAMES]
             )
         slices.update(models)
     result = SeedResult(pair_result, distance, turnover, control, instability,
-                        control_instability, control_on_pair, steps)
-    return result, cand_words, slices
+                        control_instability, steps)
+    return result, cand_words, slices, k
 
 
 def measure_control(
@@ -646,12 +639,9 @@ def measure_run(
             progress.advance(task)
 
         for seed in inputs.seeds:
-            if not cand_words:
-                every = [load_slice_vectors(inputs.paths, label, seed) for label in inputs.labels]
-                k = usable_k(k, len(candidate_words(every)), "every slice", notes)
-                del every
-            result, seed_cands, models = measure_seed(
-                inputs, seed, words, pair, reference, k, anchors, advance, seed_zero, trim
+            result, seed_cands, models, k = measure_seed(
+                inputs, seed, words, pair, reference, k, anchors, advance, seed_zero, trim,
+                notes,
             )
             if cand_words and seed_cands != cand_words:
                 raise DriftError(
@@ -682,9 +672,8 @@ class CalibrationOptions:
     """How the nulls are fitted (the defaults are the benchmark's winners; see the README)."""
 
     use_seed_noise: bool = True
-    #: how a word's seed distances are combined: 'max' of the two compared models (as the
-    #: rarer count: a word is as noisy as its noisier side), 'mean' of them, or 'four' (the
-    #: mean over both compared slices and both control models)
+    #: how a word's seed distances in the two compared models are combined: 'max' (as the
+    #: rarer count: a word is as noisy as its noisier side) or 'mean'
     noise: str = "max"
     #: fit the nulls to log(measure): the benchmark found its standardised control residuals
     #: close to normal (skew and excess kurtosis near 0), unlike the raw measure's (skewed)
@@ -711,11 +700,7 @@ def pair_seed_noise(
     if per_slice is None:
         return None
     a, b = (labels.index(x) for x in measured.pair)
-    parts = [per_slice[:, [a, b]]]
-    on_control = _mean_instability([r.control_on_pair for r in measured.results[1:]])
-    if how == "four" and on_control is not None:
-        parts.append(on_control)
-    return _combine_noise(np.column_stack(parts), how)
+    return _combine_noise(per_slice[:, [a, b]], how)
 
 
 def _noise_nulls(
@@ -741,8 +726,7 @@ def _noise_nulls(
     control_noise = _mean_instability([r.control_instability for r in measured.results[1:]])
     c_noise = None
     if with_noise and control_noise is not None:
-        columns = control_noise if options.noise == "four" else control_noise[:, :2]
-        c_noise = _combine_noise(columns, options.noise)
+        c_noise = _combine_noise(control_noise, options.noise)
     try:
         control_values, _ = mean_and_spread([c.value(measure) for c in controls])
         noise_null = fit_null(control_values, first.counts_from, first.counts_to, c_noise,
@@ -1141,13 +1125,10 @@ def assemble_scores(
     per_slice = _mean_instability([r.instability for r in results[1:]])
     if per_slice is not None and options.use_seed_noise:
         at_ref = inputs.labels.index(measured.reference)
-        reference_column = np.repeat(per_slice[:, [at_ref]], per_slice.shape[1], 1)
-        stacked = np.stack([per_slice, reference_column])
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)
-            timeline_noise = (
-                np.nanmax(stacked, 0) if options.noise == "max" else np.nanmean(stacked, 0)
-            )
+        timeline_noise = np.column_stack(
+            [_combine_noise(per_slice[:, [j, at_ref]], options.noise)
+             for j in range(per_slice.shape[1])]
+        )
     timeline = _timeline_frame(inputs, words, distance, distance_sd, turnover,
                                measured.reference, displacement_null, timeline_noise)
     scores = order_scores(scores)
