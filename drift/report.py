@@ -1188,9 +1188,10 @@ def report_page(
     tokens = int(data.summary["tokens"].sum()) if "tokens" in data.summary else 0
     significant = int(data.scores["significant"].fillna(False).astype(bool).sum())
     order_note = (
-        "by z, how far each word moved beyond what words of its frequency move in the control"
+        "by z, how far each word moved beyond both nulls: the control's noise, and what words "
+        "of its frequency and noisiness generally moved in this corpus"
         if data.scores["z"].notna().any()
-        else "by score (no control in this run)"
+        else "by the corpus drift null's z (no control in this run)"
     )
     body = f"""
 <nav><a href="word-index.html">All {len(data.scores):,} measured words</a></nav>
