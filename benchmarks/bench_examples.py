@@ -20,7 +20,7 @@ from pathlib import Path
 
 from gensim.test.utils import datapath
 
-from drift import evidence
+from drift.publish import evidence
 
 
 def build(folder: Path, size_mb: int) -> tuple[Path, list[str]]:

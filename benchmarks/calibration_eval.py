@@ -41,7 +41,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from real_text import documents as doc_text  # noqa: E402
 from real_text import write_dated_csv  # noqa: E402
 
-from drift.injection import (  # noqa: E402
+from drift.validate.injection import (  # noqa: E402
     InjectedArchive,
     build_archive,
     choose_pairs,
@@ -49,7 +49,7 @@ from drift.injection import (  # noqa: E402
     reference_documents,
     word_counts,
 )
-from drift.injection import write_dated_csv as write_protocol_csv  # noqa: E402
+from drift.validate.injection import write_dated_csv as write_protocol_csv  # noqa: E402
 
 #: Four pseudo-years; the change is injected into the last one only.
 SLICES = 4
@@ -90,8 +90,8 @@ def _truth(archive: InjectedArchive) -> dict:
 
 
 def build(args: argparse.Namespace) -> None:
-    from drift.slicing import slice_archive
-    from drift.training import train_run
+    from drift.embed.training import train_run
+    from drift.ingest.slicing import slice_archive
 
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
@@ -169,7 +169,7 @@ DOCUMENTED = {
     "token": "a lexer or parser token -> an access or authentication token",
 }
 
-#: Candidate calibrations: name -> (measure, drift.ranking.CalibrationOptions fields).
+#: Candidate calibrations: name -> (measure, drift.compare.ranking.CalibrationOptions fields).
 CANDIDATES = {
     "count only, pareto tail": (
         "displacement", dict(use_seed_noise=False, log_scale=False, tail="pareto")),
@@ -184,8 +184,8 @@ DEFAULT_CANDIDATE = "count+noise, log scale, normal tail"
 
 BASELINE_CODE = """
 import sys
-from drift.ranking import read_run_inputs, compute_scores
-from drift.alignment import parse_anchors
+from drift.compare.ranking import read_run_inputs, compute_scores
+from drift.compare.alignment import parse_anchors
 inputs = read_run_inputs(sys.argv[1])
 pair = (inputs.labels[0], inputs.labels[-1])
 scores, *_ = compute_scores(inputs, pair, inputs.labels[0], "displacement", 50, 0.05,
@@ -213,8 +213,13 @@ def _slug(name: str) -> str:
 def candidate_scores(run: Path, trims: list[float]) -> dict[str, pd.DataFrame]:
     """Scores of every candidate calibration (and anchor trim) on one trained run; kept beside
     the run (``scores-<candidate>.parquet``) so that a second evaluation reads them."""
-    from drift.alignment import parse_anchors
-    from drift.ranking import CalibrationOptions, assemble_scores, measure_run, read_run_inputs
+    from drift.compare.alignment import parse_anchors
+    from drift.compare.ranking import (
+        CalibrationOptions,
+        assemble_scores,
+        measure_run,
+        read_run_inputs,
+    )
 
     cache = run.parent / f"candidates-{run.name}"
     cache.mkdir(exist_ok=True)
@@ -261,7 +266,7 @@ def _frequency_rho(scores: pd.DataFrame) -> float:
 
 
 def injected_row(scores: pd.DataFrame, truth: dict) -> dict:
-    from drift.injection import evaluate as eval_protocol
+    from drift.validate.injection import evaluate as eval_protocol
 
     targets = [t for t, _ in truth["pairs"]]
     donors = [d for _, d in truth["pairs"]]

@@ -29,7 +29,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from drift.injection import (
+from drift.validate.injection import (
     ProtocolSettings,
     plan_archive,
     protocol_table,

@@ -14,7 +14,7 @@ temporary folder under /tmp, then runs, each in its own subprocess:
 - ``bare``: for every model, unit-normalise and find every word's top-k neighbours among all
   words of that model, in blocks of the same memory budget as drift (64 MiB of float32
   similarities), with a matrix product and ``np.argpartition`` per block. Nothing else.
-- ``rank``: ``drift.ranking.rank_run`` on the run (alignment, every measure, the timeline,
+- ``rank``: ``drift.compare.ranking.rank_run`` on the run (alignment, every measure, the timeline,
   change points, gained/lost, terms, writing the parquet and csv files).
 
 and reports wall seconds and peak resident memory (``ru_maxrss`` from ``os.wait4``) of each,
@@ -46,7 +46,7 @@ def build_run(root: Path, slices: int, words: int, dim: int, seeds: int, control
     import pandas as pd
 
     from drift import runfolder
-    from drift.training import save_model
+    from drift.embed.training import save_model
 
     rng = np.random.default_rng(0)
     paths = runfolder.prepare_run_folder(root)
@@ -128,7 +128,7 @@ def main() -> None:
     parser.add_argument("--once", action="store_true", help="one bare run instead of two")
     parser.add_argument("--k", type=int, default=None, help="default: drift's DEFAULT_K")
     args = parser.parse_args()
-    from drift.ranking import DEFAULT_K
+    from drift.compare.ranking import DEFAULT_K
 
     k = args.k or DEFAULT_K
 
@@ -139,7 +139,7 @@ def main() -> None:
         print(json.dumps({"models": bare_top_k(args.root, k)}))
         return
     if args.phase == "rank":
-        from drift.ranking import rank_run
+        from drift.compare.ranking import rank_run
 
         scores = rank_run(args.root, k=k, quiet=True)
         print(json.dumps({"words": len(scores)}))

@@ -112,7 +112,7 @@ def main() -> None:
     parser.add_argument("--threads", type=int, default=0, help=argparse.SUPPRESS)
     args = parser.parse_args()
 
-    from drift.engines import available_cores
+    from drift.embed.engines import available_cores
 
     cores = available_cores()
     if args.bare:

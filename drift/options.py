@@ -28,7 +28,8 @@ The shared checks are plain functions that return the cleaned value:
 from __future__ import annotations
 
 import dataclasses
-from collections.abc import Callable, Sequence
+import re
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -289,9 +290,65 @@ def _columns(value: Any, option: str) -> tuple[str, ...]:
     return tuple(dict.fromkeys(names))
 
 
-def _where(value: Any) -> tuple[str, ...]:
-    from drift.documents import parse_where
+# ---------------------------------------------------------------------------- --where
 
+
+@dataclass(frozen=True)
+class WhereClause:
+    """Keep documents whose ``column`` is (``keep=True``) or is not one of ``values``."""
+
+    column: str
+    values: tuple[str, ...]
+    keep: bool
+
+    def text(self) -> str:
+        return f"{self.column}{'=' if self.keep else '!='}{','.join(self.values)}"
+
+
+_WHERE_RE = re.compile(r"^\s*([^=!]+?)\s*(!=|=)\s*(.*)$")
+
+
+def parse_where(specs: Iterable[str] | str | None) -> tuple[WhereClause, ...]:
+    """Read ``--where`` values such as ``source=gazette``, ``source!=letter,minutes``.
+
+    Parameters
+    ----------
+    specs : str or iterable of str, optional
+        One condition or several (all must hold).
+
+    Returns
+    -------
+    tuple of WhereClause
+
+    Raises
+    ------
+    DriftError
+        A condition that is not ``column=value`` or ``column!=value``.
+
+    Examples
+    --------
+    >>> [c.text() for c in parse_where(["source!=letter,minutes", "lang = en"])]
+    ['source!=letter,minutes', 'lang=en']
+    """
+    if specs is None:
+        return ()
+    if isinstance(specs, str):
+        specs = [specs]
+    clauses = []
+    for spec in specs:
+        match = _WHERE_RE.match(str(spec))
+        values = tuple(v.strip() for v in match.group(3).split(",")) if match else ()
+        if not match or not any(values):
+            raise DriftError(
+                f"--where {spec} is not understood; write column=value or column!=value "
+                "(several values separated by commas), e.g. --where source!=letter."
+            )
+        clauses.append(WhereClause(match.group(1), tuple(v for v in values if v),
+                                   match.group(2) == "="))
+    return tuple(clauses)
+
+
+def _where(value: Any) -> tuple[str, ...]:
     specs = (value,) if isinstance(value, str) else tuple(value)
     parse_where(specs)  # a malformed condition is an error here, before any reading
     return specs

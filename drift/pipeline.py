@@ -102,10 +102,10 @@ def run_all(
     """
     import time
 
-    from drift.ranking import rank_run
-    from drift.report import build_report
-    from drift.slicing import slice_archive
-    from drift.training import train_run
+    from drift.compare.ranking import rank_run
+    from drift.embed.training import train_run
+    from drift.ingest.slicing import slice_archive
+    from drift.publish.report import build_report
 
     seconds: dict[str, float] = {}
     started = time.perf_counter()

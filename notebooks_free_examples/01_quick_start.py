@@ -12,11 +12,11 @@ from __future__ import annotations
 
 import argparse
 
+from drift.compare.ranking import rank_run
+from drift.embed.training import train_run
+from drift.ingest.slicing import slice_archive
 from drift.pipeline import demo_archive
-from drift.ranking import rank_run
-from drift.report import chart_word
-from drift.slicing import slice_archive
-from drift.training import train_run
+from drift.publish.report import chart_word
 
 
 def main() -> None:

@@ -19,10 +19,10 @@ from pathlib import Path
 
 from scipy.stats import spearmanr
 
+from drift.compare.ranking import rank_run
+from drift.embed.training import train_run
+from drift.ingest.slicing import slice_archive
 from drift.pipeline import demo_archive
-from drift.ranking import rank_run
-from drift.slicing import slice_archive
-from drift.training import train_run
 
 
 def main() -> None:

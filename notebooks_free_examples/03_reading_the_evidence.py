@@ -11,11 +11,11 @@ from __future__ import annotations
 
 import argparse
 
-from drift.evidence import example_sentences
+from drift.compare.ranking import rank_record, rank_run, read_timeline
+from drift.embed.training import train_run
+from drift.ingest.slicing import slice_archive
 from drift.pipeline import demo_archive
-from drift.ranking import rank_record, rank_run, read_timeline
-from drift.slicing import slice_archive
-from drift.training import train_run
+from drift.publish.evidence import example_sentences
 
 
 def main() -> None:

@@ -27,8 +27,8 @@ from scipy import stats
 from scipy.linalg import orthogonal_procrustes
 
 from drift import runfolder
-from drift.neighbours import write_neighbours_table
-from drift.training import save_keyed_vectors
+from drift.compare.neighbours import write_neighbours_table
+from drift.embed.training import save_keyed_vectors
 
 LABELS = ("2001", "2002", "2003")
 SEEDS = 2
@@ -180,7 +180,7 @@ def build_fixture_run(root: Path) -> Path:
         text.write_text("\n".join(lines) + "\n", encoding="utf-8")
         control[name] = [_train(text, paths.control_model_file(name, seed), seed)
                          for seed in range(SEEDS)]
-    # recorded the way drift.training records it (params.seeds, labels, control)
+    # recorded the way drift.embed.training records it (params.seeds, labels, control)
     runfolder.record_stage(
         root,
         "train",
@@ -329,7 +329,7 @@ def build_fixture_run(root: Path) -> Path:
         }
     )
     pd.DataFrame(term_rows).to_parquet(paths.terms_parquet, index=False)
-    # The neighbours table through the rank stage's own writer (drift.neighbours).
+    # The neighbours table through the rank stage's own writer (drift.compare.neighbours).
     write_neighbours_table(root, list(scores["word"]))
     runfolder.record_stage(
         root,

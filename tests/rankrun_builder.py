@@ -23,7 +23,7 @@ from gensim.models import KeyedVectors, Word2Vec
 from gensim.test.utils import datapath
 
 from drift import runfolder
-from drift.training import save_keyed_vectors
+from drift.embed.training import save_keyed_vectors
 
 _TOKEN_RE = re.compile(r"[a-z]+")
 

@@ -10,7 +10,7 @@ from scipy.linalg import orthogonal_procrustes
 from scipy.spatial.distance import cosine
 from scipy.stats import ortho_group
 
-from drift.alignment import (
+from drift.compare.alignment import (
     SliceVectors,
     align_onto,
     anchor_words,

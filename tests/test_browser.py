@@ -23,7 +23,7 @@ from pathlib import Path
 import pytest
 from chart_run_fixture import HOSTILE_WORDS, fixture_run_copy
 
-from drift import report
+from drift.publish import report
 
 pytestmark = pytest.mark.browser
 

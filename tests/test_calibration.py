@@ -15,7 +15,7 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from drift.calibration import (
+from drift.compare.calibration import (
     CALIBRATION_COLUMNS,
     bh_qvalues,
     calibrate,

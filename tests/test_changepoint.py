@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
-from drift.changepoint import change_points, mean_shifts, standardise_by_slice
+from drift.compare.changepoint import change_points, mean_shifts, standardise_by_slice
 
 
 def _mean_shifts_by_loop(series):
@@ -68,7 +68,8 @@ def test_planted_step_is_found_among_noisy_words():
 @pytest.mark.xfail(
     strict=True,
     reason="known defect: on timelines standardised by slice, 5 of 200 planted 13-sd steps are "
-    "placed one slice early (seeds 3, 4, 8, 17, 18); the fix belongs to drift/changepoint.py",
+    "placed one slice early (seeds 3, 4, 8, 17, 18); the fix belongs to "
+    "drift/compare/changepoint.py",
 )
 def test_every_planted_step_is_placed_where_it_was_planted():
     misplaced = sum(int(np.sum(change_points(_planted(seed))[0][:10] != 4)) for seed in SEEDS)
@@ -78,7 +79,7 @@ def test_every_planted_step_is_placed_where_it_was_planted():
 @pytest.mark.xfail(
     strict=True,
     reason="known defect: on pure noise about 41% of change points fall on the last boundary "
-    "(the unscaled mean shift favours the ends); the fix belongs to drift/changepoint.py",
+    "(the unscaled mean shift favours the ends); the fix belongs to drift/compare/changepoint.py",
 )
 def test_stable_words_spread_over_the_boundaries_across_seeds():
     """Pure noise after standardising: no boundary should attract the change points. Over 20

@@ -12,10 +12,10 @@ import plotly.graph_objects as go
 import pytest
 from chart_run_fixture import HOSTILE_WORDS, LABELS, fixture_run_copy
 
-from drift import charts
+from drift.embed.training import read_keyed_vectors
+from drift.publish import charts
+from drift.publish.wordviews import ChangeRange
 from drift.runfolder import RunPaths
-from drift.training import read_keyed_vectors
-from drift.wordviews import ChangeRange
 
 WORD = "government"
 
@@ -356,7 +356,8 @@ def test_terms_lines_differ_by_colour_dash_and_marker_across_both_panels(run):
 
 
 def geometry(run):
-    from drift import neighbours, wordviews
+    from drift.compare import neighbours
+    from drift.publish import wordviews
 
     models = neighbours.load_run_models(run)
     near = neighbours.neighbours_for(run, [WORD], 10, models=models)

@@ -11,8 +11,9 @@ import sys
 import pandas as pd
 import pytest
 
-from drift import documents, report
+from drift.ingest import documents
 from drift.pipeline import planted_words
+from drift.publish import report
 
 pytestmark = pytest.mark.slow
 

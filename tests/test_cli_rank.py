@@ -187,7 +187,7 @@ def _render(table, width):
 
 def test_scores_table_fits_80_columns_without_cutting_words(run):
     from drift.cli.rank_views import DROP_ORDER, SHOWN_NEIGHBOURS, scores_table
-    from drift.ranking import rank_record, rank_run
+    from drift.compare.ranking import rank_record, rank_run
 
     rows = rank_run(run, k=8, quiet=True).head(4).copy()
     rows.loc[rows.index[0], "word"] = "counterrevolutionaries"  # longer than any column's share
@@ -219,7 +219,7 @@ def test_scores_table_fits_80_columns_without_cutting_words(run):
 
 def test_scores_table_whole_when_no_width(run):
     from drift.cli.rank_views import scores_table
-    from drift.ranking import rank_record, rank_run
+    from drift.compare.ranking import rank_record, rank_run
 
     rows = rank_run(run, k=8, quiet=True).head(3)
     table = scores_table(rows, rank_record(run)["params"], True, None)
@@ -251,7 +251,7 @@ def test_piped_tables_are_whole(run, capsys, tmp_path, command):
 
 def test_neighbours_table_drops_inner_slices_first(run):
     from drift.cli.rank_views import neighbours_table
-    from drift.ranking import neighbours_by_slice
+    from drift.compare.ranking import neighbours_by_slice
 
     frame = neighbours_by_slice(run, "harbour", k=3)
     table = neighbours_table("harbour", frame, list(LABELS), 40)

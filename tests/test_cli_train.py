@@ -13,8 +13,9 @@ from pathlib import Path
 import pytest
 from train_fixtures import lee_run
 
-from drift import engines, runfolder, training
+from drift import runfolder
 from drift.cli import main
+from drift.embed import engines, training
 from drift.runfolder import RunPaths
 
 TINY_ARGS = ["--dim", "8", "--epochs", "1", "--min-count", "2", "--workers", "1", "--quiet"]
@@ -122,7 +123,7 @@ def _finished(root: Path) -> dict[str, int]:
 #: parent has received the KILL_AFTER-th finished model: a kill at a known point, not a race.
 _KILLED_TRAIN = """
 import os, signal, sys
-from drift import training
+from drift.embed import training
 from drift.cli import main
 
 received = 0
@@ -169,7 +170,7 @@ def test_a_killed_run_resumes_without_retraining_finished_models(run):
     assert 2 <= len(done_before) < expected
 
     # nothing half-written where a finished model is expected: every .npy present loads
-    from drift.training import read_keyed_vectors
+    from drift.embed.training import read_keyed_vectors
 
     for model in run.rglob("seed-*.npy"):
         assert len(read_keyed_vectors(model)) > 0

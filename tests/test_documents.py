@@ -11,10 +11,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from drift import documents
 from drift.errors import DriftError
-from drift.slicing import slice_archive
-from drift.tokenize import tokenize_lines
+from drift.ingest import documents
+from drift.ingest.slicing import slice_archive
+from drift.ingest.tokenize import tokenize_lines
 
 GENSIM_DATA = Path(gensim.__file__).parent / "test" / "test_data"
 LEE = (GENSIM_DATA / "lee_background.cor").read_text(encoding="utf-8").splitlines()

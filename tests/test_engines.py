@@ -10,7 +10,8 @@ import pytest
 from engine_tasks import die, square
 from train_fixtures import copy_run, lee_run
 
-from drift import engines, runfolder, training
+from drift import runfolder
+from drift.embed import engines, training
 from drift.errors import DriftError
 from drift.runfolder import RunPaths
 

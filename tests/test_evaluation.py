@@ -11,10 +11,10 @@ import pytest
 from chart_run_fixture import fixture_run_copy
 from typer.testing import CliRunner
 
-from drift import evaluation
 from drift.cli.app import app
+from drift.compare.ranking import read_scores
 from drift.errors import DriftError
-from drift.ranking import read_scores
+from drift.validate import evaluation
 
 # The worked example of Spearman's rank correlation in the Wikipedia article "Spearman's rank
 # correlation coefficient" (values recalled from memory): IQ and hours of television per week of

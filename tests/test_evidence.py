@@ -11,8 +11,8 @@ import pytest
 from chart_run_fixture import HOSTILE_WORDS, LABELS, fixture_run_copy
 from scipy import stats
 
-from drift import evidence
 from drift.errors import DriftError
+from drift.publish import evidence
 from drift.runfolder import RunPaths
 
 

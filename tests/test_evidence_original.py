@@ -14,9 +14,9 @@ import pandas as pd
 import pytest
 from typer.testing import CliRunner
 
-from drift import evidence, report
 from drift.cli.app import app
-from drift.slicing import slice_archive
+from drift.ingest.slicing import slice_archive
+from drift.publish import evidence, report
 
 GENSIM_DATA = Path(gensim.__file__).parent / "test" / "test_data"
 LEE = (GENSIM_DATA / "lee_background.cor").read_text(encoding="utf-8").splitlines()

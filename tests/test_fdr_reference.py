@@ -5,9 +5,9 @@ and powerful approach to multiple testing", J. R. Statist. Soc. B 57(1), 289-300
 15 ordered p values of a multiple-endpoint clinical trial (values recalled from memory). At
 q* = 0.05 the step-up procedure rejects the four smallest, Bonferroni only three.
 
-drift's q values come from ``drift.calibration.bh_qvalues`` where it exists, else from
-``scipy.stats.false_discovery_control`` (method "bh"), which ``drift.calibration`` calls; either
-way the expected figures below are computed by hand, not by the code under test.
+drift's q values come from ``drift.compare.calibration.bh_qvalues`` where it exists, else from
+``scipy.stats.false_discovery_control`` (method "bh"), which ``drift.compare.calibration`` calls;
+either way the expected figures below are computed by hand, not by the code under test.
 """
 
 from __future__ import annotations
@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from drift import calibration
+from drift.compare import calibration
 
 PAPER_P = np.array([
     0.0001, 0.0004, 0.0019, 0.0095, 0.0201, 0.0278, 0.0298, 0.0344,

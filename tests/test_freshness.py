@@ -15,9 +15,9 @@ import pytest
 
 from drift import runfolder
 from drift.cli import main
+from drift.compare.ranking import read_scores
 from drift.errors import DriftError
 from drift.pipeline import run_all
-from drift.ranking import read_scores
 
 TINY_TRAIN = {"dim": 10, "epochs": 1, "seeds": 1, "min_count": 5, "workers": 1}
 
@@ -230,7 +230,7 @@ def test_train_to_rank_boundary_chart_after_a_retrain(run, capsys):
 def test_rank_to_neighbours_boundary(run, capsys):
     """neighbours.parquet (written by rank) is not shown once the models changed: the
     neighbours are recomputed from the models there now."""
-    from drift import neighbours
+    from drift.compare import neighbours
 
     stored = neighbours.read_neighbours(run)
     word = str(stored["word"].iloc[0])

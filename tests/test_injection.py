@@ -15,8 +15,9 @@ import pandas as pd
 import pytest
 
 from drift import runfolder
+from drift.compare.ranking import DEFAULT_K, DEFAULT_MEASURE
 from drift.errors import DriftError
-from drift.injection import (
+from drift.validate.injection import (
     ProtocolSettings,
     assign_random_slices,
     average_precision,
@@ -34,7 +35,6 @@ from drift.injection import (
     word_counts,
     write_dated_csv,
 )
-from drift.ranking import DEFAULT_K, DEFAULT_MEASURE
 
 
 @pytest.fixture(scope="session")

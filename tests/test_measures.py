@@ -11,8 +11,8 @@ from rankrun_builder import lee_documents
 from scipy.spatial.distance import cosine, jaccard
 from scipy.stats import ortho_group
 
-from drift.alignment import prepare_vectors, unit_rows
-from drift.measures import (
+from drift.compare.alignment import prepare_vectors, unit_rows
+from drift.compare.measures import (
     block_rows_for,
     consensus_neighbours,
     cosine_distance_rows,

@@ -11,11 +11,11 @@ import pytest
 from chart_run_fixture import LABELS, SEEDS, fixture_run_copy
 from scipy.spatial.distance import cdist
 
-from drift import neighbours
-from drift.alignment import prepare_vectors
+from drift.compare import neighbours
+from drift.compare.alignment import prepare_vectors
+from drift.embed.training import read_keyed_vectors
 from drift.errors import DriftError
 from drift.runfolder import RunPaths
-from drift.training import read_keyed_vectors
 
 WORD = "government"
 
@@ -26,17 +26,17 @@ def run(tmp_path_factory) -> Path:
 
 
 def count_model_loads(monkeypatch) -> Counter:
-    """Count every model load (drift.training.load_vectors is the one way models are read)."""
-    import drift.training
+    """Count every model load (drift.embed.training.load_vectors is the one way models are read)."""
+    import drift.embed.training
 
     loads: Counter = Counter()
-    real = drift.training.load_vectors
+    real = drift.embed.training.load_vectors
 
     def counted(run, label, seed, control=False):
         loads[(label, seed, control)] += 1
         return real(run, label, seed, control=control)
 
-    monkeypatch.setattr(drift.training, "load_vectors", counted)
+    monkeypatch.setattr(drift.embed.training, "load_vectors", counted)
     return loads
 
 

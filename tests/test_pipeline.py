@@ -12,10 +12,10 @@ import json
 import subprocess
 import sys
 
+from drift.compare.ranking import read_scores, read_terms
+from drift.embed.training import train_run
+from drift.ingest.slicing import read_summary
 from drift.pipeline import DEMO_DIR, planted_words, run_all
-from drift.ranking import read_scores, read_terms
-from drift.slicing import read_summary
-from drift.training import train_run
 
 
 def test_demo_prints_the_top_words_and_the_report(demo_run):

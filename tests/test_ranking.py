@@ -14,8 +14,7 @@ from rankrun_builder import lee_documents, write_array_run, write_text_run
 from scipy.stats import ortho_group, spearmanr
 
 from drift import runfolder
-from drift.errors import DriftError
-from drift.ranking import (
+from drift.compare.ranking import (
     SCORE_COLUMNS,
     TIMELINE_COLUMNS,
     export_vectors,
@@ -26,6 +25,7 @@ from drift.ranking import (
     read_timeline,
     top_rows,
 )
+from drift.errors import DriftError
 
 LABELS = ("2001", "2002", "2003")
 MOVED = [f"moved{i}" for i in range(8)]
@@ -334,7 +334,7 @@ def test_neighbours_by_slice(geometry_run):
         assert "moved0" not in set(group["neighbour"])
     # Seed-averaged cosine of the prepared vectors, recomputed here with gensim's loader.
     paths = runfolder.RunPaths(root)
-    from drift.alignment import prepare_vectors
+    from drift.compare.alignment import prepare_vectors
 
     sims = []
     for seed in (0, 1):

@@ -15,9 +15,9 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-import drift.readers as readers
+import drift.ingest.readers as readers
 from drift.errors import DriftError
-from drift.readers import (
+from drift.ingest.readers import (
     date_from_name,
     detect_compression,
     detect_format,

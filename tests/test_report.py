@@ -15,9 +15,10 @@ import pytest
 from chart_run_fixture import HOSTILE_WORDS, LABELS, fixture_run_copy
 from plotly.offline import get_plotlyjs
 
-from drift import report, runfolder
+from drift import runfolder
 from drift.cli import main
 from drift.errors import DriftError
+from drift.publish import report
 from drift.runfolder import RunPaths
 
 WORD = "government"
@@ -93,7 +94,7 @@ def test_word_page_shows_the_scores_row(run):
 
 
 def test_word_page_draws_the_rank_stages_neighbours(run):
-    from drift.ranking import neighbours_by_slice
+    from drift.compare.ranking import neighbours_by_slice
 
     page = report.chart_word(run, WORD, k=7).read_text(encoding="utf-8")
     table = neighbours_by_slice(run, WORD, k=7)
@@ -112,7 +113,7 @@ def neighbour_cells(page: str) -> dict[str, list[str]]:
 
 
 def test_word_page_lists_the_neighbours_per_slice_in_a_table(run):
-    from drift.neighbours import read_neighbours
+    from drift.compare.neighbours import read_neighbours
 
     page = report.chart_word(run, WORD, k=7).read_text(encoding="utf-8")
     stored = read_neighbours(run)
@@ -124,7 +125,7 @@ def test_word_page_lists_the_neighbours_per_slice_in_a_table(run):
 
 
 def test_word_page_states_one_k_and_counts_turnover_at_it(run):
-    from drift.neighbours import read_neighbours
+    from drift.compare.neighbours import read_neighbours
 
     stored = read_neighbours(run)
     for k in (5, 10):
@@ -470,7 +471,7 @@ def test_a_stable_word_shows_no_change_point_and_no_noise_lists(tmp_path):
 
 
 def test_a_significant_word_says_how_and_when_it_changed(tmp_path):
-    from drift.neighbours import read_neighbours
+    from drift.compare.neighbours import read_neighbours
 
     run = edited_run(tmp_path, significant=True, change_point=LABELS[2], change_step=0.3)
     page = report.chart_word(run, WORD).read_text(encoding="utf-8")
@@ -592,17 +593,17 @@ def test_a_report_of_twenty_words_loads_each_model_once(tmp_path, monkeypatch):
     import pandas as pd
     from chart_run_fixture import SEEDS
 
-    import drift.training
+    import drift.embed.training
 
     run = fixture_run_copy(tmp_path / "run")
     loads: Counter = Counter()
-    real = drift.training.load_vectors
+    real = drift.embed.training.load_vectors
 
     def counted(run, label, seed, control=False):
         loads[(label, seed, control)] += 1
         return real(run, label, seed, control=control)
 
-    monkeypatch.setattr(drift.training, "load_vectors", counted)
+    monkeypatch.setattr(drift.embed.training, "load_vectors", counted)
     report.build_report(run, top=20)
     terms = pd.read_parquet(RunPaths(run).terms_parquet)
     listed = {w for kind in ("emerging", "fading") for w in report.shown_terms(terms, kind)["word"]}

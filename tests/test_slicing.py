@@ -15,11 +15,11 @@ import pandas as pd
 import pytest
 from gensim.models.word2vec import LineSentence
 
-import drift.readers as readers
-import drift.slicing as slicing
+import drift.ingest.readers as readers
+import drift.ingest.slicing as slicing
 from drift import runfolder
 from drift.errors import DriftError
-from drift.slicing import (
+from drift.ingest.slicing import (
     even_bins,
     label_for_range,
     parse_balance,
@@ -30,8 +30,8 @@ from drift.slicing import (
     slice_labels,
     slice_warnings,
 )
-from drift.timeparse import iso_to_day
-from drift.tokenize import MAX_LINE_TOKENS, tokenize
+from drift.ingest.timeparse import iso_to_day
+from drift.ingest.tokenize import MAX_LINE_TOKENS, tokenize
 
 GENSIM_DATA = Path(gensim.__file__).parent / "test" / "test_data"
 LEE = (GENSIM_DATA / "lee_background.cor").read_text(encoding="utf-8").splitlines()

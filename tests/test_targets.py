@@ -9,10 +9,12 @@ import pytest
 from chart_run_fixture import fixture_run_copy
 from typer.testing import CliRunner
 
-from drift import report, runfolder, targets
+from drift import runfolder
 from drift.cli.app import app
+from drift.compare import targets
+from drift.compare.ranking import read_scores, read_terms
 from drift.errors import DriftError
-from drift.ranking import read_scores, read_terms
+from drift.publish import report
 
 
 @pytest.fixture(scope="module")

@@ -12,7 +12,14 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from drift.errors import DriftError
-from drift.timeparse import BadDates, day_to_iso, days_from_parts, iso_to_day, parse_times, year_of
+from drift.ingest.timeparse import (
+    BadDates,
+    day_to_iso,
+    days_from_parts,
+    iso_to_day,
+    parse_times,
+    year_of,
+)
 
 EPOCH = dt.date(1970, 1, 1)
 

@@ -13,7 +13,7 @@ from gensim.models.word2vec import LineSentence
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from drift.tokenize import (
+from drift.ingest.tokenize import (
     MAX_LINE_TOKENS,
     split_long_line,
     tokenize,

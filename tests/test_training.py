@@ -21,7 +21,8 @@ from train_fixtures import (
     wiki_lines,
 )
 
-from drift import runfolder, training
+from drift import runfolder
+from drift.embed import training
 from drift.errors import DriftError
 from drift.runfolder import RunPaths
 
@@ -196,7 +197,7 @@ def test_every_task_reports_its_progress_from_the_worker_processes(trained, tmp_
 
 def test_stable_hash_is_the_same_in_every_process():
     # gensim's default hashfxn is Python's hash(), salted per process unless PYTHONHASHSEED is set
-    code = "from drift.training import stable_hash; print(stable_hash('river'))"
+    code = "from drift.embed.training import stable_hash; print(stable_hash('river'))"
     values = {
         subprocess.run(
             [sys.executable, "-c", code],

@@ -10,10 +10,11 @@ from chart_run_fixture import LABELS, SEEDS, fixture_run_copy
 from scipy.linalg import orthogonal_procrustes
 from scipy.spatial.distance import cosine, pdist
 
-from drift import neighbours, wordviews
-from drift.alignment import prepare_vectors
+from drift.compare import neighbours
+from drift.compare.alignment import prepare_vectors
+from drift.embed.training import read_keyed_vectors
+from drift.publish import wordviews
 from drift.runfolder import RunPaths
-from drift.training import read_keyed_vectors
 
 WORD = "government"
 LETTERS = ["a", "b", "c", "d", "e", "f"]

@@ -19,7 +19,7 @@ def chart_command(
     options: ChartOptions = ChartOptions(),
 ) -> None:
     """Write one HTML page for WORD (timeline, neighbours, frequency, examples); print its path."""
-    from drift.report import chart_word
+    from drift.publish.report import chart_word
 
     path = chart_word(run, word, **options.kwargs())
     typer.echo(str(path))
@@ -34,7 +34,7 @@ def report_command(
     options: ReportOptions = ReportOptions(),
 ) -> None:
     """Write the overview report RUN/charts/index.html and the top words' pages; print its path."""
-    from drift.report import build_report
+    from drift.publish.report import build_report
 
     path = build_report(run, **options.kwargs())
     typer.echo(str(path))

@@ -47,8 +47,8 @@ def examples_command(
 ) -> None:
     """Passages that use WORD in each slice, quoted from the original documents as written, with
     document id, date and metadata (one per document, spread over sources)."""
-    from drift.evidence import examples_for_words
-    from drift.targets import normalise_words, run_keeps_case
+    from drift.compare.targets import normalise_words, run_keeps_case
+    from drift.publish.evidence import examples_for_words
 
     view = ViewOptions(output_format=output_format)
     word = normalise_words([word], run_keeps_case(run))[0]
@@ -85,7 +85,7 @@ def evaluate_command(
 ) -> None:
     """Judge the ranking of RUN against gold values: Spearman's rho with its p-value and 95%
     confidence interval (Fisher z); accuracy and F1 of 'significant' for 0/1 gold."""
-    from drift.evaluation import evaluate_run
+    from drift.validate.evaluation import evaluate_run
 
     view = ViewOptions(output_format=output_format)
     result = evaluate_run(run, gold, by=column or old_by)

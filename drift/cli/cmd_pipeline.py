@@ -15,7 +15,7 @@ from drift.options import RankOptions, ReportOptions, SliceOptions, TrainOptions
 def _show_result(result, view: ViewOptions, out: Path | None = None) -> None:
     """Print the top words (as ``drift rank`` prints them), then where the report is."""
     from drift.cli.rank_views import print_rows, scores_table
-    from drift.ranking import rank_record
+    from drift.compare.ranking import rank_record
 
     record = rank_record(result.run)
     from drift.cli.cmd_rank import shown_rows

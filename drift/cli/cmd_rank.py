@@ -31,7 +31,7 @@ def rank_command(
 ) -> None:
     """Rank the words of RUN by how much their meaning moved; write scores, timeline and terms."""
     from drift.cli.rank_views import scores_table
-    from drift.ranking import rank_record, rank_run
+    from drift.compare.ranking import rank_record, rank_run
 
     scores = rank_run(run, quiet=quiet, **options.kwargs())
     rows = shown_rows(run, scores, view)
@@ -46,11 +46,11 @@ def rank_command(
 def shown_rows(run: Path, scores, view: ViewOptions):
     """The rows to print: the target words of --words (each one not measured gets a line on
     stderr saying why), else the top rows."""
-    from drift.ranking import top_rows
+    from drift.compare.ranking import top_rows
 
     if view.words is None:
         return top_rows(scores, top=view.top, all_rows=view.all_rows, min_count=view.min_count)
-    from drift.targets import read_word_list, target_scores
+    from drift.compare.targets import read_word_list, target_scores
 
     rows, unmeasured = target_scores(run, read_word_list(view.words), scores)
     for row in unmeasured.itertuples():
@@ -68,7 +68,7 @@ def neighbours_command(
 ) -> None:
     """List the nearest neighbours of WORD in every slice (similarity averaged over seeds)."""
     from drift.cli.rank_views import neighbours_table
-    from drift.ranking import neighbours_by_slice, slice_labels
+    from drift.compare.ranking import neighbours_by_slice, slice_labels
 
     view = ViewOptions(output_format=output_format)
     frame = neighbours_by_slice(run, word, k=k)
@@ -94,7 +94,7 @@ def export_command(
     anchors: str = field_option(RankOptions, "anchors"),
 ) -> None:
     """Write every slice's aligned vectors (first seed) into OUT, one file per slice."""
-    from drift.ranking import export_vectors
+    from drift.compare.ranking import export_vectors
 
     vector_format = vector_format or old_format
     if vector_format is None:

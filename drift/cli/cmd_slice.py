@@ -50,7 +50,7 @@ def slice_command(
     Writes RUN/slices/<label>.txt, RUN/slices/summary.csv, RUN/counts.parquet and RUN/run.json.
     """
     from drift.cli.rank_views import print_table, summary_view
-    from drift.slicing import slice_archive
+    from drift.ingest.slicing import slice_archive
 
     balance, source = balance_value(bool(options.balance), list(ctx.args), source)
     options = replace(options, balance=balance)

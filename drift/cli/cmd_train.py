@@ -18,7 +18,7 @@ def train(
     options: TrainOptions = TrainOptions(),
 ) -> None:
     """Train one Word2Vec model per slice and seed, plus the time-shuffled control pair."""
-    from drift.training import train_run
+    from drift.embed.training import train_run
 
     table = train_run(run, quiet=quiet, **options.kwargs())
     reused = int(table["reused"].sum())

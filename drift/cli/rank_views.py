@@ -302,7 +302,7 @@ def print_rows(
     out: Path | None = None,
 ) -> None:
     """Print rows as csv, json (an array of row objects) or a table, on stdout or into ``out``."""
-    from drift.ranking import rows_as_json
+    from drift.compare.ranking import rows_as_json
 
     handle = None if out is None else Path(out).open("w", encoding="utf-8", newline="")
     stream = handle if handle is not None else sys.stdout

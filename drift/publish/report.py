@@ -5,8 +5,9 @@ Pages live in ``RUN/charts/``: ``index.html`` (the overview), ``words/<safe_name
 folder opens from ``file://`` with no network and 500 pages do not hold 500 copies of plotly.
 
 Words are data from strangers. In HTML they pass through :func:`html.escape`; in figures through
-:func:`drift.charts.plot_text`; plotly's own JSON writer turns ``<`` and ``>`` into ``\\u003c`` and
-``\\u003e`` inside the page's scripts; file names come from :func:`drift.runfolder.safe_name`.
+:func:`drift.publish.charts.plot_text`; plotly's own JSON writer turns ``<`` and ``>`` into
+``\\u003c`` and ``\\u003e`` inside the page's scripts; file names come from
+:func:`drift.runfolder.safe_name`.
 """
 
 from __future__ import annotations
@@ -28,9 +29,11 @@ import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
 
-from drift import charts, evidence, neighbours, ranking, runfolder, wordviews
+from drift import runfolder
+from drift.compare import neighbours, ranking
 from drift.errors import DriftError, unknown_word_error
 from drift.options import ReportOptions
+from drift.publish import charts, evidence, wordviews
 from drift.runfolder import RunPaths
 
 CAUTION = (
@@ -707,7 +710,7 @@ def examples_html(examples: pd.DataFrame, word: str, labels: Sequence[str]) -> s
 
 def _anchors(data: RunData) -> Any:
     """The rank stage's anchors, parsed; all shared words when they cannot be read again."""
-    from drift.alignment import parse_anchors
+    from drift.compare.alignment import parse_anchors
 
     try:
         return parse_anchors(data.rank_params.get("anchors"))
@@ -811,7 +814,7 @@ def _control_without_null(data: RunData) -> bool:
 
 def warnings_html(data: RunData) -> str:
     """Warnings the terminal prints, for the pages: small slices, a weak or missing null."""
-    from drift.slicing import slice_warnings
+    from drift.ingest.slicing import slice_warnings
 
     messages = []
     if "tokens" in data.summary:
@@ -1114,7 +1117,7 @@ def term_page(
     its neighbours in the slices whose models know it, and examples from each slice."""
     term = data.terms[data.terms["word"] == word].iloc[0]
     a, b = data.between
-    from drift.slicing import read_counts
+    from drift.ingest.slicing import read_counts
 
     table = read_counts(data.root)
     counts = table.loc[word] if word in table.index else None
@@ -1474,7 +1477,7 @@ def build_report(
     >>> index.name, len(list(index.parent.glob("words/*.html"))) >= 2
     ('index.html', True)
     """
-    from drift.targets import read_word_list, target_scores
+    from drift.compare.targets import read_word_list, target_scores
 
     run = Path(run)
     ReportOptions(top=top, k=k, examples=examples, seed=seed)

@@ -1,8 +1,8 @@
 """Plotly figures for one word and for the overview: data in, ``plotly.graph_objects.Figure`` out.
 
-The functions here read no files; :mod:`drift.report` gathers the data from the run folder. Every
-trace carries a ``meta`` string naming its role (``"distance"``, ``"seed-band"``, ...), so tests
-and callers can find it without relying on legend wording.
+The functions here read no files; :mod:`drift.publish.report` gathers the data from the run
+folder. Every trace carries a ``meta`` string naming its role (``"distance"``, ``"seed-band"``,
+...), so tests and callers can find it without relying on legend wording.
 
 Colours come from the Okabe-Ito palette (Okabe and Ito 2008, "Color Universal Design"), which
 stays distinguishable under the common colour-vision deficiencies; the heatmap uses the
@@ -21,7 +21,7 @@ import pandas as pd
 import plotly.graph_objects as go
 from plotly.subplots import make_subplots
 
-from drift.wordviews import ChangeRange, WordGeometry
+from drift.publish.wordviews import ChangeRange, WordGeometry
 
 #: Okabe-Ito colours by name (hex values as published by Okabe and Ito, 2008).
 OKABE_ITO = {
@@ -378,8 +378,8 @@ PATH_LABELS = 3
 def path_figure(geometry: WordGeometry, *, word: str, slices: Sequence[str]) -> go.Figure:
     """The word's path through the slices among its neighbours, in two dimensions.
 
-    Points are PCA scores of aligned vectors (see :mod:`drift.wordviews`): the word in each slice
-    (joined in time order, labelled by slice) and each neighbour where it ranked best (grey,
+    Points are PCA scores of aligned vectors (see :mod:`drift.publish.wordviews`): the word in each
+    slice (joined in time order, labelled by slice) and each neighbour where it ranked best (grey,
     named when it was among the word's best :data:`PATH_LABELS` somewhere). The two axes are
     scaled separately, each to its component's range.
     """
@@ -500,8 +500,8 @@ def word_figures(
 def rarer_count(scores: pd.DataFrame) -> pd.Series:
     """Each word's count in the rarer of the two compared slices (at least 1).
 
-    This is the frequency the calibration judges a word by (drift.calibration: a vector is only
-    as stable as its less frequent side), so the null centre is a curve along this axis.
+    This is the frequency the calibration judges a word by (drift.compare.calibration: a vector is
+    only as stable as its less frequent side), so the null centre is a curve along this axis.
     """
     rarer = np.minimum(scores["count_from"].astype(float), scores["count_to"].astype(float))
     return np.maximum(rarer, 1.0)
@@ -558,8 +558,8 @@ def change_vs_frequency_figure(
     :data:`SPREAD_UNITS` × ``null_spread``), so the frequency confound (rare words move more) is
     visible. Significant words are filled vermillion diamonds, the best ``labelled`` of them
     named; the rest are hollow grey circles: they differ by shape as well as colour. ``links``
-    maps words to page addresses that a click on the point opens (see drift.report). Hover data
-    (``customdata``): word, rank, z, q, count from, count to, link.
+    maps words to page addresses that a click on the point opens (see drift.publish.report).
+    Hover data (``customdata``): word, rank, z, q, count from, count to, link.
     """
     rows = plotted_words(scores, max_points=max_points)
     links = links or {}

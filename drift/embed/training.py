@@ -28,7 +28,8 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from drift import engines, options, runfolder
+from drift import options, runfolder
+from drift.embed import engines
 from drift.errors import DriftError, close_matches
 from drift.options import TrainOptions, check_between
 from drift.progress import progress_bars
@@ -45,7 +46,7 @@ CONTROL_FORMAT = 1
 RESULT_COLUMNS = ["group", "label", "seed", "path", "vocabulary", "seconds", "reused", "threads"]
 _LABEL_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
 #: Modules a local pool worker imports once, before its first task.
-POOL_PRELOAD = ("drift.training", "gensim.models.word2vec")
+POOL_PRELOAD = ("drift.embed.training", "gensim.models.word2vec")
 _SEED_LIMIT = 2**32  # gensim seeds numpy's RandomState, which takes 0 .. 2**32 - 1
 
 
@@ -118,7 +119,7 @@ def stable_hash(text: str) -> int:
 
 def checked_slice_labels(paths: RunPaths) -> list[str]:
     """Slice labels in time order (from the slice stage), each with a non-empty slice file."""
-    from drift.slicing import slice_labels
+    from drift.ingest.slicing import slice_labels
 
     labels = [str(label) for label in slice_labels(paths.root)]
     if not labels:
@@ -149,7 +150,7 @@ def check_more_than_one_slice(paths: RunPaths, labels: list[str]) -> None:
     names a way to cut the same archive into two or more."""
     if len(labels) > 1:
         return
-    from drift.slicing import read_summary
+    from drift.ingest.slicing import read_summary
 
     record = runfolder.read_manifest(paths.root).get("stages", {}).get("slice", {})
     source = record.get("source") or "SOURCE"

@@ -475,11 +475,11 @@ def run_protocol(
 
     Compares the first and the last slice. Returns the scores table for every measure and every
     number of neighbours ``k`` (displacement does not use k and is ranked once, with the first).
-    ``train_options`` go to :func:`drift.training.train_run`.
+    ``train_options`` go to :func:`drift.embed.training.train_run`.
     """
-    from drift.ranking import DEFAULT_K, rank_run
-    from drift.slicing import slice_archive
-    from drift.training import train_run
+    from drift.compare.ranking import DEFAULT_K, rank_run
+    from drift.embed.training import train_run
+    from drift.ingest.slicing import slice_archive
 
     workdir = Path(workdir)
     workdir.mkdir(parents=True, exist_ok=True)

@@ -1,7 +1,7 @@
 """Per-word change measures between two slices, and the blocked top-k neighbour search they share.
 
-All functions take prepared vectors (unit length, see :func:`drift.alignment.prepare_vectors`),
-so cosine similarity is a dot product.
+All functions take prepared vectors (unit length, see
+:func:`drift.compare.alignment.prepare_vectors`), so cosine similarity is a dot product.
 
 - Displacement (global): the cosine distance between a word's aligned vectors.
 - Turnover: the Jaccard distance between the word's top-k neighbour sets in the two slices;

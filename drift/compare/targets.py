@@ -95,7 +95,7 @@ def _min_count(run: Path) -> int | None:
 def unmeasured_reasons(run: str | Path, words: Sequence[str], pair: Sequence[str]) -> pd.DataFrame:
     """Why each of ``words`` has no score: it does not occur in a compared slice, occurs there
     under the training's minimum count, or is missing from the archive altogether."""
-    from drift.slicing import read_counts
+    from drift.ingest.slicing import read_counts
 
     run = Path(run)
     counts = read_counts(run)
@@ -154,7 +154,7 @@ def target_scores(
     >>> rows["word"].tolist(), unmeasured["reason"].tolist()
     (['tablet'], ['does not occur in the archive'])
     """
-    from drift.ranking import rank_record, read_scores
+    from drift.compare.ranking import rank_record, read_scores
 
     run = Path(run)
     words = normalise_words(words, run_keeps_case(run))

@@ -31,8 +31,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from drift import documents, runfolder
+from drift import runfolder
 from drift.errors import DriftError
+from drift.ingest import documents
 from drift.options import ChartOptions
 from drift.runfolder import RunPaths
 
@@ -208,7 +209,7 @@ def source_problem(run: Path) -> str | None:
 def original_texts(run: Path, rows: Iterable[int], files: Iterable[str] = ()) -> dict:
     """The original text of documents by source row (and, for a folder of .txt files, by file
     name), read in one pass that stops after the last row wanted."""
-    from drift.readers import open_source
+    from drift.ingest.readers import open_source
 
     record = _slice_record(run)
     params = record.get("params", {})
@@ -414,7 +415,7 @@ def examples_for_words(
 
 
 def _labels(run: Path) -> list[str]:
-    from drift.slicing import slice_labels
+    from drift.ingest.slicing import slice_labels
 
     return slice_labels(run)
 

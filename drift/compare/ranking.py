@@ -15,7 +15,7 @@ How a run is scored (per seed, then averaged over seeds with the spread kept in 
    list merely because it is missing from the other slice.
 3. The control pair (control-a vs control-b, the compared slices pooled and split at random) is
    measured exactly like the compared pair; its measures, as a function of frequency, are the
-   null for z, p and q (:mod:`drift.calibration`).
+   null for z, p and q (:mod:`drift.compare.calibration`).
 4. The combined measure is the mean of displacement and turnover, per seed: both are distances
    between 0 and 1 for almost every word, and a word must move and change company to score high.
 
@@ -37,7 +37,7 @@ import numpy as np
 import pandas as pd
 
 from drift import options, runfolder
-from drift.alignment import (
+from drift.compare.alignment import (
     AnchorSpec,
     SliceVectors,
     align_onto,
@@ -45,9 +45,8 @@ from drift.alignment import (
     prepare_vectors,
     seed_instability,
 )
-from drift.changepoint import change_points
-from drift.errors import DriftError
-from drift.measures import (
+from drift.compare.changepoint import change_points
+from drift.compare.measures import (
     Neighbours,
     consensus_neighbours,
     cosine_distance_rows,
@@ -56,6 +55,7 @@ from drift.measures import (
     mean_and_spread,
     top_k_neighbours,
 )
+from drift.errors import DriftError
 from drift.options import ChartOptions, RankOptions, ViewOptions, default
 from drift.progress import progress_bars, stderr_console
 
@@ -138,7 +138,7 @@ def read_run_inputs(run: str | Path) -> RunInputs:
             f"{paths.root} has {len(labels)} slice; ranking needs at least two, so slice the "
             "archive into more periods."
         )
-    from drift.training import control_info, trained_seeds
+    from drift.embed.training import control_info, trained_seeds
 
     seeds = trained_seeds(paths.root)
     control = control_info(paths.root)
@@ -155,7 +155,7 @@ def load_slice_vectors(
     paths: runfolder.RunPaths, label: str, seed: int, control: bool = False
 ) -> SliceVectors:
     """A slice's (or control model's) words, prepared vectors and counts for one seed."""
-    from drift.training import load_vectors
+    from drift.embed.training import load_vectors
 
     kv = load_vectors(paths.root, label, seed, control=control)
     words = list(kv.index_to_key)
@@ -711,7 +711,7 @@ def _noise_nulls(
 
     (None, None) when there is no control or it is too small; ``reasons`` then says why.
     """
-    from drift.calibration import WEAK_NULL_WORDS, calibrate, fit_null
+    from drift.compare.calibration import WEAK_NULL_WORDS, calibrate, fit_null
 
     controls = [r.control for r in measured.results if r.control is not None]
     if not controls:
@@ -780,7 +780,7 @@ def _calibration(
     Without a control, or with one too small to fit a null, the noise null's columns (and the
     headline) are empty and ``significance`` in run.json says why.
     """
-    from drift.calibration import calibrate, fit_null
+    from drift.compare.calibration import calibrate, fit_null
 
     values = scores["score"].to_numpy(dtype=float)
     count_from = scores["count_from"].to_numpy(dtype=float)
@@ -826,7 +826,7 @@ def _steps_calibration(
     its p values are multiplied by the number of steps measured (Bonferroni, capped at 1), then
     Benjamini-Hochberg runs over the words.
     """
-    from drift.calibration import bh_qvalues, calibrate, fit_null
+    from drift.compare.calibration import bh_qvalues, calibrate, fit_null
 
     labels, words = inputs.labels, measured.words
     step_values, _ = mean_and_spread([r.steps for r in measured.results])
@@ -1052,7 +1052,7 @@ def rank_run(
 
 def _write_neighbours(root: Path, words: list[str]) -> None:
     """neighbours.parquet: each measured word's neighbours per slice at the word pages' k."""
-    from drift.neighbours import write_neighbours_table
+    from drift.compare.neighbours import write_neighbours_table
 
     write_neighbours_table(root, words)
 
@@ -1207,7 +1207,7 @@ def _timeline_frame(
     ``typical``: the drift null's centre for that slice against the reference (how far words of
     that frequency and noise generally moved), fitted on that slice's own words.
     """
-    from drift.calibration import fit_null
+    from drift.compare.calibration import fit_null
 
     labels = inputs.labels
     counts = np.column_stack([_counts_for(inputs, words, label, None) for label in labels])
@@ -1401,7 +1401,7 @@ def neighbours_by_slice(
     The similarity is the cosine of the prepared vectors averaged over seeds (every seed's
     similarity to every candidate, then the k best of the average); the candidates are the words
     every slice knows, as in the rank stage. Read from neighbours.parquet when it holds the word
-    at this k (see :mod:`drift.neighbours`).
+    at this k (see :mod:`drift.compare.neighbours`).
 
     Parameters
     ----------
@@ -1432,7 +1432,7 @@ def neighbours_by_slice(
     [3, 3, 3, 3, 3, 3]
     """
     k = options.check_k(k, "--neighbours")
-    from drift.neighbours import word_neighbours
+    from drift.compare.neighbours import word_neighbours
 
     return word_neighbours(run, word, k)
 

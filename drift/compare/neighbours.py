@@ -20,9 +20,9 @@ import numpy as np
 import pandas as pd
 
 from drift import runfolder
-from drift.alignment import SliceVectors
+from drift.compare.alignment import SliceVectors
+from drift.compare.measures import block_rows_for
 from drift.errors import DriftError, unknown_word_error
-from drift.measures import block_rows_for
 
 #: Neighbours per slice shown on word pages and stored in neighbours.parquet; the word pages'
 #: gained, lost and turnover are computed at this k, so a page states one k.
@@ -49,7 +49,7 @@ class RunModels:
 
 def load_run_models(run: str | Path) -> RunModels:
     """Load each slice model of ``run`` once (every seed); candidates = words every model knows."""
-    from drift.ranking import candidate_words, load_slice_vectors, read_run_inputs
+    from drift.compare.ranking import candidate_words, load_slice_vectors, read_run_inputs
 
     inputs = read_run_inputs(run)
     slices = {

@@ -19,7 +19,6 @@ separated by commas (any of them), several clauses all at once.
 from __future__ import annotations
 
 import collections
-import re
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -33,6 +32,7 @@ import pyarrow.parquet as pq
 
 from drift import runfolder
 from drift.errors import DriftError
+from drift.options import WhereClause, parse_where  # noqa: F401  (re-exported)
 
 #: Total variation distance between two slices' mixes above which a warning is given. Common
 #: practice (no published threshold): 0.2 means a fifth of one slice's tokens would have to come
@@ -48,61 +48,6 @@ _MISSING = "(none)"
 
 
 # ---------------------------------------------------------------------------- --where
-
-
-@dataclass(frozen=True)
-class WhereClause:
-    """Keep documents whose ``column`` is (``keep=True``) or is not one of ``values``."""
-
-    column: str
-    values: tuple[str, ...]
-    keep: bool
-
-    def text(self) -> str:
-        return f"{self.column}{'=' if self.keep else '!='}{','.join(self.values)}"
-
-
-_WHERE_RE = re.compile(r"^\s*([^=!]+?)\s*(!=|=)\s*(.*)$")
-
-
-def parse_where(specs: Iterable[str] | str | None) -> tuple[WhereClause, ...]:
-    """Read ``--where`` values such as ``source=gazette``, ``source!=letter,minutes``.
-
-    Parameters
-    ----------
-    specs : str or iterable of str, optional
-        One condition or several (all must hold).
-
-    Returns
-    -------
-    tuple of WhereClause
-
-    Raises
-    ------
-    DriftError
-        A condition that is not ``column=value`` or ``column!=value``.
-
-    Examples
-    --------
-    >>> [c.text() for c in parse_where(["source!=letter,minutes", "lang = en"])]
-    ['source!=letter,minutes', 'lang=en']
-    """
-    if specs is None:
-        return ()
-    if isinstance(specs, str):
-        specs = [specs]
-    clauses = []
-    for spec in specs:
-        match = _WHERE_RE.match(str(spec))
-        values = tuple(v.strip() for v in match.group(3).split(",")) if match else ()
-        if not match or not any(values):
-            raise DriftError(
-                f"--where {spec} is not understood; write column=value or column!=value "
-                "(several values separated by commas), e.g. --where source!=letter."
-            )
-        clauses.append(WhereClause(match.group(1), tuple(v for v in values if v),
-                                   match.group(2) == "="))
-    return tuple(clauses)
 
 
 def where_mask(extra: dict[str, pa.Array] | None, clauses: Sequence[WhereClause], rows: int):
@@ -559,7 +504,7 @@ def composition(
     >>> list(shifts.columns), bool((shifts["distance"] <= 1).all())
     (['column', 'from', 'to', 'distance'], True)
     """
-    from drift.slicing import slice_labels
+    from drift.ingest.slicing import slice_labels
 
     table = read_composition(run)
     labels = slice_labels(run)

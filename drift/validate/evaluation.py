@@ -224,8 +224,8 @@ def evaluate_run(run: str | Path, gold_path: str | Path, by: str | None = None) 
     >>> result.n, round(result.rho, 3)
     (6, 1.0)
     """
-    from drift.ranking import read_scores
-    from drift.targets import normalise_words, run_keeps_case, target_scores
+    from drift.compare.ranking import read_scores
+    from drift.compare.targets import normalise_words, run_keeps_case, target_scores
 
     gold, kind = read_gold(gold_path)
     keep_case = run_keeps_case(run)

@@ -1,8 +1,8 @@
 """STAGE slice: cut a dated archive into time slices of tokenized text, with word counts.
 
-:func:`slice_archive` streams the source (:mod:`drift.readers`), gives every document a day
-(:mod:`drift.timeparse`), tokenizes it (:mod:`drift.tokenize`) and appends its lines to the
-file of the slice whose date range holds that day. It writes, as DEVELOPERS.md's run-folder
+:func:`slice_archive` streams the source (:mod:`drift.ingest.readers`), gives every document a day
+(:mod:`drift.ingest.timeparse`), tokenizes it (:mod:`drift.ingest.tokenize`) and appends its lines
+to the file of the slice whose date range holds that day. It writes, as DEVELOPERS.md's run-folder
 contract says, ``slices/<label>.txt``, ``slices/summary.csv``, ``counts.parquet`` and the
 ``slice`` entry of ``run.json``.
 
@@ -40,13 +40,14 @@ import pyarrow.compute as pc
 import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 
-from drift import documents, runfolder
+from drift import runfolder
 from drift.errors import DriftError
+from drift.ingest import documents
+from drift.ingest.readers import DocBatch, Reader, open_source
+from drift.ingest.timeparse import BadDates, day_to_iso, iso_to_day, parse_times, year_of
+from drift.ingest.tokenize import tokenize_array
 from drift.options import SliceOptions
 from drift.progress import progress_bars, stderr_console
-from drift.readers import DocBatch, Reader, open_source
-from drift.timeparse import BadDates, day_to_iso, iso_to_day, parse_times, year_of
-from drift.tokenize import tokenize_array
 
 STAGE = "slice"
 #: Slices under about a million tokens give unstable vectors (common practice, no single
@@ -1105,7 +1106,7 @@ def slice_archive(
     the same source and options reuses the slices. Defaults and help texts of the options:
     :class:`drift.options.SliceOptions`.
     Also writes the document index (``documents.parquet``/``.csv``) and the composition of each
-    slice (``composition.parquet``/``.csv``), see :mod:`drift.documents`.
+    slice (``composition.parquet``/``.csv``), see :mod:`drift.ingest.documents`.
 
     Parameters
     ----------
@@ -1135,7 +1136,7 @@ def slice_archive(
         No progress bar or notes.
     encoding, delimiter : str, optional
         Text encoding (default UTF-8, cp1252 when a file is not UTF-8) and CSV field separator,
-        passed to :func:`drift.readers.open_source`.
+        passed to :func:`drift.ingest.readers.open_source`.
     id_col : str, optional
         Column with document ids (default: the source row number, or a .txt file's name).
     meta : str or sequence of str, optional

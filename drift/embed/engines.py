@@ -4,7 +4,8 @@ A task is a small dict (paths and parameters); a task function turns it into a s
 and may call ``report(completed, total)`` to show its progress. Both engines call the same
 function, so a model trained on a Dask worker is the same as one trained locally.
 
-The engines know nothing about Word2Vec: :mod:`drift.training` builds the tasks and the function.
+The engines know nothing about Word2Vec: :mod:`drift.embed.training` builds the tasks and the
+function.
 """
 
 from __future__ import annotations

@@ -23,9 +23,9 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from drift.alignment import AnchorSpec, align_onto
-from drift.changepoint import mean_shifts
-from drift.neighbours import RunModels
+from drift.compare.alignment import AnchorSpec, align_onto
+from drift.compare.changepoint import mean_shifts
+from drift.compare.neighbours import RunModels
 
 #: Redraws of the timeline for the change point range, and the share of them the range covers.
 REDRAWS = 1000
@@ -174,7 +174,7 @@ class ChangeRange:
 
 def slice_standardiser(timeline: pd.DataFrame, labels: Sequence[str]):
     """Each slice's centre and spread of distance across all words, as the rank stage uses them
-    to choose boundaries (:func:`drift.changepoint.standardise_by_slice`)."""
+    to choose boundaries (:func:`drift.compare.changepoint.standardise_by_slice`)."""
     wide = timeline.pivot_table(index="word", columns="slice", values="distance")
     wide = wide.reindex(columns=list(labels))
     with warnings.catch_warnings():
