@@ -454,6 +454,10 @@ class SliceOptions(StageOptions):
         None, "Balance so every slice keeps the same mix of this metadata column (implies "
         "--balance).", metavar="COLUMN", show_default=False,
     )
+    append: bool = opt(
+        False, "Add SOURCE's documents to the slices already in --out (new slices are added, "
+        "slices that gain documents are redone, the rest kept as they are)."
+    )
 
 
 @dataclass(frozen=True)

@@ -56,4 +56,9 @@ def slice_command(
     options = replace(options, balance=balance)
     summary = slice_archive(Path(source), out, quiet=quiet, **options.kwargs())
     title = f"Slices in {out}" + (" (reused)" if summary.attrs.get("reused") else "")
+    added = summary.attrs.get("added")
+    if added and (added["new"] or added["redone"]):
+        parts = [f"new: {', '.join(added['new'])}"] if added["new"] else []
+        parts += [f"redone: {', '.join(added['redone'])}"] if added["redone"] else []
+        title += f" (appended {Path(source).name}; {'; '.join(parts)})"
     print_table(lambda width: summary_view(summary, title, width))

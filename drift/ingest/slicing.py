@@ -1098,6 +1098,7 @@ def slice_archive(
     meta: Sequence[str] | str | None = _SLICE.meta,
     where: Sequence[str] | str | None = _SLICE.where,
     balance_by: str | None = _SLICE.balance_by,
+    append: bool = _SLICE.append,
 ) -> pd.DataFrame:
     """Cut ``source`` into time slices in the run folder ``out`` and return the slice summary.
 
@@ -1146,6 +1147,9 @@ def slice_archive(
         by commas; every condition must hold.
     balance_by : str, optional
         Balance so that every slice keeps the same tokens of each value of this column.
+    append : bool
+        Add the documents of ``source`` to the slices already in ``out`` instead of starting
+        over: see :func:`drift.ingest.growing.append_archive` (the slicing options are the run's).
 
     Returns
     -------
@@ -1170,6 +1174,15 @@ def slice_archive(
     >>> list(summary.columns)
     ['label', 'start', 'end', 'documents', 'tokens', 'types', 'dropped']
     """
+    if append:
+        from drift.ingest.growing import append_archive
+
+        return append_archive(
+            source, out, fmt=fmt, time_col=time_col, text_col=text_col, date_format=date_format,
+            skip_bad_dates=skip_bad_dates, encoding=encoding, delimiter=delimiter, quiet=quiet,
+            by=by, balance=balance, keep_case=keep_case, pretokenized=pretokenized,
+            id_col=id_col, meta=meta, where=where, balance_by=balance_by,
+        )
     started = time.perf_counter()
     source = Path(source)
     rule = parse_by(by)
@@ -1207,12 +1220,15 @@ def slice_archive(
     with runfolder.run_lock(paths.root):
         inputs = runfolder.fingerprint_path(source)
         recorded = runfolder.read_manifest(paths.root).get("stages", {}).get(STAGE, {})
-        if runfolder.stage_is_current(paths.root, STAGE, params, inputs) and _outputs_exist(
-            paths, recorded.get("labels")
-        ):
+        from drift.ingest import growing
+
+        grown = growing.first_source_is_current(recorded, params, inputs)
+        if (
+            runfolder.stage_is_current(paths.root, STAGE, params, inputs) or grown
+        ) and _outputs_exist(paths, recorded.get("labels")):
             _note(
-                f"the slices in {paths.root} are current (same input and parameters); "
-                "reusing them.",
+                f"the slices in {paths.root} are current (same input and parameters"
+                f"{', plus the documents appended since' if grown else ''}); reusing them.",
                 quiet,
             )
             summary = read_summary(paths.root)
@@ -1234,6 +1250,7 @@ def slice_archive(
                 "source": str(source.resolve()),
                 "totals": totals,
                 "timings": timings,
+                "history": [growing.first_entry(source, inputs, totals, labels)],
             },
         )
     messages = slice_warnings(summary) + summary.attrs.get("index_notes", []) + reader.notes()
@@ -1316,8 +1333,10 @@ def _run(
     seed: int,
     quiet: bool,
     spec: documents.IndexSpec | None = None,
+    check_edges: bool = True,
 ) -> tuple[pd.DataFrame, dict[str, int], dict[str, float]]:
-    """Read, slice, balance and write; returns the summary, totals and timings.
+    """Read, slice, balance and write; returns the summary, totals and timings (with
+    ``check_edges`` False, --by edges that hold no documents are no error: appended documents).
 
     The summary's ``attrs`` carry the composition table and the index's warnings."""
     spec = spec or documents.IndexSpec(source_name=reader.path.name)
@@ -1354,7 +1373,8 @@ def _run(
                 index.close()
             _check_where(settings, totals, index)
             _check_read(reader, totals, skip, bool(files.tallies))
-            _check_edges(rule, files)
+            if check_edges:
+                _check_edges(rule, files)
             bins = [bin_for_key(rule, key) for key in sorted(files.tallies)]
         timings["read"] = round(time.perf_counter() - clock, 3)
         keys = [b.key for b in bins]
