@@ -176,11 +176,12 @@ CANDIDATES = {
     "count+noise, pareto tail": ("displacement", dict(log_scale=False, tail="pareto")),
     "count+noise, log scale, pareto tail": ("displacement", dict(tail="pareto")),
     "count+noise, log scale, normal tail": ("displacement", dict()),
+    "evidence (displacement + local, Stouffer)": ("evidence", dict()),
     "count only, log scale, normal tail": ("displacement", dict(use_seed_noise=False)),
     "count+noise, log, normal, combined": ("combined", dict()),
     "count+noise, log, normal, local": ("local", dict()),
 }
-DEFAULT_CANDIDATE = "count+noise, log scale, normal tail"
+DEFAULT_CANDIDATE = "evidence (displacement + local, Stouffer)"
 
 BASELINE_CODE = """
 import sys

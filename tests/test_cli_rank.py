@@ -188,6 +188,7 @@ def _render(table, width):
 def test_scores_table_fits_80_columns_without_cutting_words(run):
     from drift.cli.rank_views import DROP_ORDER, SHOWN_NEIGHBOURS, scores_table
     from drift.compare.ranking import rank_record, rank_run
+    from drift.options import measures_judged
 
     rows = rank_run(run, k=8, quiet=True).head(4).copy()
     rows.loc[rows.index[0], "word"] = "counterrevolutionaries"  # longer than any column's share
@@ -211,10 +212,12 @@ def test_scores_table_fits_80_columns_without_cutting_words(run):
     names = {"displ.": "displacement"}
     dropped = [names.get(name, name) for name in dropped]
     assert dropped, "80 columns cannot hold every column of this table"
-    in_order = [key for key in DROP_ORDER if key != "displacement"][: len(dropped)]
+    judged = measures_judged(params["measure"])  # the measures the ranking stands on stay
+    assert judged == ("displacement", "local")
+    in_order = [key for key in DROP_ORDER if key not in judged][: len(dropped)]
     assert sorted(dropped) == sorted(in_order)
     assert f"Not shown at this width: {', '.join(in_order)} (" in table.caption.plain
-    assert {"#", "word", "displ.", "q"} <= set(headers)
+    assert {"#", "word", "displ.", "local", "q"} <= set(headers)
 
 
 def test_scores_table_whole_when_no_width(run):

@@ -105,7 +105,7 @@ def test_scores_follow_the_contract(geometry_run):
     np.testing.assert_allclose(from_csv["z"], scores["z"])
     params = runfolder.read_manifest(root)["stages"]["rank"]
     assert params["params"] == {
-        "between": ["2001", "2003"], "reference": "2001", "measure": "displacement", "k": 10,
+        "between": ["2001", "2003"], "reference": "2001", "measure": "evidence", "k": 10,
         "alpha": 0.05, "anchors": None, "term_count": 20, "term_ratio": 10.0,
         "anchor_trim": 0.0, "compare": "pair",
     }
@@ -230,6 +230,29 @@ def test_rank_reuses_current_results_and_recomputes_on_change(own_geometry_run):
     np.testing.assert_allclose(
         combined["score"], (combined["displacement"] + combined["turnover"]) / 2, atol=1e-12
     )
+
+
+def test_evidence_combines_the_single_measure_rankings(own_geometry_run):
+    """The default measure's z per null is Stouffer's combination of the z that displacement
+    and local change get when each ranks the run alone, with the correlation run.json records
+    (z = (z_d + z_l) / sqrt(2 + 2r))."""
+    root, evidence = own_geometry_run
+    record = runfolder.read_manifest(root)["stages"]["rank"]
+    assert record["params"]["measure"] == "evidence"
+    correlation = record["evidence"]["correlation"]
+    assert record["evidence"]["measures"] == ["displacement", "local"]
+    single = {m: rank_run(root, k=10, measure=m, quiet=True).set_index("word")
+              for m in ("displacement", "local")}
+    evidence = evidence.set_index("word")
+    np.testing.assert_allclose(evidence["score"], evidence["displacement"])
+    for null in ("noise", "drift"):
+        words = evidence.index[evidence[f"{null}_p"] > 1e-12]  # away from the float floor
+        z_d = single["displacement"].loc[words, f"{null}_z"]
+        z_l = single["local"].loc[words, f"{null}_z"]
+        expected = (z_d + z_l) / np.sqrt(2 + 2 * correlation[null])
+        np.testing.assert_allclose(evidence.loc[words, f"{null}_z"], expected, rtol=1e-6)
+        assert 0.0 < correlation[null] < 1.0
+    assert evidence.loc[MOVED, "significant"].all()
 
 
 def test_rank_without_control_is_descriptive(tmp_path, capsys):

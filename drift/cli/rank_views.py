@@ -25,10 +25,12 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
+from drift.options import measure_phrase, measures_judged, score_column_of
+
 #: Neighbours shown per cell in the scores table, strongest first (the files hold up to 10).
 SHOWN_NEIGHBOURS = 5
 #: Columns of the scores table dropped first when the screen is too narrow, in this order.
-#: The rank, the word, the ranking measure and q are never dropped.
+#: The rank, the word, the measures the ranking stands on and q are never dropped.
 DROP_ORDER = ("local", "turnover", "displacement", "lost", "change", "count", "gained", "z")
 #: Arrow between the counts in the two compared slices (``163 → 165``).
 ARROW = "→"
@@ -146,10 +148,11 @@ def scores_table(
     measure = params.get("measure", "score")
     short = {"displacement": "displ.", "combined": "comb."}
     measures = ["displacement", "turnover", "local"]
-    if measure not in measures:
+    judged = measures_judged(measure)
+    if score_column_of(measure) == "score":
         measures.insert(0, measure)
     columns = [_Column("#", "#"), _Column("word", "word", justify="left")]
-    columns += [_Column(m, short.get(m, m), underline=m == measure) for m in measures]
+    columns += [_Column(m, short.get(m, m), underline=m in judged) for m in measures]
     columns += [_Column("z", "z")] if calibrated else []
     columns += [
         _Column("q", "q"),
@@ -171,11 +174,12 @@ def scores_table(
         cell["change"].append(_change_cell(row))
         cell["gained"].append(_first_words(row.gained))
         cell["lost"].append(_first_words(row.lost))
-    order = tuple(key for key in DROP_ORDER if key != measure)
+    order = tuple(key for key in DROP_ORDER if key not in judged and key != measure)
     kept, dropped = _fit(columns, width, order) if width else (columns, [])
     shown = {c.key for c in kept}
     notes = [
-        f"z, q: the headline of two questions, both needed: did {measure} move beyond noise "
+        f"z, q: the headline of two questions, both needed: did {measure_phrase(measure)} "
+        "move beyond noise "
         "(control pair: noise_z, noise_q) and more than words of its frequency and noisiness "
         "moved here (drift null: drift_z, drift_q)? z is the smaller z, q the "
         f"Benjamini-Hochberg q of the larger p; * significant at alpha "
@@ -202,7 +206,7 @@ def scores_table(
         notes.append(f"Not shown at this width: {', '.join(dropped)} ({_WIDER}).")
     title = (
         f"Words that changed most from {first} to {last} "
-        f"(ranked by z: {measure} beyond noise and beyond the archive's drift)"
+        f"(ranked by z: {measure_phrase(measure)} beyond noise and beyond the archive's drift)"
         if calibrated
         else f"Words that changed most from {first} to {last} (ranked by {measure})"
     )

@@ -16,8 +16,11 @@ How a run is scored (per seed, then averaged over seeds with the spread kept in 
 3. The control pair (control-a vs control-b, the compared slices pooled and split at random) is
    measured exactly like the compared pair; its measures, as a function of frequency, are the
    null for z, p and q (:mod:`drift.compare.calibration`).
-4. The combined measure is the mean of displacement and turnover, per seed: both are distances
-   between 0 and 1 for almost every word, and a word must move and change company to score high.
+4. The default measure, ``evidence``, calibrates displacement and local change separately
+   against both nulls and combines each null's two z by Stouffer's method, corrected for the
+   correlation between them (:func:`drift.compare.calibration.combine_evidence`); its ``score``
+   column is the displacement. The older ``combined`` measure is the mean of displacement and
+   turnover, per seed, calibrated as one measure.
 
 ``gained`` and ``lost`` come from consensus neighbour lists: the k best candidates by similarity
 averaged over seeds, searched in the union of the seeds' own lists.
@@ -188,10 +191,10 @@ def resolve_slices(
 def _check_options(measure: str, k: int, alpha: float, anchor_trim: float = 0.0,
                    compare: str = "pair") -> None:
     RankOptions(measure=measure, k=k, alpha=alpha, anchor_trim=anchor_trim, compare=compare)
-    if compare == "steps" and measure != "displacement":
+    if compare == "steps" and measure not in ("displacement", "evidence"):
         raise DriftError(
             "--compare steps judges displacement between adjacent slices; leave --measure at "
-            "displacement."
+            "its default or choose displacement."
         )
 
 
@@ -263,6 +266,8 @@ class PairMeasures:
     def value(self, measure: str) -> np.ndarray:
         if measure == "combined":
             return (self.displacement + self.turnover) / 2.0
+        if measure == "evidence":  # its score is the displacement; z combines it with local
+            return self.displacement
         return getattr(self, measure)
 
 
@@ -705,11 +710,12 @@ def pair_seed_noise(
 
 def _noise_nulls(
     measured: Measured, measure: str, options: CalibrationOptions, with_noise: bool,
-    reasons: list[str], record: dict[str, Any],
+    reasons: list[str], record: dict[str, Any], control_p: list[np.ndarray] | None = None,
 ) -> tuple[Any, Any]:
     """The control pair's nulls: for ``measure`` and for displacement (the timeline's band).
 
-    (None, None) when there is no control or it is too small; ``reasons`` then says why.
+    (None, None) when there is no control or it is too small; ``reasons`` then says why. The
+    control words' noise p values are appended to ``control_p`` when it is given.
     """
     from drift.compare.calibration import WEAK_NULL_WORDS, calibrate, fit_null
 
@@ -741,8 +747,11 @@ def _noise_nulls(
     except DriftError as exc:
         reasons.append(f"no noise null: {exc}")
         return None, None
-    flagged = calibrate(control_values, first.counts_from, first.counts_to, seed_noise=c_noise,
-                        noise_null=noise_null, drift_null=noise_null)["noise_q"] <= ALPHA_RECORD
+    control_table = calibrate(control_values, first.counts_from, first.counts_to,
+                              seed_noise=c_noise, noise_null=noise_null, drift_null=noise_null)
+    flagged = control_table["noise_q"] <= ALPHA_RECORD
+    if control_p is not None:
+        control_p.append(control_table["noise_p"].to_numpy(dtype=float))
     record["control_flagged"] = int(flagged.sum())
     record["noise_null"] = noise_null.describe()
     if noise_null.words < WEAK_NULL_WORDS:
@@ -780,6 +789,72 @@ def _calibration(
     Without a control, or with one too small to fit a null, the noise null's columns (and the
     headline) are empty and ``significance`` in run.json says why.
     """
+    if measure == "evidence":
+        return _evidence_calibration(measured, scores, alpha, labels, options)
+    return _one_measure_calibration(measured, scores, measure, alpha, labels, options)
+
+
+def _evidence_calibration(
+    measured: Measured,
+    scores: pd.DataFrame,
+    alpha: float,
+    labels: Sequence[str],
+    options: CalibrationOptions,
+) -> tuple[pd.DataFrame, Any, dict[str, Any]]:
+    """The ``evidence`` measure: each of :data:`EVIDENCE_MEASURES` calibrated on its own, their
+    z combined per null (:func:`drift.compare.calibration.combine_evidence`)."""
+    from drift.compare.calibration import bh_qvalues, combine_evidence
+    from drift.options import EVIDENCE_MEASURES
+
+    tables, records, control_p = {}, {}, []
+    displacement_null = None
+    for name in EVIDENCE_MEASURES:
+        columns, null, records[name] = _one_measure_calibration(
+            measured, scores.assign(score=scores[name]), name, alpha, labels, options, control_p
+        )
+        tables[name] = columns
+        displacement_null = null if name == "displacement" else displacement_null
+    combined, correlation = combine_evidence(tables, alpha)
+    reasons = list(dict.fromkeys(
+        reason for record in records.values() for reason in record["significance"]["reasons"]
+    ))
+    statuses = [record["significance"]["status"] for record in records.values()]
+    status = next(s for s in ("unavailable", "weak", "full") if s in statuses)
+    note = "" if status == "full" else f"significance {status}: " + "; ".join(
+        reason.rstrip(".") for reason in reasons
+    )
+    combined["significance_note"] = note
+    record: dict[str, Any] = {"control_flagged": None}
+    if len(control_p) == len(EVIDENCE_MEASURES):
+        control_z, _ = combine_evidence(
+            {name: pd.DataFrame({"noise_p": p, "drift_p": p})
+             for name, p in zip(EVIDENCE_MEASURES, control_p, strict=True)}, alpha
+        )
+        record["control_flagged"] = int((bh_qvalues(control_z["noise_p"]) <= ALPHA_RECORD).sum())
+    first = records[EVIDENCE_MEASURES[0]]
+    for key in ("noise_null", "drift_null"):
+        if key in first:
+            record[key] = first[key]
+    record["significance"] = {"status": status, "reasons": reasons}
+    record["evidence"] = {
+        "measures": list(EVIDENCE_MEASURES),
+        "correlation": correlation,
+        "nulls": {name: {key: rec[key] for key in ("noise_null", "drift_null") if key in rec}
+                  for name, rec in records.items()},
+    }
+    return combined, displacement_null, record
+
+
+def _one_measure_calibration(
+    measured: Measured,
+    scores: pd.DataFrame,
+    measure: str,
+    alpha: float,
+    labels: Sequence[str],
+    options: CalibrationOptions,
+    control_p: list[np.ndarray] | None = None,
+) -> tuple[pd.DataFrame, Any, dict[str, Any]]:
+    """:func:`_calibration` for one measure, whose values are ``scores['score']``."""
     from drift.compare.calibration import calibrate, fit_null
 
     values = scores["score"].to_numpy(dtype=float)
@@ -792,7 +867,7 @@ def _calibration(
                        "(train with --seeds 2 or more)")
     record: dict[str, Any] = {"control_flagged": None}
     noise_null, displacement_null = _noise_nulls(
-        measured, measure, options, noise is not None, reasons, record
+        measured, measure, options, noise is not None, reasons, record, control_p
     )
     drift_null = None
     try:
@@ -946,7 +1021,8 @@ def rank_run(
     reference : str, optional
         The slice the timeline is measured against (default: the first).
     measure : str
-        The ranking measure: ``displacement``, ``turnover``, ``local`` or ``combined``.
+        The ranking measure: ``evidence`` (default: displacement and local change, each
+        calibrated, their z combined), ``displacement``, ``turnover``, ``local`` or ``combined``.
     k : int
         Neighbours per word for turnover and local change.
     alpha : float

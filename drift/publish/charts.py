@@ -21,6 +21,7 @@ import pandas as pd
 import plotly.graph_objects as go
 from plotly.subplots import make_subplots
 
+from drift.options import score_column_of
 from drift.publish.wordviews import ChangeRange, WordGeometry
 
 #: Okabe-Ito colours by name (hex values as published by Okabe and Ito, 2008).
@@ -509,9 +510,8 @@ def rarer_count(scores: pd.DataFrame) -> pd.Series:
 
 def measure_column(scores: pd.DataFrame, measure: str | None) -> str:
     """The scores column holding the calibrated measure: the measure's own column or ``score``."""
-    return measure if measure in ("displacement", "turnover", "local") and measure in scores else (
-        "score"
-    )
+    column = score_column_of(measure or "displacement")
+    return column if column in scores else "score"
 
 
 def plotted_words(

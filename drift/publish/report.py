@@ -32,7 +32,7 @@ import plotly.graph_objects as go
 from drift import runfolder
 from drift.compare import neighbours, ranking
 from drift.errors import DriftError, unknown_word_error
-from drift.options import ReportOptions
+from drift.options import ReportOptions, score_column_of
 from drift.publish import charts, evidence, wordviews
 from drift.runfolder import RunPaths
 
@@ -591,7 +591,7 @@ def word_facts_html(data: RunData, view: WordView) -> str:
         ("cosine displacement", f"{fmt(row.get('displacement'))} ± "
          f"{fmt(row.get('displacement_sd'))} (seeds)"),
     ]
-    if data.measure != "displacement":
+    if score_column_of(data.measure) != "displacement":
         rank_k = data.rank_params.get("k")
         facts.append((f"ranking score ({data.measure}, over the {rank_k} nearest as ranked)",
                       fmt(row.get("score"))))
@@ -893,7 +893,7 @@ of control words this frequent moved less than its top edge. It is a per-slice l
 for testing {len(data.scores):,} words at once, so a point above it is not by itself significant;
 the verdict uses q, which is corrected (Benjamini-Hochberg). z is measured on the log of the
 distance, against words of the same frequency and the same seed-to-seed noise, and the verdict
-needs both nulls: beyond noise, and beyond the corpus's own drift.{
+needs both nulls: beyond noise, and beyond the corpus's own drift{_evidence_note(data.measure)}.{
     ' The dotted line is the typical movement of words this frequent in this corpus.'
     if 'typical' in data.timeline else ''}</p>
 {change_html(data, view)}
@@ -1012,6 +1012,17 @@ def _change_cell(row: Any, n_slices: int, labels: Sequence[str]) -> str:
     return f"{esc(before)} → {esc(after)}"
 
 
+def _evidence_note(measure: str) -> str:
+    """A sentence on how the ``evidence`` measure's z is made ('' for the other measures)."""
+    if measure != "evidence":
+        return ""
+    return (
+        " (z combines two measures, each calibrated the same way: the cosine displacement and "
+        "the change of the word's place among its own nearest neighbours; Stouffer's method, "
+        "corrected for the correlation between them)"
+    )
+
+
 def ranked_table_html(
     scores: pd.DataFrame,
     links: dict[str, str],
@@ -1020,7 +1031,7 @@ def ranked_table_html(
 ) -> str:
     """The ranked words; the score column is left out when it is the displacement itself. A
     change point is shown only where it is warranted (significant, positive step)."""
-    show_score = measure != "displacement"
+    show_score = score_column_of(measure or "displacement") != "displacement"
     labels = list(labels or [])
     head = (
         '<tr><th class="num">rank</th><th>word</th>'
@@ -1195,7 +1206,7 @@ def report_page(
         "of its frequency and noisiness generally moved in this corpus"
         if data.scores["z"].notna().any()
         else "by the corpus drift null's z (no control in this run)"
-    )
+    ) + _evidence_note(data.measure)
     body = f"""
 <nav><a href="word-index.html">All {len(data.scores):,} measured words</a></nav>
 <p class="muted">drift · overview report</p>
