@@ -55,10 +55,10 @@ def measure_phrase(measure: str) -> str:
     """How a ranking measure is named in sentences (tables' notes, pages).
 
     >>> measure_phrase("evidence")
-    'displacement and local change (their calibrated z combined)'
+    'displacement and local change combined'
     """
     if measure == "evidence":
-        return "displacement and local change (their calibrated z combined)"
+        return "displacement and local change combined"
     return measure
 
 

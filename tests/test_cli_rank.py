@@ -304,3 +304,21 @@ def test_slice_summary_fits_80_columns_with_long_labels():
     assert f"Not shown at this width: {', '.join(dropped)}" in table.caption.plain
     whole = summary_view(summary, "Slices", None)
     assert [str(c.header) for c in whole.columns] == list(summary.columns)
+
+
+def test_scores_table_shows_a_change_point_only_where_the_pages_do(run):
+    """The terminal table and the word pages agree: a change point is shown for a significant
+    word that moved away (positive step), and '-' for the others."""
+    from drift.cli.rank_views import scores_table
+    from drift.compare.ranking import rank_record, rank_run
+
+    rows = rank_run(run, k=8, quiet=True).head(3).copy()
+    rows["change_point"] = ["2002", "2002", "2002"]
+    rows["change_step"] = [0.5, 0.5, -0.5]
+    rows["significant"] = pd.array([True, False, True], dtype="boolean")
+    params = rank_record(run)["params"]
+    lines = _render(scores_table(rows, params, True, None), 400).splitlines()
+    cells = {word: [line for line in lines if f" {word} " in line][0] for word in rows["word"]}
+    first, second, third = rows["word"]
+    assert "2002 (+0.50)" in cells[first]
+    assert "2002" not in cells[second] and "2002" not in cells[third]

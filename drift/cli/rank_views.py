@@ -25,6 +25,7 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
+from drift.compare.changepoint import change_warranted
 from drift.options import measure_phrase, measures_judged, score_column_of
 
 #: Neighbours shown per cell in the scores table, strongest first (the files hold up to 10).
@@ -117,7 +118,9 @@ def _q_cell(row: Any) -> Text:
 
 
 def _change_cell(row: Any) -> Text:
-    if not isinstance(row.change_point, str) or not row.change_point:
+    """The change point, shown only where the pages show it too (a significant word that moved
+    away: :func:`drift.compare.changepoint.change_warranted`)."""
+    if not change_warranted(row._asdict()):
         return Text("-")
     return Text(f"{row.change_point} ({row.change_step:+.2f})")
 
@@ -195,7 +198,7 @@ def scores_table(
     if "change" in shown:
         notes.append(
             f"change: first slice after the change point (step in distance from "
-            f"{params.get('reference', first)})."
+            f"{params.get('reference', first)}), for significant words that moved away only."
         )
     if shown & {"gained", "lost"}:
         notes.append(

@@ -17,8 +17,10 @@ considered when the slice right after it has a value and both sides have at leas
 from __future__ import annotations
 
 import warnings
+from typing import Any
 
 import numpy as np
+import pandas as pd
 
 
 def standardise_by_slice(series: np.ndarray) -> np.ndarray:
@@ -73,3 +75,34 @@ def change_points(series: np.ndarray, standardise: bool = True) -> tuple[np.ndar
     position[rows] = best[rows] + 1
     step[rows] = raw[rows, best[rows]]
     return position, step
+
+
+# ------------------------------------------------------------- when a change point is shown
+
+
+def is_significant(value: object) -> bool:
+    """True only for a significant verdict; missing (no null to decide it) counts as not."""
+    try:
+        return bool(value is not None and not pd.isna(value) and value)
+    except (TypeError, ValueError):
+        return False
+
+
+def change_warranted(row: Any, n_slices: int | None = None) -> bool:
+    """A change point is shown only for a significant word whose step is positive (it moved
+    away, not back), on a run of more than two slices (``n_slices``; None: not checked, a run of
+    two slices has no change point anyway). ``row``: a mapping with ``significant``,
+    ``change_point`` and ``change_step``.
+
+    >>> change_warranted({"significant": True, "change_point": "1980s", "change_step": 0.4})
+    True
+    >>> change_warranted({"significant": False, "change_point": "1980s", "change_step": 0.4})
+    False
+    """
+    if row is None or (n_slices is not None and n_slices <= 2) or not is_significant(
+        row.get("significant")
+    ):
+        return False
+    point, step = row.get("change_point"), row.get("change_step")
+    return (isinstance(point, str) and point != "" and step is not None
+            and bool(np.isfinite(float(step))) and float(step) > 0)

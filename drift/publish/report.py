@@ -31,6 +31,7 @@ import plotly.graph_objects as go
 
 from drift import runfolder
 from drift.compare import neighbours, ranking
+from drift.compare.changepoint import change_warranted, is_significant
 from drift.errors import DriftError, unknown_word_error
 from drift.options import ReportOptions, score_column_of
 from drift.publish import charts, evidence, wordviews
@@ -197,24 +198,6 @@ def read_composition(run: Path) -> pd.DataFrame | None:
             except (OSError, ValueError):
                 return None
     return None
-
-
-def is_significant(value: object) -> bool:
-    """True only for a significant verdict; missing (no null to decide it) counts as not."""
-    try:
-        return bool(value is not None and not pd.isna(value) and value)
-    except (TypeError, ValueError):
-        return False
-
-
-def change_warranted(row: pd.Series | None, n_slices: int) -> bool:
-    """A change point is shown only for a significant word whose step is positive (it moved
-    away, not back), on a run of more than two slices."""
-    if row is None or n_slices <= 2 or not is_significant(row.get("significant")):
-        return False
-    point, step = row.get("change_point"), row.get("change_step")
-    return (isinstance(point, str) and point != "" and step is not None
-            and bool(np.isfinite(float(step))) and float(step) > 0)
 
 
 # ---------------------------------------------------------------------------- HTML pieces
