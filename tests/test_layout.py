@@ -78,3 +78,51 @@ def test_the_check_sees_an_upward_import(tmp_path):
     fake.write_text("def f():\n    from drift import build_report\n"
                     "    import drift.embed.training\n")
     assert {"drift.publish.report", "drift.embed.training"} <= imported_modules(fake)
+
+
+def _prints(path: Path) -> list[str]:
+    """Calls in ``path`` that write to the screen: print(), typer.echo(), or a console's print,
+    and any use of sys.stdout/sys.stderr (doctest examples are strings, so they do not count)."""
+    found = []
+    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+        if isinstance(node, ast.Call):
+            func = node.func
+            if isinstance(func, ast.Name) and func.id == "print":
+                found.append(f"print() at line {node.lineno}")
+            elif isinstance(func, ast.Attribute) and func.attr in ("echo", "secho"):
+                found.append(f"{func.attr}() at line {node.lineno}")
+            elif (isinstance(func, ast.Attribute) and func.attr == "print"
+                  and isinstance(func.value, ast.Name) and "console" in func.value.id):
+                found.append(f"{func.value.id}.print() at line {node.lineno}")
+        elif (isinstance(node, ast.Attribute) and node.attr in ("stdout", "stderr")
+              and isinstance(node.value, ast.Name) and node.value.id == "sys"):
+            found.append(f"sys.{node.attr} at line {node.lineno}")
+    return found
+
+
+def test_no_library_module_prints():
+    """Only the command line (and the one handler in progress.py that the command line installs)
+    writes to the screen; the stages log notes and warnings on the 'drift' logger."""
+    offenders = {}
+    for path in sorted(PACKAGE.rglob("*.py")):
+        name = module_name(path)
+        if layer_of(name) in ("cli", "__main__") or name == "drift.progress":
+            continue
+        if found := _prints(path):
+            offenders[name] = found
+    assert offenders == {}
+
+
+def test_library_notes_go_to_the_drift_logger(caplog):
+    """A note of the library goes to the 'drift' logger, unless quiet; the command line shows
+    the logger's records on stderr (tests/test_cli_slice.py checks a note there)."""
+    import logging
+
+    from drift.progress import note, warn
+
+    caplog.set_level(logging.INFO, logger="drift")
+    note("a note for the user")
+    note("a silenced note", quiet=True)
+    warn("a warning for the user")
+    assert caplog.record_tuples == [("drift", logging.INFO, "a note for the user"),
+                                    ("drift", logging.WARNING, "a warning for the user")]

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import logging
 import shutil
 from pathlib import Path
 
@@ -255,13 +256,14 @@ def test_evidence_combines_the_single_measure_rankings(own_geometry_run):
     assert evidence.loc[MOVED, "significant"].all()
 
 
-def test_rank_without_control_is_descriptive(tmp_path, capsys):
+def test_rank_without_control_is_descriptive(tmp_path, caplog):
+    caplog.set_level(logging.INFO, logger="drift")
     root = _geometry_run(tmp_path / "run", control=False, seeds=1)
     scores = rank_run(root, k=10)
     assert scores[["z", "p", "q", "null_centre"]].isna().all().all()
     assert not scores["significant"].any()
     assert scores["displacement_sd"].isna().all()  # one seed: no spread
-    assert "no control pair" in capsys.readouterr().err
+    assert "no control pair" in caplog.text  # a note on the drift logger, no print
     assert runfolder.read_manifest(root)["stages"]["rank"]["control_flagged"] is None
     # Ordered by the drift null's z (no control): the 8 planted movers among the first 10 of
     # the words seen at least 30 times (about 100 words).
@@ -270,7 +272,8 @@ def test_rank_without_control_is_descriptive(tmp_path, capsys):
     assert read_timeline(root)["null_p95"].isna().all()
 
 
-def test_too_small_control_gives_a_descriptive_ranking(tmp_path, capsys):
+def test_too_small_control_gives_a_descriptive_ranking(tmp_path, caplog):
+    caplog.set_level(logging.INFO, logger="drift")
     rng = np.random.default_rng(3)
     words = [f"w{i}" for i in range(200)]
     counts = np.arange(200, 0, -1) + 20
@@ -284,7 +287,7 @@ def test_too_small_control_gives_a_descriptive_ranking(tmp_path, capsys):
     assert scores["z"].isna().all() and scores["noise_z"].isna().all()
     assert scores["significant"].isna().all()  # unknown, not False
     assert scores["drift_z"].notna().all()  # the drift null needs no control
-    err = capsys.readouterr().err.replace("\n", " ")
+    err = caplog.text.replace("\n", " ")
     assert "significance unavailable: " in err
     assert "no noise null: The control pair has only 30 measured words" in err
     assert (scores["significance_note"] == scores["significance_note"].iloc[0]).all()
@@ -462,12 +465,13 @@ def test_real_text_null_flags_few_control_words(lee_run):
     json.dumps(stage)
 
 
-def test_k_larger_than_the_vocabulary_is_lowered_with_a_note(geometry_run, tmp_path, capsys):
+def test_k_larger_than_the_vocabulary_is_lowered_with_a_note(geometry_run, tmp_path, caplog):
+    caplog.set_level(logging.INFO, logger="drift")
     root, _ = geometry_run
     copy = tmp_path / "run"
     shutil.copytree(root, copy)
     scores = rank_run(copy, k=500)
-    err = capsys.readouterr().err.replace("\n", " ")
+    err = caplog.text.replace("\n", " ")
     assert "too few for --k 500" in err and "k = " in err
     record = runfolder.read_manifest(copy)["stages"]["rank"]
     assert record["params"]["k"] == 500 and record["k_used"] < 500

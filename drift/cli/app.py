@@ -35,6 +35,9 @@ def _main(
     ),
 ) -> None:
     """Find which words changed meaning across a dated text archive, when, and how."""
+    from drift.progress import show_notes
+
+    show_notes()
 
 
 def open_in_browser(path: str) -> None:

@@ -60,7 +60,7 @@ from drift.compare.measures import (
 )
 from drift.errors import DriftError
 from drift.options import ChartOptions, RankOptions, ViewOptions, default
-from drift.progress import progress_bars, stderr_console
+from drift.progress import note, progress_bars
 
 #: Neighbours per word for turnover and local change (why 50: see drift.options.RankOptions).
 DEFAULT_K: int = default(RankOptions, "k")
@@ -969,11 +969,6 @@ def _steps_calibration(
     return columns, displacement_null, record
 
 
-def _note(message: str, quiet: bool) -> None:
-    if not quiet:
-        stderr_console.print(f"note: {message}", markup=False, highlight=False, soft_wrap=True)
-
-
 def _inputs_fingerprint(inputs: RunInputs, anchor_words_list: list[str] | None) -> str:
     stages = inputs.manifest.get("stages", {})
     parts = {
@@ -1092,7 +1087,7 @@ def rank_run(
     if runfolder.stage_is_current(root, "rank", params, fingerprint) and all(
         p.exists() for p in outputs
     ) and runfolder.stale_reason(root, "rank") is None:
-        _note(f"scores in {root} are current; reusing them.", quiet)
+        note(f"scores in {root} are current; reusing them.", quiet)
         return read_scores(root)
 
     with runfolder.run_lock(root):
@@ -1103,9 +1098,9 @@ def rank_run(
             term_rule=check_term_rule(term_count, term_ratio),
         )
         for message in measured.notes:
-            _note(message, quiet)
+            note(message, quiet)
         if scores["significance_note"].iloc[:1].any():
-            _note(str(scores["significance_note"].iloc[0]) + ".", quiet)
+            note(str(scores["significance_note"].iloc[0]) + ".", quiet)
         with runfolder.atomic_path(inputs.paths.scores_parquet) as tmp:
             scores.to_parquet(tmp, index=False)
         with runfolder.atomic_path(inputs.paths.scores_csv) as tmp:

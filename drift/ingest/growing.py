@@ -43,6 +43,7 @@ from drift.errors import DriftError
 from drift.ingest import documents, slicing
 from drift.ingest.readers import open_source
 from drift.options import SliceOptions
+from drift.progress import note, warn
 
 STAGE = slicing.STAGE
 #: Slicing options that stay those of the run when documents are appended (the reader's options,
@@ -292,7 +293,7 @@ def append_archive(
         fingerprint = runfolder.fingerprint_path(source) if source.exists() else None
         if fingerprint is not None and fingerprint in [e.get("fingerprint") for e in entries]:
             if not quiet:
-                slicing._note(
+                note(
                     f"{source} was added to {paths.root} before (same content); nothing to add.",
                     quiet,
                 )
@@ -373,7 +374,7 @@ def append_archive(
             "date does not parse left out (--skip-bad-dates)."
         )
     for message in messages:
-        slicing._warn(message)
+        warn(message)
     summary.attrs.update(reused=False, warnings=messages, totals=merged_totals)
     return summary
 

@@ -47,7 +47,7 @@ from drift.ingest.readers import DocBatch, Reader, open_source
 from drift.ingest.timeparse import BadDates, day_to_iso, iso_to_day, parse_times, year_of
 from drift.ingest.tokenize import tokenize_array
 from drift.options import SliceOptions
-from drift.progress import progress_bars, stderr_console
+from drift.progress import note, progress_bars, warn
 
 STAGE = "slice"
 #: Slices under about a million tokens give unstable vectors (common practice, no single
@@ -968,17 +968,6 @@ def read_counts(run: Path | str) -> pd.DataFrame:
 # ---------------------------------------------------------------------------- the stage
 
 
-def _note(message: str, quiet: bool) -> None:
-    if not quiet:
-        stderr_console.print(f"drift: {message}", markup=False, highlight=False, soft_wrap=True)
-
-
-def _warn(message: str) -> None:
-    stderr_console.print(
-        f"drift: warning: {message}", markup=False, highlight=False, soft_wrap=True
-    )
-
-
 def _count(number: int, noun: str) -> str:
     """'1 document', '2,000 documents'."""
     return f"{number:,} {noun}" + ("" if number == 1 else "s")
@@ -1226,7 +1215,7 @@ def slice_archive(
         if (
             runfolder.stage_is_current(paths.root, STAGE, params, inputs) or grown
         ) and _outputs_exist(paths, recorded.get("labels")):
-            _note(
+            note(
                 f"the slices in {paths.root} are current (same input and parameters"
                 f"{', plus the documents appended since' if grown else ''}); reusing them.",
                 quiet,
@@ -1283,7 +1272,7 @@ def slice_archive(
             f"{reader.encoding_used}; name another with --encoding)."
         )
     for message in messages:
-        _warn(message)
+        warn(message)
     summary.attrs.update(reused=False, warnings=messages, totals=totals)
     return summary
 
