@@ -63,30 +63,30 @@ class RunPaths:
 
     @property
     def slice_summary(self) -> Path:
-        return self.slices_dir / "summary.csv"
+        return TABLES["summary"].path(self.root)
 
     def slice_file(self, label: str) -> Path:
         return self.slices_dir / f"{label}.txt"
 
     @property
     def counts(self) -> Path:
-        return self.root / "counts.parquet"
+        return TABLES["counts"].path(self.root)
 
     @property
     def documents_parquet(self) -> Path:
-        return self.root / "documents.parquet"
+        return TABLES["documents"].path(self.root)
 
     @property
     def documents_csv(self) -> Path:
-        return self.root / "documents.csv"
+        return self.root / str(TABLES["documents"].csv_twin)
 
     @property
     def composition_parquet(self) -> Path:
-        return self.root / "composition.parquet"
+        return TABLES["composition"].path(self.root)
 
     @property
     def composition_csv(self) -> Path:
-        return self.root / "composition.csv"
+        return self.root / str(TABLES["composition"].csv_twin)
 
     @property
     def models_dir(self) -> Path:
@@ -102,33 +102,42 @@ class RunPaths:
     def control_model_file(self, label: str, seed: int) -> Path:
         return self.control_dir / label / f"seed-{seed}.npy"
 
+    def control_slice_file(self, name: str) -> Path:
+        """The text of control slice ``name`` (control-a, control-b)."""
+        return self.control_dir / "slices" / f"{name}.txt"
+
+    @property
+    def control_record(self) -> Path:
+        """What the control slices were made from (control/slices/control.json)."""
+        return self.control_dir / "slices" / "control.json"
+
     @property
     def scores_parquet(self) -> Path:
-        return self.root / "scores.parquet"
+        return TABLES["scores"].path(self.root)
 
     @property
     def scores_csv(self) -> Path:
-        return self.root / "scores.csv"
+        return self.root / str(TABLES["scores"].csv_twin)
 
     @property
     def timeline_parquet(self) -> Path:
-        return self.root / "timeline.parquet"
+        return TABLES["timeline"].path(self.root)
 
     @property
     def timeline_csv(self) -> Path:
-        return self.root / "timeline.csv"
+        return self.root / str(TABLES["timeline"].csv_twin)
 
     @property
     def terms_parquet(self) -> Path:
-        return self.root / "terms.parquet"
+        return TABLES["terms"].path(self.root)
 
     @property
     def terms_csv(self) -> Path:
-        return self.root / "terms.csv"
+        return self.root / str(TABLES["terms"].csv_twin)
 
     @property
     def neighbours_parquet(self) -> Path:
-        return self.root / "neighbours.parquet"
+        return TABLES["neighbours"].path(self.root)
 
     @property
     def charts_dir(self) -> Path:
@@ -137,6 +146,20 @@ class RunPaths:
     @property
     def word_charts_dir(self) -> Path:
         return self.charts_dir / "words"
+
+    @property
+    def report_index(self) -> Path:
+        """The report's first page (charts/index.html)."""
+        return self.charts_dir / "index.html"
+
+    @property
+    def word_index(self) -> Path:
+        """The searchable page of every measured word (charts/word-index.html)."""
+        return self.charts_dir / "word-index.html"
+
+    def word_page(self, word: str) -> Path:
+        """The page of ``word``: charts/words/<safe_name(word)>.html."""
+        return self.word_charts_dir / f"{safe_name(word)}.html"
 
 
 def package_version() -> str:
@@ -703,3 +726,159 @@ def safe_name(word: str, max_len: int = 40) -> str:
     slug = _SLUG_RE.sub("-", word.lower()).strip("-")[:max_len] or "word"
     digest = hashlib.sha256(word.encode("utf-8")).hexdigest()[:8]
     return f"{slug}-{digest}"
+
+
+# ---------------------------------------------------------------------------- tables
+
+
+@dataclass(frozen=True)
+class TableSchema:
+    """One table of the run folder: its file (relative to the root), a CSV twin where there is
+    one, the stage that writes it, and its columns in order, declared here once.
+
+    ``open_after``: further columns may follow this column (per slice label in counts and terms,
+    per ``--meta`` column in the document index); ``None``: exactly :attr:`columns`.
+    """
+
+    file: str
+    stage: str
+    columns: tuple[str, ...]
+    csv_twin: str | None = None
+    text_columns: tuple[str, ...] = ()
+    open_after: str | None = None
+
+    def path(self, root: Path | str) -> Path:
+        return Path(root) / self.file
+
+    def check(self, frame: Any, where: str = "") -> None:
+        """Raise DriftError unless ``frame`` has the declared columns (in order)."""
+        names = frame.column_names if hasattr(frame, "column_names") else frame.columns
+        columns = [str(c) for c in names]
+        missing = [c for c in self.columns if c not in columns]
+        if missing:
+            raise DriftError(
+                f"{where or self.file} lacks the column(s) {', '.join(missing)}; rerun "
+                f"'drift {self.stage}' to rewrite it."
+            )
+        if self.open_after is None and columns != list(self.columns):
+            extra = [c for c in columns if c not in self.columns]
+            raise DriftError(
+                f"{where or self.file} has columns {', '.join(extra) or 'in another order'} that "
+                f"drift does not write; rerun 'drift {self.stage}' to rewrite it."
+            )
+
+
+SCORE_COLUMNS = (
+    "word", "rank", "score", "displacement", "displacement_sd", "turnover", "turnover_sd",
+    "local", "local_sd", "count_from", "count_to", "fpm_from", "fpm_to", "log_freq_ratio",
+    "seed_noise", "null_centre", "null_spread", "noise_z", "noise_p", "noise_q",
+    "typical", "typical_spread", "drift_z", "drift_p", "drift_q",
+    "z", "p", "q", "significant", "significance_note", "change_point", "change_step",
+    "gained", "lost",
+)
+TIMELINE_COLUMNS = (
+    "word", "slice", "distance", "distance_sd", "turnover", "count", "fpm", "null_p95", "typical",
+)
+NEIGHBOUR_COLUMNS = ("word", "slice", "rank", "neighbour", "similarity")
+TERM_COLUMNS = ("word", "kind", "count_from", "count_to", "fpm_from", "fpm_to", "ratio",
+                "measured")
+SUMMARY_COLUMNS = ("label", "start", "end", "documents", "tokens", "types", "dropped")
+COMPOSITION_COLUMNS = ("slice", "column", "value", "documents", "tokens", "share")
+
+#: Every table of a run folder (DEVELOPERS.md describes each column).
+TABLES: dict[str, TableSchema] = {
+    "summary": TableSchema("slices/summary.csv", "slice", SUMMARY_COLUMNS,
+                           text_columns=("label", "start", "end")),
+    "counts": TableSchema("counts.parquet", "slice", ("word",), text_columns=("word",),
+                          open_after="word"),
+    "documents": TableSchema("documents.parquet", "slice", ("document", "date"),
+                             csv_twin="documents.csv", text_columns=("document", "date"),
+                             open_after="date"),
+    "composition": TableSchema("composition.parquet", "slice", COMPOSITION_COLUMNS,
+                               csv_twin="composition.csv",
+                               text_columns=("slice", "column", "value")),
+    "scores": TableSchema("scores.parquet", "rank", SCORE_COLUMNS, csv_twin="scores.csv",
+                          text_columns=("word",)),
+    "timeline": TableSchema("timeline.parquet", "rank", TIMELINE_COLUMNS,
+                            csv_twin="timeline.csv", text_columns=("word", "slice")),
+    "terms": TableSchema("terms.parquet", "rank", TERM_COLUMNS, csv_twin="terms.csv",
+                         text_columns=("word", "kind"), open_after="measured"),
+    "neighbours": TableSchema("neighbours.parquet", "rank", NEIGHBOUR_COLUMNS,
+                              text_columns=("word", "slice", "neighbour")),
+}
+#: Columns the document index always has after the ``--meta`` columns.
+DOCUMENT_TAIL = ("slice", "source_row", "source_file", "line", "lines", "tokens")
+
+
+def write_table(root: Path | str, name: str, frame: Any) -> Path:
+    """Write table ``name`` of :data:`TABLES` into ``root`` (and its CSV twin), atomically.
+
+    The columns are checked against the schema first: a stage cannot write a table other code
+    would not read. Returns the main file's path.
+
+    >>> import pandas as pd, tempfile
+    >>> root = Path(tempfile.mkdtemp())
+    >>> frame = pd.DataFrame({"word": ["a"], "slice": ["1990"], "rank": [1], "neighbour": ["b"],
+    ...                       "similarity": [0.5]})
+    >>> write_table(root, "neighbours", frame).name
+    'neighbours.parquet'
+    >>> read_table(root, "neighbours")["neighbour"].tolist()
+    ['b']
+    """
+    schema = TABLES[name]
+    schema.check(frame, where=f"the {name} table")
+    path = schema.path(root)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    if hasattr(frame, "column_names"):  # a pyarrow Table
+        frame = frame.to_pandas() if path.suffix == ".csv" or schema.csv_twin else frame
+    if path.suffix == ".csv":
+        write_text_atomic(path, frame.to_csv(index=False))
+    elif hasattr(frame, "column_names"):
+        import pyarrow.parquet as pq
+
+        with atomic_path(path) as tmp:
+            pq.write_table(frame, tmp)
+    else:
+        with atomic_path(path) as tmp:
+            frame.to_parquet(tmp, index=False)
+    if schema.csv_twin:
+        with atomic_path(Path(root) / schema.csv_twin) as tmp:
+            frame.to_csv(tmp, index=False)
+    return path
+
+
+def read_table(root: Path | str, name: str, columns: list[str] | None = None) -> Any:
+    """Read table ``name`` of :data:`TABLES` from ``root``, its columns checked.
+
+    A missing file is a DriftError naming the command that writes it; in a CSV table the text
+    columns stay text (a label such as ``1990`` is not read as a number).
+    """
+    import pandas as pd
+
+    schema = TABLES[name]
+    path = schema.path(root)
+    if not path.is_file():
+        raise DriftError(
+            f"{Path(root)} has no {schema.file}; run 'drift {schema.stage}' on it first."
+        )
+    try:
+        if path.suffix == ".csv":
+            frame = pd.read_csv(path, dtype={c: str for c in schema.text_columns})
+        else:
+            frame = pd.read_parquet(path, columns=columns)
+    except (OSError, ValueError) as exc:
+        raise DriftError(
+            f"{path} cannot be read ({exc.__class__.__name__}); rerun 'drift {schema.stage}' "
+            "to rewrite it."
+        ) from exc
+    if columns is None:
+        schema.check(frame, where=str(path))
+    return frame
+
+
+def slice_labels(root: Path | str) -> list[str]:
+    """The slice labels of a run in time order: run.json's record, else the slice summary."""
+    labels = read_manifest(Path(root)).get("stages", {}).get("slice", {}).get("labels")
+    if labels:
+        return [str(label) for label in labels]
+    return [str(label) for label in read_table(root, "summary")["label"]]

@@ -4,7 +4,9 @@ Real text: gensim's bundled Lee background corpus (gensim/test/test_data/lee_bac
 news documents) cut into three consecutive slices. Tiny gensim Word2Vec models per slice and
 seed. The rank-stage files (scores, timeline, terms) hold values computed plainly here (Procrustes
 from SciPy, Jaccard turnover, a per-frequency-bin null); they are plausible inputs for the charts,
-not a reimplementation of the ranking stage under test.
+not a reimplementation of the ranking stage under test. Every table is written through
+drift.runfolder's writers, which check its columns against the contract; a column the fixture
+does not compute (local change, the drift null, seed noise) is left missing.
 
 Hostile tokens (markup, a path) are added to every slice so the pages can be tested with words
 that are data from strangers.
@@ -155,11 +157,11 @@ def build_fixture_run(root: Path) -> Path:
                 "dropped": 0,
             }
         )
-    pd.DataFrame(summary_rows).to_csv(paths.slice_summary, index=False)
+    runfolder.write_table(root, "summary", pd.DataFrame(summary_rows))
     counts = pd.DataFrame(counters).fillna(0).astype("int64")
     counts = counts.loc[counts.sum(axis=1).sort_values(ascending=False, kind="stable").index]
     counts.index.name = "word"
-    counts.reset_index().to_parquet(paths.counts, index=False)
+    runfolder.write_table(root, "counts", counts.reset_index())
     runfolder.record_stage(root, "slice", {"by": "year"}, "fixture", 0.0, {"labels": list(LABELS)})
 
     # --- train stage: tiny models per slice and seed, and the time-shuffled control pair
@@ -175,7 +177,7 @@ def build_fixture_run(root: Path) -> Path:
               "control-b": pooled[len(slices[reference]) :]}
     control = {}
     for name, lines in halves.items():
-        text = paths.control_dir / "slices" / f"{name}.txt"
+        text = paths.control_slice_file(name)
         text.parent.mkdir(parents=True, exist_ok=True)
         text.write_text("\n".join(lines) + "\n", encoding="utf-8")
         control[name] = [_train(text, paths.control_model_file(name, seed), seed)
@@ -241,8 +243,8 @@ def build_fixture_run(root: Path) -> Path:
                     "null_p95": float(p95[i]),
                 }
             )
-    timeline = pd.DataFrame(rows)
-    timeline.to_parquet(paths.timeline_parquet, index=False)
+    timeline = pd.DataFrame(rows).reindex(columns=runfolder.TIMELINE_COLUMNS)  # typical: NaN
+    runfolder.write_table(root, "timeline", timeline)
 
     final = timeline[timeline.slice == last].set_index("word").loc[shared]
     count_from = ref_counts
@@ -270,13 +272,10 @@ def build_fixture_run(root: Path) -> Path:
     scores = pd.DataFrame(
         {
             "word": shared,
-            "score": z,
+            "score": disp,  # the ranking measure, displacement, as the rank stage stores it
             "displacement": disp,
             "displacement_sd": final["distance_sd"].to_numpy(),
             "turnover": final["turnover"].to_numpy(),
-            "turnover_sd": 0.0,
-            "local": disp / 2,
-            "local_sd": 0.0,
             "count_from": count_from.astype("int64"),
             "count_to": count_to.astype("int64"),
             "fpm_from": fpm_from,
@@ -284,6 +283,9 @@ def build_fixture_run(root: Path) -> Path:
             "log_freq_ratio": np.log2(fpm_to / fpm_from),
             "null_centre": centre,
             "null_spread": spread,
+            "noise_z": z,
+            "noise_p": p,
+            "noise_q": q,
             "z": z,
             "p": p,
             "q": q,
@@ -294,10 +296,13 @@ def build_fixture_run(root: Path) -> Path:
             "lost": lost,
         }
     )
-    scores = scores.sort_values("score", ascending=False, kind="stable").reset_index(drop=True)
+    scores = scores.sort_values("z", ascending=False, kind="stable").reset_index(drop=True)
     scores.insert(1, "rank", np.arange(1, len(scores) + 1))
-    scores.to_parquet(paths.scores_parquet, index=False)
-    scores.to_csv(paths.scores_csv, index=False)
+    # Columns this fixture does not compute (local change, the drift null, seed noise) are left
+    # missing, as a stage leaves a value it could not compute.
+    scores = scores.reindex(columns=runfolder.SCORE_COLUMNS)
+    scores["significance_note"] = ""
+    runfolder.write_table(root, "scores", scores)
 
     fpm_table = counts.div(pd.Series(totals)) * 1e6
     emerging = counts.index[(counts[reference] == 0) & (counts[last] >= 3)]
@@ -328,7 +333,10 @@ def build_fixture_run(root: Path) -> Path:
             **{f"fpm:{label}": float(fpm_table.at[hostile, label]) for label in LABELS},
         }
     )
-    pd.DataFrame(term_rows).to_parquet(paths.terms_parquet, index=False)
+    terms = pd.DataFrame(term_rows)
+    terms.insert(6, "ratio", terms["fpm_to"] / terms["fpm_from"].where(terms["fpm_from"] > 0))
+    terms.insert(7, "measured", terms["word"].isin(set(shared)))
+    runfolder.write_table(root, "terms", terms)
     # The neighbours table through the rank stage's own writer (drift.compare.neighbours).
     write_neighbours_table(root, list(scores["word"]))
     runfolder.record_stage(

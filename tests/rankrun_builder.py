@@ -53,7 +53,7 @@ def _write_slices(root: Path, slices: Mapping[str, Sequence[Sequence[str]]]) -> 
                 "dropped": 0,
             }
         )
-    pd.DataFrame(rows).to_csv(paths.slice_summary, index=False)
+    runfolder.write_table(paths.root, "summary", pd.DataFrame(rows))
     _write_counts(paths, {label: dict(c) for label, c in counters.items()})
     runfolder.record_stage(root, "slice", {"by": "year"}, "test", 0.0, {"labels": list(slices)})
     return paths
@@ -64,7 +64,7 @@ def _write_counts(paths: runfolder.RunPaths, counters: Mapping[str, Mapping[str,
     table = table.fillna(0).astype("int64")
     table = table.loc[table.sum(axis=1).sort_values(ascending=False, kind="stable").index]
     table.index.name = "word"
-    table.reset_index().to_parquet(paths.counts, index=False)
+    runfolder.write_table(paths.root, "counts", table.reset_index())
 
 
 def _save_model(target: Path, docs: Sequence[Sequence[str]], seed: int, dim: int, epochs: int,
@@ -106,7 +106,7 @@ def write_text_run(
             "control-b": [pooled[i] for i in order[cut:]],
         }
         for name, docs in pair.items():
-            text = paths.control_dir / "slices" / f"{name}.txt"
+            text = paths.control_slice_file(name)
             text.parent.mkdir(parents=True, exist_ok=True)
             text.write_text("\n".join(" ".join(d) for d in docs) + "\n", "utf-8")
             for k in range(seeds):
@@ -153,7 +153,7 @@ def write_array_run(
             {"label": label, "start": f"{2000 + i}-01-01", "end": f"{2000 + i}-12-31",
              "documents": 1, "tokens": tokens, "types": len(words), "dropped": 0}
         )
-    pd.DataFrame(rows).to_csv(paths.slice_summary, index=False)
+    runfolder.write_table(paths.root, "summary", pd.DataFrame(rows))
     counters = {label: dict(zip(w, map(int, c), strict=True))
                 for label, (w, _, c) in slices.items()}
     _write_counts(paths, counters)

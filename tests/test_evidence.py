@@ -142,11 +142,14 @@ def test_undecodable_bytes_are_replaced_not_fatal(tmp_path):
 
 
 def test_missing_slice_file_is_a_clear_error(tmp_path):
+    import pandas as pd
+
+    from drift import runfolder
+
     root = tmp_path / "run"
-    (root / "slices").mkdir(parents=True)
-    (root / "slices" / "summary.csv").write_text(
-        "label,start,end,documents,tokens,types,dropped\n1990,1990-01-01,1990-12-31,1,1,1,0\n"
-    )
+    runfolder.write_table(root, "summary", pd.DataFrame(
+        {"label": ["1990"], "start": ["1990-01-01"], "end": ["1990-12-31"], "documents": [1],
+         "tokens": [1], "types": [1], "dropped": [0]}))
     with pytest.raises(DriftError, match="Slice file .*1990.txt is missing"):
         evidence.example_sentences(root, "word")
 

@@ -580,8 +580,11 @@ def test_report_shows_the_slice_composition_when_the_run_has_it(tmp_path):
     run = fixture_run_copy(tmp_path / "run")
     page = report.build_report(run, top=0).read_text(encoding="utf-8")
     assert "records no slice composition" in page
-    pd.DataFrame({"slice": list(LABELS), "source": ["wire"] * 3, "documents": [90, 95, 99]}
-                 ).to_parquet(run / "composition.parquet", index=False)
+    from drift import runfolder
+
+    runfolder.write_table(run, "composition", pd.DataFrame(
+        {"slice": list(LABELS), "column": "source", "value": ["wire"] * 3,
+         "documents": [90, 95, 99], "tokens": [9000, 9500, 9900], "share": [1.0, 1.0, 1.0]}))
     page = report.build_report(run, top=0).read_text(encoding="utf-8")
     section = page.split("Slice composition", 1)[1].split("<h3>", 1)[0]
     assert "<td>wire</td>" in section and '<td class="num">95</td>' in section

@@ -238,3 +238,99 @@ def test_safe_names_keep_different_words_apart():
     names = [runfolder.safe_name(w) for w in words]
     assert len(set(names)) == len(words)
     assert runfolder.safe_name("tablet") == runfolder.safe_name("tablet")  # the same every time
+
+
+# ---------------------------------------------------------------------------- table contract
+
+
+def _check_every_table(root: Path) -> set[str]:
+    """Read every table the run holds through the contract's reader (which checks the columns
+    against runfolder.TABLES); return the names found."""
+    found = set()
+    for name, schema in runfolder.TABLES.items():
+        if schema.path(root).is_file():
+            frame = runfolder.read_table(root, name)
+            schema.check(frame)
+            if schema.csv_twin:
+                import pandas as pd
+
+                twin = pd.read_csv(root / schema.csv_twin, nrows=1)
+                assert list(twin.columns) == list(frame.columns), name
+            found.add(name)
+    return found
+
+
+@pytest.fixture(scope="module")
+def staged_run(tmp_path_factory):
+    """A run made by drift's own slice, train and rank stages from real text: gensim's bundled
+    Lee background corpus (300 news documents) given dates in 1990-2009 and a metadata column."""
+    import pandas as pd
+    from gensim.test.utils import datapath
+
+    import drift
+
+    with open(datapath("lee_background.cor"), encoding="utf-8") as handle:
+        texts = [line.strip() for line in handle if line.strip()]
+    frame = pd.DataFrame({
+        "id": [f"doc-{i}" for i in range(len(texts))],
+        "date": [f"{1990 + (i * 7) % 20}-06-01" for i in range(len(texts))],
+        "desk": ["home" if i % 3 else "abroad" for i in range(len(texts))],
+        "text": texts,
+    })
+    base = tmp_path_factory.mktemp("staged")
+    frame.to_csv(base / "lee.csv", index=False)
+    run = base / "run"
+    drift.slice_archive(base / "lee.csv", run, by="decade", id_col="id", meta=["desk"],
+                        quiet=True)
+    drift.train_run(run, dim=16, epochs=2, seeds=2, min_count=3, quiet=True)
+    drift.rank_run(run, k=10, quiet=True)
+    return run
+
+
+def test_the_stages_write_every_table_as_the_contract_declares(staged_run):
+    assert _check_every_table(staged_run) == set(runfolder.TABLES)
+
+
+def test_the_test_fixtures_write_tables_the_contract_accepts(tmp_path):
+    """The fixtures write through the same writers, so their tables pass the same check."""
+    from chart_run_fixture import fixture_run_copy
+    from train_fixtures import make_run
+
+    charts = fixture_run_copy(tmp_path / "charts")
+    assert {"summary", "counts", "scores", "timeline", "terms", "neighbours"} <= (
+        _check_every_table(charts)
+    )
+    trained = make_run(tmp_path / "train", {"2001": ["a b c"], "2002": ["c d e"]})
+    assert "summary" in _check_every_table(trained)
+
+
+def test_a_table_off_the_contract_is_refused_on_write_and_on_read(tmp_path):
+    import pandas as pd
+
+    invented = pd.DataFrame({"word": ["a"], "score": [1.0]})
+    with pytest.raises(DriftError, match="lacks the column"):
+        runfolder.write_table(tmp_path, "scores", invented)
+    assert not (tmp_path / "scores.parquet").exists()
+    extra = pd.DataFrame({c: [0] for c in runfolder.NEIGHBOUR_COLUMNS + ("bonus",)})
+    with pytest.raises(DriftError, match="bonus"):
+        runfolder.write_table(tmp_path, "neighbours", extra)
+    invented.to_parquet(tmp_path / "scores.parquet")  # written by hand, past the writer
+    with pytest.raises(DriftError, match="rerun 'drift rank'"):
+        runfolder.read_table(tmp_path, "scores")
+
+
+def test_a_missing_table_names_the_command_that_writes_it(tmp_path):
+    with pytest.raises(DriftError, match="run 'drift slice'"):
+        runfolder.read_table(tmp_path, "counts")
+
+
+def test_a_text_label_stays_text(tmp_path):
+    """Slice labels such as 1990 read back as text from the CSV summary, not as numbers."""
+    import pandas as pd
+
+    runfolder.write_table(tmp_path, "summary", pd.DataFrame(
+        {"label": ["1990", "2000"], "start": ["1990-01-01", "2000-01-01"],
+         "end": ["1999-12-31", "2009-12-31"], "documents": [1, 1], "tokens": [5, 5],
+         "types": [5, 5], "dropped": [0, 0]}))
+    assert runfolder.read_table(tmp_path, "summary")["label"].tolist() == ["1990", "2000"]
+    assert runfolder.slice_labels(tmp_path) == ["1990", "2000"]

@@ -14,6 +14,7 @@ import shutil
 from collections import Counter
 from pathlib import Path
 
+import pandas as pd
 from gensim.test.utils import datapath
 from gensim.utils import simple_preprocess
 
@@ -50,15 +51,15 @@ def make_run(root: Path, slices: dict[str, list[str]]) -> Path:
     """A run folder holding ``slices`` (label -> lines, in time order) as the slice stage would."""
     root = Path(root)
     paths = runfolder.prepare_run_folder(root)
-    rows = ["label,start,end,documents,tokens,types,dropped"]
+    rows = []
     for number, (label, lines) in enumerate(slices.items()):
         runfolder.write_text_atomic(paths.slice_file(label), "".join(f"{line}\n" for line in lines))
         words = [word for line in lines for word in line.split()]
         year = 2001 + number
-        rows.append(
-            f"{label},{year}-01-01,{year}-12-31,{len(lines)},{len(words)},{len(set(words))},0"
-        )
-    runfolder.write_text_atomic(paths.slice_summary, "\n".join(rows) + "\n")
+        rows.append({"label": label, "start": f"{year}-01-01", "end": f"{year}-12-31",
+                     "documents": len(lines), "tokens": len(words), "types": len(set(words)),
+                     "dropped": 0})
+    runfolder.write_table(root, "summary", pd.DataFrame(rows))
     runfolder.record_stage(root, "slice", {"by": "test"}, "test", 0.0, {"labels": list(slices)})
     return root
 

@@ -27,7 +27,7 @@ from drift.errors import DriftError, unknown_word_error
 #: Neighbours per slice shown on word pages and stored in neighbours.parquet; the word pages'
 #: gained, lost and turnover are computed at this k, so a page states one k.
 PAGE_K = 10
-NEIGHBOUR_COLUMNS = ["word", "slice", "rank", "neighbour", "similarity"]
+NEIGHBOUR_COLUMNS = list(runfolder.NEIGHBOUR_COLUMNS)
 
 
 @dataclass
@@ -144,10 +144,7 @@ def write_neighbours_table(
     """Compute the neighbours of ``words`` and write RUN/neighbours.parquet; return its path."""
     models = models or load_run_models(run)
     table = compute_neighbours(models, words, k)
-    path = runfolder.RunPaths(Path(run)).neighbours_parquet
-    with runfolder.atomic_path(path) as tmp:
-        table.to_parquet(tmp, index=False)
-    return path
+    return runfolder.write_table(Path(run), "neighbours", table)
 
 
 def read_neighbours(run: str | Path) -> pd.DataFrame | None:
@@ -157,7 +154,7 @@ def read_neighbours(run: str | Path) -> pd.DataFrame | None:
         return None
     if runfolder.stale_reason(Path(run), "rank") is not None:
         return None  # made from older models or slices: never shown, recomputed from the models
-    table = pd.read_parquet(path)
+    table = runfolder.read_table(Path(run), "neighbours")
     for column in ("word", "slice", "neighbour"):
         table[column] = table[column].astype(str).astype(object)
     return table

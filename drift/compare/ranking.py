@@ -71,18 +71,9 @@ MEASURES = options.MEASURES
 NEIGHBOURS_LISTED = 10
 CONTROL_NAMES = ("control-a", "control-b")
 
-SCORE_COLUMNS = [
-    "word", "rank", "score", "displacement", "displacement_sd", "turnover", "turnover_sd",
-    "local", "local_sd", "count_from", "count_to", "fpm_from", "fpm_to", "log_freq_ratio",
-    "seed_noise", "null_centre", "null_spread", "noise_z", "noise_p", "noise_q",
-    "typical", "typical_spread", "drift_z", "drift_p", "drift_q",
-    "z", "p", "q", "significant", "significance_note", "change_point", "change_step",
-    "gained", "lost",
-]
-TIMELINE_COLUMNS = [
-    "word", "slice", "distance", "distance_sd", "turnover", "count", "fpm", "null_p95",
-    "typical",
-]
+#: The columns of scores and timeline, declared in drift.runfolder (as lists, for indexing).
+SCORE_COLUMNS = list(runfolder.SCORE_COLUMNS)
+TIMELINE_COLUMNS = list(runfolder.TIMELINE_COLUMNS)
 COMPARE_MODES = options.COMPARE_MODES
 #: Default share of anchors left out of the refitted alignment (see alignment.align_onto).
 DEFAULT_ANCHOR_TRIM: float = default(RankOptions, "anchor_trim")
@@ -102,13 +93,6 @@ class RunInputs:
     counts: pd.DataFrame  # index word, one int64 column per slice label
     tokens: dict[str, int]
     manifest: dict[str, Any] = field(repr=False)
-
-
-def _slice_labels(paths: runfolder.RunPaths, manifest: dict[str, Any]) -> list[str]:
-    labels = manifest.get("stages", {}).get("slice", {}).get("labels")
-    if labels:
-        return [str(label) for label in labels]
-    return [str(label) for label in pd.read_csv(paths.slice_summary, dtype={"label": str})["label"]]
 
 
 def _check_models_exist(
@@ -135,7 +119,7 @@ def read_run_inputs(run: str | Path) -> RunInputs:
     manifest = runfolder.read_manifest(paths.root)
     if not paths.slice_summary.exists():
         raise DriftError(f"{paths.root} has no slices/summary.csv; rerun 'drift slice'.")
-    labels = _slice_labels(paths, manifest)
+    labels = runfolder.slice_labels(paths.root)
     if len(labels) < 2:
         raise DriftError(
             f"{paths.root} has {len(labels)} slice; ranking needs at least two, so slice the "
@@ -146,11 +130,9 @@ def read_run_inputs(run: str | Path) -> RunInputs:
     seeds = trained_seeds(paths.root)
     control = control_info(paths.root)
     _check_models_exist(paths, labels, seeds, bool(control))
-    summary = pd.read_csv(paths.slice_summary, dtype={"label": str})
+    summary = runfolder.read_table(paths.root, "summary")
     tokens = {str(r.label): int(r.tokens) for r in summary.itertuples()}
-    if not paths.counts.exists():
-        raise DriftError(f"{paths.root} has no counts.parquet; rerun 'drift slice'.")
-    counts = pd.read_parquet(paths.counts).set_index("word")
+    counts = runfolder.read_table(paths.root, "counts").set_index("word")
     return RunInputs(paths, labels, seeds, control or None, counts, tokens, manifest)
 
 
@@ -1101,19 +1083,9 @@ def rank_run(
             note(message, quiet)
         if scores["significance_note"].iloc[:1].any():
             note(str(scores["significance_note"].iloc[0]) + ".", quiet)
-        with runfolder.atomic_path(inputs.paths.scores_parquet) as tmp:
-            scores.to_parquet(tmp, index=False)
-        with runfolder.atomic_path(inputs.paths.scores_csv) as tmp:
-            scores.to_csv(tmp, index=False)
-        with runfolder.atomic_path(inputs.paths.timeline_parquet) as tmp:
-            timeline.to_parquet(tmp, index=False)
-        with runfolder.atomic_path(inputs.paths.terms_parquet) as tmp:
-            terms.to_parquet(tmp, index=False)
+        for name, table in (("scores", scores), ("timeline", timeline), ("terms", terms)):
+            runfolder.write_table(root, name, table)
         _write_neighbours(root, list(scores["word"]))
-        with runfolder.atomic_path(inputs.paths.terms_csv) as tmp:
-            terms.to_csv(tmp, index=False)
-        with runfolder.atomic_path(inputs.paths.timeline_csv) as tmp:
-            timeline.to_csv(tmp, index=False)
         runfolder.record_stage(
             root, "rank", params, fingerprint, time.perf_counter() - started, extra=extra,
             outputs=[*outputs, paths.scores_csv],
@@ -1326,15 +1298,14 @@ def _timeline_frame(
 # ---------------------------------------------------------------------------- reading results
 
 
-def _read_table(run: str | Path, path_of: str, what: str) -> pd.DataFrame:
+def _read_table(run: str | Path, name: str, what: str) -> pd.DataFrame:
     paths = runfolder.existing_run(Path(run), needs="scores")
-    path = getattr(paths, path_of)
-    if not path.exists():
+    if not runfolder.TABLES[name].path(paths.root).exists():
         raise DriftError(
             f"{paths.root} has no {what} yet; compute it with 'drift rank {paths.root}'."
         )
     runfolder.check_current(paths.root, "rank")  # never a table made from older models
-    return pd.read_parquet(path)
+    return runfolder.read_table(paths.root, name)
 
 
 def read_scores(run: str | Path) -> pd.DataFrame:
@@ -1365,7 +1336,7 @@ def read_scores(run: str | Path) -> pd.DataFrame:
     >>> {"word", "displacement", "turnover", "z", "q", "gained", "lost"} <= set(scores.columns)
     True
     """
-    return _read_table(run, "scores_parquet", "scores")
+    return _read_table(run, "scores", "scores")
 
 
 def read_timeline(run: str | Path) -> pd.DataFrame:
@@ -1394,7 +1365,7 @@ def read_timeline(run: str | Path) -> pd.DataFrame:
     >>> timeline[timeline["word"] == "tablet"]["slice"].tolist() == drift.slice_labels(run)
     True
     """
-    return _read_table(run, "timeline_parquet", "timeline")
+    return _read_table(run, "timeline", "timeline")
 
 
 def read_terms(run: str | Path) -> pd.DataFrame:
@@ -1423,7 +1394,7 @@ def read_terms(run: str | Path) -> pd.DataFrame:
     >>> set(terms["kind"]) <= {"emerging", "fading"}
     True
     """
-    return _read_table(run, "terms_parquet", "emerging and fading terms")
+    return _read_table(run, "terms", "emerging and fading terms")
 
 
 def rank_record(run: str | Path) -> dict[str, Any]:
@@ -1435,7 +1406,7 @@ def rank_record(run: str | Path) -> dict[str, Any]:
 def slice_labels(run: str | Path) -> list[str]:
     """The run's slice labels in time order."""
     paths = runfolder.existing_run(Path(run), needs="slices")
-    return _slice_labels(paths, runfolder.read_manifest(paths.root))
+    return runfolder.slice_labels(paths.root)
 
 
 def top_rows(

@@ -176,11 +176,11 @@ def resolve_between(labels: list[str], between: tuple[str, str] | list[str] | No
 
 
 def control_slice_file(paths: RunPaths, name: str) -> Path:
-    return paths.control_dir / "slices" / f"{name}.txt"
+    return paths.control_slice_file(name)
 
 
 def _control_record_file(paths: RunPaths) -> Path:
-    return paths.control_dir / "slices" / "control.json"
+    return paths.control_record
 
 
 def line_index(path: Path, chunk_size: int = 1 << 22) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -532,16 +532,16 @@ def _model_tasks(
     paths: RunPaths, params: TrainParams, labels: list[str], control: bool
 ) -> list[dict[str, Any]]:
     """Every model of the run, slices first (time order, then seed), then the control pair."""
-    groups = [("slice", label, paths.slice_file(label), paths.models_dir) for label in labels]
+    groups = [("slice", label, paths.slice_file(label), paths.model_file) for label in labels]
     if control:
         groups += [
-            ("control", name, control_slice_file(paths, name), paths.control_dir)
+            ("control", name, control_slice_file(paths, name), paths.control_model_file)
             for name in CONTROL_LABELS
         ]
     tasks = []
-    for group, label, corpus, folder in groups:
+    for group, label, corpus, locate in groups:
         for seed in range(params.seeds):
-            output = folder / label / f"seed-{seed}.npy"
+            output = locate(label, seed)
             tasks.append(
                 {
                     "key": f"{group}/{label}/seed-{seed}",

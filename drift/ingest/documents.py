@@ -41,7 +41,7 @@ MIX_SHIFT_WARNING = 0.2
 #: Columns of the index that are not metadata (a --meta column may not take these names).
 INDEX_COLUMNS = ("document", "date", "slice", "source_row", "source_file", "line", "lines",
                  "tokens")
-COMPOSITION_COLUMNS = ["slice", "column", "value", "documents", "tokens", "share"]
+COMPOSITION_COLUMNS = list(runfolder.COMPOSITION_COLUMNS)
 #: How a repeated id is made unique: the n-th use of an id (n >= 2) becomes ``id~n``.
 DUPLICATE_SUFFIX = "~"
 _MISSING = "(none)"
@@ -331,10 +331,7 @@ def _composition_frame(tallies, labels: Sequence[str]) -> pd.DataFrame:
 
 def write_composition(paths: runfolder.RunPaths, composition: pd.DataFrame) -> None:
     """composition.parquet and composition.csv."""
-    with runfolder.atomic_path(paths.composition_parquet) as tmp:
-        composition.to_parquet(tmp, index=False)
-    with runfolder.atomic_path(paths.composition_csv) as tmp:
-        composition.to_csv(tmp, index=False)
+    runfolder.write_table(paths.root, "composition", composition)
 
 
 # ---------------------------------------------------------------------------- reading
@@ -376,7 +373,7 @@ def read_documents(run: str | Path, columns: Sequence[str] | None = None) -> pd.
             f"{paths.root} has no document index (documents.parquet); slice it again with "
             "'drift slice' to make one."
         )
-    return pd.read_parquet(paths.documents_parquet, columns=list(columns) if columns else None)
+    return runfolder.read_table(paths.root, "documents", list(columns) if columns else None)
 
 
 def has_index(run: str | Path) -> bool:
@@ -467,7 +464,7 @@ def read_composition(run: str | Path) -> pd.DataFrame:
             f"{paths.root} has no composition table; slice it again with 'drift slice --meta "
             "COLUMN' to make one."
         )
-    return pd.read_parquet(paths.composition_parquet)
+    return runfolder.read_table(paths.root, "composition")
 
 
 def composition(

@@ -402,7 +402,8 @@ def _merge(
     summary = summary.sort_values("start", kind="stable").reset_index(drop=True)
     labels = summary["label"].tolist()
     counts = _merge_counts(
-        pd.read_parquet(paths.counts), pd.read_parquet(work.counts), labels
+        runfolder.read_table(paths.root, "counts"), runfolder.read_table(work.root, "counts"),
+        labels,
     )
     summary["types"] = (counts[labels].to_numpy() > 0).sum(axis=0).astype(np.int64)
     summary = summary[slicing.SUMMARY_COLUMNS]
@@ -419,12 +420,11 @@ def _merge(
         ready.append((joined, paths.slice_file(label)))
     for label in new_labels:
         ready.append((work.slice_file(label), paths.slice_file(label)))
-    counts_file = work_dir / "counts-merged.parquet"
-    pq.write_table(pa.Table.from_pandas(counts, preserve_index=False), counts_file)
-    ready.append((counts_file, paths.counts))
-    summary_file = work_dir / "summary-merged.csv"
-    summary.to_csv(summary_file, index=False)
-    ready.append((summary_file, paths.slice_summary))
+    merged = work_dir / "merged"  # the merged tables, written by the run folder's writers
+    runfolder.write_table(merged, "counts", counts)
+    runfolder.write_table(merged, "summary", summary)
+    ready += [(runfolder.TABLES[name].path(merged), runfolder.TABLES[name].path(paths.root))
+              for name in ("counts", "summary")]
     docs_parquet, docs_csv = work_dir / "documents.parquet.new", work_dir / "documents.csv.new"
     renamed = _merge_documents(
         paths, work, line_offset, None if params.get("id_col") else source.name,
@@ -432,13 +432,13 @@ def _merge(
     )
     ready += [(docs_parquet, paths.documents_parquet), (docs_csv, paths.documents_csv)]
     composition = _merge_composition(
-        pd.read_parquet(paths.composition_parquet), pd.read_parquet(work.composition_parquet),
-        labels,
+        runfolder.read_table(paths.root, "composition"),
+        runfolder.read_table(work.root, "composition"), labels,
     )
-    comp_parquet, comp_csv = work_dir / "composition.parquet.new", work_dir / "composition.csv.new"
-    composition.to_parquet(comp_parquet, index=False)
-    composition.to_csv(comp_csv, index=False)
-    ready += [(comp_parquet, paths.composition_parquet), (comp_csv, paths.composition_csv)]
+    runfolder.write_table(merged, "composition", composition)
+    staged = runfolder.RunPaths(merged)
+    ready += [(staged.composition_parquet, paths.composition_parquet),
+              (staged.composition_csv, paths.composition_csv)]
     for prepared, target in ready:
         os.replace(prepared, target)
 

@@ -38,7 +38,6 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.csv as pacsv
-import pyarrow.parquet as pq
 
 from drift import runfolder
 from drift.errors import DriftError
@@ -55,7 +54,7 @@ STAGE = "slice"
 SMALL_SLICE_TOKENS = 1_000_000
 #: Slice sizes that differ more than this factor get a warning suggesting --balance.
 SIZE_RATIO_WARNING = 10
-SUMMARY_COLUMNS = ["label", "start", "end", "documents", "tokens", "types", "dropped"]
+SUMMARY_COLUMNS = list(runfolder.SUMMARY_COLUMNS)
 #: Sources smaller than this are read without a progress bar.
 PROGRESS_MIN_BYTES = 32 << 20
 #: Threads that tokenize batches (this project targets 2-core machines).
@@ -902,7 +901,7 @@ def read_summary(run: Path | str) -> pd.DataFrame:
     ['1950s', '1950-01-01', '1959-12-31']
     """
     paths = runfolder.existing_run(Path(run), needs="slices")
-    return pd.read_csv(paths.slice_summary, dtype={"label": str, "start": str, "end": str})
+    return runfolder.read_table(paths.root, "summary")
 
 
 def slice_labels(run: Path | str) -> list[str]:
@@ -928,9 +927,7 @@ def slice_labels(run: Path | str) -> list[str]:
     >>> drift.slice_labels(run)
     ['1950s', '1960s', '1970s', '1980s', '1990s', '2000s']
     """
-    root = Path(run)
-    labels = runfolder.read_manifest(root).get("stages", {}).get(STAGE, {}).get("labels")
-    return list(labels) if labels else read_summary(root)["label"].tolist()
+    return runfolder.slice_labels(runfolder.existing_run(Path(run), needs="slices").root)
 
 
 def read_counts(run: Path | str) -> pd.DataFrame:
@@ -962,7 +959,7 @@ def read_counts(run: Path | str) -> pd.DataFrame:
     'the'
     """
     paths = runfolder.existing_run(Path(run), needs="slices")
-    return pd.read_parquet(paths.counts).set_index("word")
+    return runfolder.read_table(paths.root, "counts").set_index("word")
 
 
 # ---------------------------------------------------------------------------- the stage
@@ -1427,9 +1424,8 @@ def _run(
         if stale.stem not in labels:
             stale.unlink()
     table = pa.table({"word": words, **{label: matrix[:, i] for i, label in enumerate(labels)}})
-    with runfolder.atomic_path(paths.counts) as tmp:
-        pq.write_table(table, tmp)
-    runfolder.write_text_atomic(paths.slice_summary, summary.to_csv(index=False))
+    runfolder.write_table(paths.root, "counts", table)
+    runfolder.write_table(paths.root, "summary", summary)
     timings["write"] = round(time.perf_counter() - clock, 3)
     summary.attrs.update(composition=composition, index_notes=notes + index_notes)
     totals_out = {

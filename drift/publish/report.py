@@ -157,7 +157,7 @@ def load_run(run: Path) -> RunData:
     """Read the slice summary, the manifest and the rank stage's tables of ``run``."""
     run = Path(run)
     paths = runfolder.existing_run(run, needs="scores")
-    summary = pd.read_csv(paths.slice_summary, dtype={"label": str})
+    summary = runfolder.read_table(paths.root, "summary")
     scores = ranking.read_scores(run)
     timeline = ranking.read_timeline(run)
     terms = ranking.read_terms(run)
@@ -170,7 +170,7 @@ def load_run(run: Path) -> RunData:
         scores["significant"] = scores["significant"].astype(object).where(decided, None)
     return RunData(
         root=run,
-        labels=ranking.slice_labels(run),
+        labels=runfolder.slice_labels(run),
         summary=summary,
         manifest=runfolder.read_manifest(run),
         scores=scores,
@@ -180,23 +180,11 @@ def load_run(run: Path) -> RunData:
     )
 
 
-#: Where the slice composition table may live (written by the slice stage when it records
-#: metadata); the report shows it when present.
-COMPOSITION_FILES = ("composition.parquet", "slices/composition.parquet", "composition.csv",
-                     "slices/composition.csv")
-
-
 def read_composition(run: Path) -> pd.DataFrame | None:
     """The run's slice composition table, or None when the run has none."""
-    for name in COMPOSITION_FILES:
-        path = Path(run) / name
-        if path.is_file():
-            try:
-                if path.suffix == ".csv":
-                    return pd.read_csv(path, dtype={"slice": str, "label": str})
-                return pd.read_parquet(path)
-            except (OSError, ValueError):
-                return None
+    if not runfolder.TABLES["composition"].path(run).is_file():
+        return None
+    return runfolder.read_table(run, "composition")
     return None
 
 
@@ -1333,7 +1321,7 @@ def write_page(target: Path, text: str) -> None:
 
 def word_page_path(run: Path, word: str) -> Path:
     """Where the page of ``word`` goes: charts/words/<safe_name(word)>.html."""
-    return RunPaths(Path(run)).word_charts_dir / f"{runfolder.safe_name(word)}.html"
+    return RunPaths(Path(run)).word_page(word)
 
 
 def _check_word(data: RunData, word: str) -> None:
@@ -1498,9 +1486,9 @@ def build_report(
             for word in data.scores["word"]
             if word not in links and word_page_path(run, word).exists()
         }
-        write_page(paths.charts_dir / "word-index.html",
+        write_page(paths.word_index,
                    word_index_page(data, {**existing, **links}))
-        index = paths.charts_dir / "index.html"
+        index = paths.report_index
         write_page(index, report_page(data, links, top, targets, unmeasured))
         runfolder.record_stage(
             run,
