@@ -1,0 +1,336 @@
+"""The rank stage's calibration: both nulls fitted for the measured pair, the headline, the notes.
+
+Glue between the measurements (:mod:`drift.compare.seedmeasures`) and the statistics
+(:mod:`drift.compare.calibration`): the control pair's noise null, the pair's own drift null, each
+word's seed noise as a covariate, the ``evidence`` measure's combination, and ``--compare steps``
+(each word's largest calibrated step between adjacent slices).
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import pandas as pd
+
+from drift.compare.measures import (
+    mean_and_spread,
+)
+from drift.compare.runinputs import RunInputs, counts_for
+from drift.errors import DriftError
+
+if TYPE_CHECKING:
+    from drift.compare.ranking import Measured
+
+
+def _nanmean(stacked: np.ndarray, axis: int) -> np.ndarray:
+    """``np.nanmean`` without the warning for all-NaN slices (they stay NaN)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return np.nanmean(stacked, axis=axis)
+
+
+def mean_instability(blocks: Sequence[np.ndarray | None]) -> np.ndarray | None:
+    """Seed noise per word and column, averaged over the seeds after the first."""
+    present = [b for b in blocks if b is not None]
+    return _nanmean(np.stack(present), 0) if present else None
+
+
+@dataclass(frozen=True)
+class CalibrationOptions:
+    """How the nulls are fitted (the defaults are the benchmark's winners; see the README)."""
+
+    use_seed_noise: bool = True
+    #: how a word's seed distances in the two compared models are combined: 'max' (as the
+    #: rarer count: a word is as noisy as its noisier side) or 'mean'
+    noise: str = "max"
+    #: fit the nulls to log(measure): the benchmark found its standardised control residuals
+    #: close to normal (skew and excess kurtosis near 0), unlike the raw measure's (skewed)
+    log_scale: bool = True
+    tail: str = "normal"
+    #: the drift null borrows the noise null's shape (else: a normal tail)
+    shared_shape: bool = True
+
+
+def combine_noise(columns: np.ndarray, how: str) -> np.ndarray:
+    if how == "max":
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            return np.nanmax(columns, axis=1)
+    return _nanmean(columns, 1)
+
+
+def pair_seed_noise(
+    measured: Measured, labels: Sequence[str], how: str = "max"
+) -> np.ndarray | None:
+    """Each word's seed noise for the compared pair, from its seed distances in the two slices
+    (``how``: see :class:`CalibrationOptions`); None with one seed only."""
+    per_slice = mean_instability([r.instability for r in measured.results[1:]])
+    if per_slice is None:
+        return None
+    a, b = (labels.index(x) for x in measured.pair)
+    return combine_noise(per_slice[:, [a, b]], how)
+
+
+def _noise_nulls(
+    measured: Measured, measure: str, options: CalibrationOptions, with_noise: bool,
+    reasons: list[str], record: dict[str, Any], control_p: list[np.ndarray] | None = None,
+) -> tuple[Any, Any]:
+    """The control pair's nulls: for ``measure`` and for displacement (the timeline's band).
+
+    (None, None) when there is no control or it is too small; ``reasons`` then says why. The
+    control words' noise p values are appended to ``control_p`` when it is given.
+    """
+    from drift.compare.calibration import WEAK_NULL_WORDS, calibrate, fit_null
+
+    controls = [r.control for r in measured.results if r.control is not None]
+    if not controls:
+        reasons.append("no control pair was trained (--no-control)")
+        return None, None
+    first = controls[0]
+    if any(c.words != first.words for c in controls[1:]):
+        raise DriftError(
+            "The control models of different seeds have different vocabularies; retrain the "
+            "run with 'drift train' so every seed uses the same control slices."
+        )
+    control_noise = mean_instability([r.control_instability for r in measured.results[1:]])
+    c_noise = None
+    if with_noise and control_noise is not None:
+        c_noise = combine_noise(control_noise, options.noise)
+    try:
+        control_values, _ = mean_and_spread([c.value(measure) for c in controls])
+        noise_null = fit_null(control_values, first.counts_from, first.counts_to, c_noise,
+                              tail=options.tail, what="control pair",
+                              log_scale=options.log_scale)
+        displacement_null = noise_null
+        if measure != "displacement":
+            control_disp, _ = mean_and_spread([c.displacement for c in controls])
+            displacement_null = fit_null(control_disp, first.counts_from, first.counts_to,
+                                         c_noise, tail=options.tail, what="control pair",
+                                         log_scale=options.log_scale)
+    except DriftError as exc:
+        reasons.append(f"no noise null: {exc}")
+        return None, None
+    control_table = calibrate(control_values, first.counts_from, first.counts_to,
+                              seed_noise=c_noise, noise_null=noise_null, drift_null=noise_null)
+    flagged = control_table["noise_q"] <= ALPHA_RECORD
+    if control_p is not None:
+        control_p.append(control_table["noise_p"].to_numpy(dtype=float))
+    record["control_flagged"] = int(flagged.sum())
+    record["noise_null"] = noise_null.describe()
+    if noise_null.words < WEAK_NULL_WORDS:
+        reasons.append(f"the control pair gave only {noise_null.words} words (weak below "
+                       f"{WEAK_NULL_WORDS})")
+    return noise_null, displacement_null
+
+
+#: The level at which run.json's control_flagged counts the control words the null flags.
+ALPHA_RECORD = 0.05
+
+
+def _significance(noise_null: Any, drift_null: Any, reasons: list[str]) -> tuple[str, str]:
+    """(status, note): 'full', 'weak' or 'unavailable', and a sentence for the table."""
+    if noise_null is None or drift_null is None:
+        status = "unavailable"
+    else:
+        status = "weak" if reasons else "full"
+    note = "" if status == "full" else f"significance {status}: " + "; ".join(
+        reason.rstrip(".") for reason in reasons
+    )
+    return status, note
+
+
+def calibrate_pair(
+    measured: Measured,
+    scores: pd.DataFrame,
+    measure: str,
+    alpha: float,
+    labels: Sequence[str],
+    options: CalibrationOptions,
+) -> tuple[pd.DataFrame, Any, dict[str, Any]]:
+    """(calibration columns, the displacement noise null or None, run.json entries).
+
+    Without a control, or with one too small to fit a null, the noise null's columns (and the
+    headline) are empty and ``significance`` in run.json says why.
+    """
+    if measure == "evidence":
+        return _evidence_calibration(measured, scores, alpha, labels, options)
+    return _one_measure_calibration(measured, scores, measure, alpha, labels, options)
+
+
+def _evidence_calibration(
+    measured: Measured,
+    scores: pd.DataFrame,
+    alpha: float,
+    labels: Sequence[str],
+    options: CalibrationOptions,
+) -> tuple[pd.DataFrame, Any, dict[str, Any]]:
+    """The ``evidence`` measure: each of :data:`EVIDENCE_MEASURES` calibrated on its own, their
+    z combined per null (:func:`drift.compare.calibration.combine_evidence`)."""
+    from drift.compare.calibration import bh_qvalues, combine_evidence
+    from drift.options import EVIDENCE_MEASURES
+
+    tables, records, control_p = {}, {}, []
+    displacement_null = None
+    for name in EVIDENCE_MEASURES:
+        columns, null, records[name] = _one_measure_calibration(
+            measured, scores.assign(score=scores[name]), name, alpha, labels, options, control_p
+        )
+        tables[name] = columns
+        displacement_null = null if name == "displacement" else displacement_null
+    combined, correlation = combine_evidence(tables, alpha)
+    reasons = list(dict.fromkeys(
+        reason for record in records.values() for reason in record["significance"]["reasons"]
+    ))
+    statuses = [record["significance"]["status"] for record in records.values()]
+    status = next(s for s in ("unavailable", "weak", "full") if s in statuses)
+    note = "" if status == "full" else f"significance {status}: " + "; ".join(
+        reason.rstrip(".") for reason in reasons
+    )
+    combined["significance_note"] = note
+    record: dict[str, Any] = {"control_flagged": None}
+    if len(control_p) == len(EVIDENCE_MEASURES):
+        control_z, _ = combine_evidence(
+            {name: pd.DataFrame({"noise_p": p, "drift_p": p})
+             for name, p in zip(EVIDENCE_MEASURES, control_p, strict=True)}, alpha
+        )
+        record["control_flagged"] = int((bh_qvalues(control_z["noise_p"]) <= ALPHA_RECORD).sum())
+    first = records[EVIDENCE_MEASURES[0]]
+    for key in ("noise_null", "drift_null"):
+        if key in first:
+            record[key] = first[key]
+    record["significance"] = {"status": status, "reasons": reasons}
+    record["evidence"] = {
+        "measures": list(EVIDENCE_MEASURES),
+        "correlation": correlation,
+        "nulls": {name: {key: rec[key] for key in ("noise_null", "drift_null") if key in rec}
+                  for name, rec in records.items()},
+    }
+    return combined, displacement_null, record
+
+
+def _one_measure_calibration(
+    measured: Measured,
+    scores: pd.DataFrame,
+    measure: str,
+    alpha: float,
+    labels: Sequence[str],
+    options: CalibrationOptions,
+    control_p: list[np.ndarray] | None = None,
+) -> tuple[pd.DataFrame, Any, dict[str, Any]]:
+    """:func:`calibrate_pair` for one measure, whose values are ``scores['score']``."""
+    from drift.compare.calibration import calibrate, fit_null
+
+    values = scores["score"].to_numpy(dtype=float)
+    count_from = scores["count_from"].to_numpy(dtype=float)
+    count_to = scores["count_to"].to_numpy(dtype=float)
+    noise = pair_seed_noise(measured, labels, options.noise) if options.use_seed_noise else None
+    reasons: list[str] = []
+    if noise is None:
+        reasons.append("one training seed only, so each word's own noise is unknown "
+                       "(train with --seeds 2 or more)")
+    record: dict[str, Any] = {"control_flagged": None}
+    noise_null, displacement_null = _noise_nulls(
+        measured, measure, options, noise is not None, reasons, record, control_p
+    )
+    drift_null = None
+    try:
+        drift_null = fit_null(values, count_from, count_to, noise, tail="normal",
+                              what=f"pair {measured.pair[0]}-{measured.pair[1]}",
+                              shape_from=noise_null if options.shared_shape else None,
+                              log_scale=options.log_scale)
+        record["drift_null"] = drift_null.describe()
+    except DriftError as exc:
+        reasons.append(f"no drift null: {exc}")
+    columns = calibrate(values, count_from, count_to, seed_noise=noise, noise_null=noise_null,
+                        drift_null=drift_null, alpha=alpha)
+    columns.insert(0, "seed_noise", noise if noise is not None else np.nan)
+    status, note = _significance(noise_null, drift_null, reasons)
+    columns["significance_note"] = note
+    record["significance"] = {"status": status, "reasons": reasons}
+    return columns, displacement_null, record
+
+
+def calibrate_steps(
+    inputs: RunInputs,
+    measured: Measured,
+    alpha: float,
+    options: CalibrationOptions,
+) -> tuple[pd.DataFrame, Any, dict[str, Any]]:
+    """Whole-timeline calibration (``--compare steps``): each word's largest calibrated step.
+
+    Every adjacent pair of slices is a step; a word's displacement over each step is judged by
+    the control pair's noise null (at that step's counts and seed noise) and by a drift null
+    fitted on that step's own words. The word's step is the one with the smallest headline p;
+    its p values are multiplied by the number of steps measured (Bonferroni, capped at 1), then
+    Benjamini-Hochberg runs over the words.
+    """
+    from drift.compare.calibration import bh_qvalues, calibrate, fit_null
+
+    labels, words = inputs.labels, measured.words
+    step_values, _ = mean_and_spread([r.steps for r in measured.results])
+    per_slice = mean_instability([r.instability for r in measured.results[1:]])
+    use_noise = per_slice is not None and options.use_seed_noise
+    counts = np.column_stack([counts_for(inputs, words, label, None) for label in labels])
+    reasons: list[str] = []
+    if not use_noise:
+        reasons.append("one training seed only, so each word's own noise is unknown "
+                       "(train with --seeds 2 or more)")
+    record: dict[str, Any] = {"control_flagged": None}
+    noise_null, displacement_null = _noise_nulls(
+        measured, "displacement", options, use_noise, reasons, record
+    )
+    n_steps = len(labels) - 1
+    tables = []
+    for j in range(n_steps):
+        values = step_values[:, j]
+        noise = combine_noise(per_slice[:, [j, j + 1]], options.noise) if use_noise else None
+        drift_null = None
+        try:
+            drift_null = fit_null(values, counts[:, j], counts[:, j + 1], noise,
+                                  what=f"step {labels[j]}-{labels[j + 1]}",
+                                  shape_from=noise_null if options.shared_shape else None,
+                                  log_scale=options.log_scale)
+        except DriftError as exc:
+            reasons.append(f"no drift null for step {labels[j]}-{labels[j + 1]}: {exc}")
+        table = calibrate(values, counts[:, j], counts[:, j + 1], seed_noise=noise,
+                          noise_null=noise_null, drift_null=drift_null, alpha=alpha)
+        table.insert(0, "seed_noise", noise if noise is not None else np.nan)
+        tables.append(table)
+    headline = np.column_stack([t["p"].to_numpy(dtype=float) for t in tables])
+    fallback = np.column_stack([t["drift_p"].to_numpy(dtype=float) for t in tables])
+    chooser = np.where(np.isfinite(headline), headline, np.inf)
+    if not np.isfinite(chooser).any():
+        chooser = np.where(np.isfinite(fallback), fallback, np.inf)
+    best = np.argmin(chooser, axis=1)
+    measured_steps = np.isfinite(step_values).sum(axis=1).clip(min=1)
+    rows = np.arange(len(words))
+    columns = pd.DataFrame(
+        {name: np.column_stack([t[name].to_numpy(dtype=float) for t in tables])[rows, best]
+         for name in ("seed_noise", "null_centre", "null_spread", "noise_z", "noise_p",
+                      "typical", "typical_spread", "drift_z", "drift_p", "z", "p")}
+    )
+    for name in ("noise_p", "drift_p", "p"):
+        columns[name] = np.minimum(1.0, columns[name] * measured_steps)
+    columns["noise_q"] = bh_qvalues(columns["noise_p"])
+    columns["drift_q"] = bh_qvalues(columns["drift_p"])
+    columns["q"] = bh_qvalues(columns["p"])
+    significant = pd.array(np.where(np.isfinite(columns["q"]), columns["q"] <= alpha, False),
+                           dtype="boolean")
+    if noise_null is None:
+        significant[:] = pd.NA
+    columns["significant"] = significant
+    status, note = _significance(noise_null, True, reasons)
+    columns["significance_note"] = note
+    record["significance"] = {"status": status, "reasons": reasons}
+    best_values = step_values[rows, best]
+    columns["score"] = best_values
+    columns["change_point"] = pd.Series(
+        np.where(np.isfinite(best_values), np.asarray(labels, dtype=object)[best + 1], None),
+        dtype=object,
+    )
+    columns["change_step"] = best_values
+    return columns, displacement_null, record
