@@ -494,6 +494,13 @@ class SliceOptions(StageOptions):
         False, "Add SOURCE's documents to the slices already in --out (new slices are added, "
         "slices that gain documents are redone, the rest kept as they are)."
     )
+    engine: str = opt("local", "local or dask.", check=_choice(ENGINES, "--engine"))
+    scheduler: str | None = opt(
+        None,
+        "Dask scheduler address (default: a LocalCluster).",
+        metavar="ADDR",
+        show_default=False,
+    )
 
 
 @dataclass(frozen=True)

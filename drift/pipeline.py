@@ -6,6 +6,7 @@ in run.json decide), so rerunning after a change recomputes only what the change
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -44,7 +45,7 @@ class RunResult:
 
 
 def run_all(
-    source: str | Path,
+    source: str | Path | Sequence[str | Path],
     out: str | Path,
     *,
     slice_options: dict[str, Any] | None = None,
@@ -61,8 +62,9 @@ def run_all(
 
     Parameters
     ----------
-    source : str or Path
-        The dated archive (see :func:`drift.slice_archive`).
+    source : str, Path, or a sequence of them
+        The dated archive: one path, or several paths, glob patterns and folders of table parts
+        read as one archive (see :func:`drift.slice_archive`).
     out : str or Path
         The run folder.
     slice_options, train_options, rank_options, report_options : dict, optional

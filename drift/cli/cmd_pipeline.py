@@ -8,6 +8,7 @@ from pathlib import Path
 import typer
 
 from drift.cli.app import OPEN_HELP, QUIET_HELP, open_in_browser
+from drift.cli.cmd_slice import SOURCES_HELP, balance_and_sources
 from drift.cli.options_cli import command
 from drift.options import RankOptions, ReportOptions, SliceOptions, TrainOptions, ViewOptions
 
@@ -30,14 +31,9 @@ def _show_result(result, view: ViewOptions, out: Path | None = None) -> None:
         typer.echo(f"Report: {result.report}")
 
 
-@command("run", context_settings={"allow_extra_args": True})
+@command("run")
 def run_command(
-    ctx: typer.Context,
-    source: str = typer.Argument(
-        ...,
-        help="Dated archive: CSV, TSV, JSON Lines, Parquet, or a "
-        "folder of .txt files; may be .gz, .bz2 or .xz.",
-    ),
+    source: list[str] = typer.Argument(..., help=SOURCES_HELP, show_default=False),
     out: Path = typer.Option(..., "--out", "-o", help="Run folder (finished stages are reused)."),
     open_report: bool = typer.Option(False, "--open", help=OPEN_HELP),
     quiet: bool = typer.Option(False, "--quiet", "-q", help=QUIET_HELP),
@@ -50,13 +46,12 @@ def run_command(
     """Slice, train, rank and report in one go, with every option of every stage; a rerun
     reuses every finished stage. --between, --seed and --top each feed every stage that has them.
     """
-    from drift.cli.cmd_slice import balance_value
     from drift.pipeline import run_all
 
-    balance, source = balance_value(bool(slicing.balance), list(ctx.args), source)
+    balance, sources = balance_and_sources(bool(slicing.balance), list(source))
     slicing = replace(slicing, balance=balance)
     result = run_all(
-        source,
+        sources,
         out,
         slice_options=slicing.kwargs(),
         train_options=training.kwargs(),

@@ -91,6 +91,7 @@ class BatchDocuments:
     tokens: np.ndarray
     strings: pa.Table  # date as written, id and metadata columns (text)
     continues: bool  # the first kept row continues the previous batch's last document
+    source: str | None = None  # the batch's file, when several files are read as one archive
 
 
 # ---------------------------------------------------------------------------- the index
@@ -104,6 +105,7 @@ class IndexSpec:
     meta: tuple[str, ...] = ()
     file_names: bool = False  # a folder of .txt files: the id defaults to the file name
     source_name: str = ""
+    many_sources: bool = False  # several files: rows are numbered and named per file
 
 
 @dataclass
@@ -118,6 +120,7 @@ class DocumentIndex:
     tokens: list[np.ndarray] = field(default_factory=list)
     source_rows: list[np.ndarray] = field(default_factory=list)
     next_row: int = 1
+    source: str | None = None  # the file being read (several sources)
     _writer: pq.ParquetWriter | None = None
 
     @property
@@ -125,7 +128,10 @@ class DocumentIndex:
         return self.work / "documents.parquet"
 
     def add(self, docs: BatchDocuments, batch_rows: int, batch_continues: bool) -> None:
-        """Append one batch's documents (in input order, from the main thread)."""
+        """Append one batch's documents (in input order, from the main thread). With several
+        sources, rows are numbered within each file and the file is kept (``source:``)."""
+        if docs.source != self.source:
+            self.source, self.next_row = docs.source, 1
         first_row = self.next_row - (1 if batch_continues else 0)
         self.next_row = first_row + batch_rows
         rows = docs.rows.astype(np.int64) + first_row
@@ -146,6 +152,10 @@ class DocumentIndex:
         self.lines.append(lines)
         self.tokens.append(tokens)
         self.source_rows.append(rows)
+        if self.spec.many_sources:
+            strings = strings.append_column(
+                "source:", pa.array([docs.source] * strings.num_rows, pa.string())
+            )
         if self._writer is None:
             self.work.mkdir(parents=True, exist_ok=True)
             self._writer = pq.ParquetWriter(self.path, strings.schema)
@@ -254,6 +264,9 @@ def write_index(
                     raw_ids = pc.fill_null(strings.column(f"id:{spec.id_col}"), "").to_pylist()
                 elif spec.file_names:
                     raw_ids = strings.column("file:").to_pylist()
+                elif spec.many_sources:
+                    raw_ids = [f"{name}:{row}" for name, row in
+                               zip(strings.column("source:").to_pylist(), rows, strict=True)]
                 else:
                     raw_ids = [str(r) for r in rows]
                 ids, again = unique_ids(raw_ids, seen)
@@ -269,8 +282,7 @@ def write_index(
                 columns.update(
                     slice=pa.array(slices, pa.string()),
                     source_row=pa.array(rows, pa.int64()),
-                    source_file=(strings.column("file:").combine_chunks() if spec.file_names
-                                 else pa.array([spec.source_name] * n, pa.string())),
+                    source_file=_source_files(strings, spec, n),
                     line=pa.array(first[span], pa.int64()),
                     lines=pa.array(lines[span], pa.int64()),
                     tokens=pa.array(tokens[span], pa.int64()),
@@ -292,6 +304,15 @@ def write_index(
             f"X{DUPLICATE_SUFFIX}2, X{DUPLICATE_SUFFIX}3, ... in input order."
         )
     return composition, warnings
+
+
+def _source_files(strings: pa.Table, spec: IndexSpec, n: int) -> pa.Array:
+    """The ``source_file`` column: the .txt file, the file of several, or the one source."""
+    if spec.file_names:
+        return strings.column("file:").combine_chunks()
+    if spec.many_sources:
+        return strings.column("source:").combine_chunks()
+    return pa.array([spec.source_name] * n, pa.string())
 
 
 def _index_schema(spec: IndexSpec) -> pa.Schema:

@@ -134,6 +134,8 @@ class DocBatch:
     continues: bool = False
     #: Extra columns asked for with :meth:`Reader.want` (id, metadata; as text), by name.
     extra: dict[str, pa.Array] | None = None
+    #: The file the batch comes from, when several files are read as one archive (else None).
+    source: str | None = None
 
     def __len__(self) -> int:
         return len(self.texts)

@@ -42,7 +42,8 @@ import pyarrow.csv as pacsv
 from drift import runfolder
 from drift.errors import DriftError
 from drift.ingest import documents
-from drift.ingest.readers import DocBatch, Reader, open_source
+from drift.ingest.readers import DocBatch, Reader
+from drift.ingest.sources import MultiReader, common_folder, fingerprint_sources, open_sources
 from drift.ingest.timeparse import BadDates, day_to_iso, iso_to_day, parse_times, year_of
 from drift.ingest.tokenize import tokenize_array
 from drift.options import SliceOptions
@@ -343,7 +344,7 @@ class _Part:
     """The lines of one batch that go to one slice key."""
 
     key: int
-    text: pa.Buffer
+    text: pa.Buffer | None  # None once written elsewhere (a Dask worker's part file)
     documents: int
     tokens: int
     line_tokens: np.ndarray
@@ -517,6 +518,7 @@ def _batch_documents(
         tokens=np.asarray(per_document, dtype=np.int64)[back],
         strings=pa.table(strings),
         continues=bool(batch.continues and len(valid) and valid[0] == 0),
+        source=batch.source,
     )
 
 
@@ -578,7 +580,9 @@ class _SliceFiles:
         return handle
 
     def append(self, part: _Part) -> None:
-        self._handle(part.key).write(memoryview(part.text))
+        """Add a part's lines (unless its text was written elsewhere) and its tallies."""
+        if part.text is not None:
+            self._handle(part.key).write(memoryview(part.text))
         tally = self.tallies.setdefault(part.key, _Tally())
         tally.documents += part.documents
         tally.tokens += part.tokens
@@ -586,6 +590,12 @@ class _SliceFiles:
         if self.keep_lines:
             tally.line_tokens.append(part.line_tokens)
             tally.doc_starts.append(part.doc_starts)
+
+    def append_file(self, key: int, path: Path) -> None:
+        """Append the bytes of ``path`` (lines of slice ``key`` written by a worker)."""
+        handle = self._handle(key)
+        with open(path, "rb") as source:
+            shutil.copyfileobj(source, handle, 1 << 20)
 
     def close(self) -> None:
         while self._open:
@@ -613,6 +623,46 @@ def _read_lines(
 # ---------------------------------------------------------------------------- the passes
 
 
+class LocalFeed:
+    """Batch outcomes of a reader, processed here on :data:`WORKERS` threads, in input order.
+
+    The first pass reads its outcomes from a feed; :mod:`drift.ingest.dask_slicing` offers one
+    whose batches are processed on Dask workers.
+    """
+
+    def __init__(self, reader: Reader, settings: _Settings, threads: int | None = None):
+        self.reader = reader
+        self.settings = settings
+        self.threads = threads
+
+    def outcomes(self) -> Iterator[tuple[_BatchOutcome, bool]]:
+        """(outcome, the batch continues the previous one) for every batch, in input order."""
+        settings = self.settings
+        return _ordered_map(
+            lambda batch: (_process_batch(batch, settings), batch.continues),
+            self.reader.batches(),
+            self.threads,
+        )
+
+    def position(self) -> int:
+        return self.reader.position()
+
+    @property
+    def replaced(self) -> int:
+        return self.reader.replaced
+
+    @property
+    def legacy(self) -> int:
+        return self.reader.legacy
+
+    def notes(self) -> list[str]:
+        return self.reader.notes()
+
+
+#: Makes a first pass's feed: (reader, settings, files, counts) -> a feed like LocalFeed.
+FeedMaker = Callable[[Reader, _Settings, "_SliceFiles", WordCounts], Any]
+
+
 @dataclass
 class _ReadTotals:
     rows: int = 0
@@ -632,18 +682,17 @@ def _first_pass(
     skip_bad_dates: bool,
     quiet: bool,
     index: documents.DocumentIndex | None = None,
+    feed: Any = None,
 ) -> _ReadTotals:
     """Read the source once: slice files (or per-year files for even:K), word counts and the
-    document index."""
+    document index (batch outcomes from ``feed``, default a :class:`LocalFeed`)."""
+    feed = feed or LocalFeed(reader, settings)
     totals = _ReadTotals()
     with progress_bars(quiet or reader.total_bytes < PROGRESS_MIN_BYTES) as progress:
         task = progress.add_task(
             f"Reading {reader.path.name} (MB)", total=max(1, round(reader.total_bytes / 1e6))
         )
-        outcomes = _ordered_map(
-            lambda batch: (_process_batch(batch, settings), batch.continues), reader.batches()
-        )
-        for number, (outcome, continues) in enumerate(outcomes):
+        for number, (outcome, continues) in enumerate(feed.outcomes()):
             totals.rows += outcome.rows
             totals.where_dropped += outcome.where_dropped
             for column, counter in (outcome.where_values or {}).items():
@@ -666,7 +715,7 @@ def _first_pass(
                 files.append(part)
             if outcome.counts is not None:
                 counts.add(outcome.counts)
-            progress.update(task, completed=reader.position() / 1e6)
+            progress.update(task, completed=feed.position() / 1e6)
     files.close()
     return totals
 
@@ -1085,6 +1134,9 @@ def slice_archive(
     where: Sequence[str] | str | None = _SLICE.where,
     balance_by: str | None = _SLICE.balance_by,
     append: bool = _SLICE.append,
+    engine: str = _SLICE.engine,
+    scheduler: str | None = _SLICE.scheduler,
+    dask_workers: int | None = None,
 ) -> pd.DataFrame:
     """Cut ``source`` into time slices in the run folder ``out`` and return the slice summary.
 
@@ -1097,8 +1149,10 @@ def slice_archive(
 
     Parameters
     ----------
-    source : str or Path
+    source : str, Path, or a sequence of them
         CSV, TSV, JSON Lines, Parquet file or a folder of .txt files; may be .gz, .bz2 or .xz.
+        Several paths, glob patterns (``news/*.csv.gz``) and folders of table parts are read
+        as one archive (see :func:`drift.ingest.sources.expand_sources`).
     out : str or Path
         The run folder (made if missing).
     fmt : str, optional
@@ -1136,6 +1190,14 @@ def slice_archive(
     append : bool
         Add the documents of ``source`` to the slices already in ``out`` instead of starting
         over: see :func:`drift.ingest.growing.append_archive` (the slicing options are the run's).
+    engine : str
+        ``local`` (this process, two threads) or ``dask`` (one task per source file on a Dask
+        cluster, merged in input order: the same run folder, see
+        :mod:`drift.ingest.dask_slicing`).
+    scheduler : str, optional
+        With ``engine="dask"``: the scheduler's address (default: a LocalCluster).
+    dask_workers : int, optional
+        Workers of that LocalCluster (default: the cores, at most one per file).
 
     Returns
     -------
@@ -1163,6 +1225,13 @@ def slice_archive(
     if append:
         from drift.ingest.growing import append_archive
 
+        if not isinstance(source, str | Path):
+            if len(source) != 1:
+                raise DriftError(
+                    "--append adds one source at a time; append the files one by one."
+                )
+            source = source[0]
+
         return append_archive(
             source, out, fmt=fmt, time_col=time_col, text_col=text_col, date_format=date_format,
             skip_bad_dates=skip_bad_dates, encoding=encoding, delimiter=delimiter, quiet=quiet,
@@ -1170,20 +1239,22 @@ def slice_archive(
             id_col=id_col, meta=meta, where=where, balance_by=balance_by,
         )
     started = time.perf_counter()
-    source = Path(source)
     rule = parse_by(by)
     budget = parse_balance(balance)
-    reader = open_source(
+    given = [source] if isinstance(source, str | Path) else list(source)
+    for folder in (Path(item) for item in given):
+        if folder.is_dir() and Path(out).resolve().is_relative_to(folder.resolve()):
+            raise DriftError(
+                f"--out {out} is inside the source folder {folder}, so its slices would be read "
+                "as documents next time; choose a run folder outside it."
+            )
+    reader, files = open_sources(
         source, fmt, time_col, text_col, encoding=encoding, delimiter=delimiter
     )
+    source = files[0] if len(files) == 1 else common_folder(files)
     spec, clauses = _resolve_columns(reader, id_col, meta, where, balance_by)
     if balance_by and budget is None:
         budget = "smallest"
-    if source.is_dir() and Path(out).resolve().is_relative_to(source.resolve()):
-        raise DriftError(
-            f"--out {out} is inside the source folder {source}, so its slices would be read as "
-            "documents next time; choose a run folder outside it."
-        )
     paths = runfolder.prepare_run_folder(Path(out))
     params = {
         "format": reader.fmt,
@@ -1204,7 +1275,7 @@ def slice_archive(
         "balance_by": spec.meta[0] if balance_by else None,
     }
     with runfolder.run_lock(paths.root):
-        inputs = runfolder.fingerprint_path(source)
+        inputs = fingerprint_sources(files)
         recorded = runfolder.read_manifest(paths.root).get("stages", {}).get(STAGE, {})
         from drift.ingest import growing
 
@@ -1222,7 +1293,18 @@ def slice_archive(
             return summary
         runfolder.forget_stage(paths.root, STAGE)
         _clean_leftovers(paths)
-        summary, totals, timings = _run(reader, paths, rule, budget, params, seed, quiet, spec)
+        if engine == "dask":
+            from drift.ingest import dask_slicing
+
+            with dask_slicing.feeds(
+                reader, fmt=fmt, encoding=encoding, delimiter=delimiter,
+                scheduler=scheduler, workers=dask_workers,
+            ) as make_feed:
+                summary, totals, timings = _run(
+                    reader, paths, rule, budget, params, seed, quiet, spec, make_feed=make_feed
+                )
+        else:
+            summary, totals, timings = _run(reader, paths, rule, budget, params, seed, quiet, spec)
         labels = summary["label"].tolist()
         timings["total"] = round(time.perf_counter() - started, 3)
         runfolder.record_stage(
@@ -1234,12 +1316,18 @@ def slice_archive(
             extra={
                 "labels": labels,
                 "source": str(source.resolve()),
+                **({"sources": [str(f.resolve()) for f in files]} if len(files) > 1 else {}),
+                "engine": engine,
                 "totals": totals,
                 "timings": timings,
                 "history": [growing.first_entry(source, inputs, totals, labels)],
             },
         )
-    messages = slice_warnings(summary) + summary.attrs.get("index_notes", []) + reader.notes()
+    messages = (
+        slice_warnings(summary)
+        + summary.attrs.get("index_notes", [])
+        + summary.attrs.get("reader_notes", [])
+    )
     labels = summary["label"].tolist()
     if len(labels) > 1 and spec.meta:
         pairs = [(labels[0], labels[-1])] + [
@@ -1265,7 +1353,7 @@ def slice_archive(
     if totals["replaced_characters"]:
         messages.append(
             f"{_count(totals['replaced_characters'], 'undecodable byte sequence')} in "
-            f"{source.name} replaced by U+FFFD (the input is read as "
+            f"{reader.path.name} replaced by U+FFFD (the input is read as "
             f"{reader.encoding_used}; name another with --encoding)."
         )
     for message in messages:
@@ -1306,7 +1394,10 @@ def _resolve_columns(
     if txt:
         reader.want("file", "--meta")
     id_found = reader.want(id_col, "--id-col") if id_col else None
-    spec = documents.IndexSpec(id_found, tuple(resolved), txt, reader.path.name)
+    spec = documents.IndexSpec(
+        id_found, tuple(resolved), txt, reader.path.name,
+        many_sources=isinstance(reader, MultiReader),
+    )
     return spec, clauses
 
 
@@ -1320,12 +1411,18 @@ def _run(
     quiet: bool,
     spec: documents.IndexSpec | None = None,
     check_edges: bool = True,
+    make_feed: FeedMaker | None = None,
 ) -> tuple[pd.DataFrame, dict[str, int], dict[str, float]]:
     """Read, slice, balance and write; returns the summary, totals and timings (with
     ``check_edges`` False, --by edges that hold no documents are no error: appended documents).
+    ``make_feed`` makes the first pass's feed (default: :class:`LocalFeed`, batches processed
+    here).
 
-    The summary's ``attrs`` carry the composition table and the index's warnings."""
-    spec = spec or documents.IndexSpec(source_name=reader.path.name)
+    The summary's ``attrs`` carry the composition table, the index's warnings and the reader's
+    notes (``reader_notes``)."""
+    spec = spec or documents.IndexSpec(
+        source_name=reader.path.name, many_sources=isinstance(reader, MultiReader)
+    )
     settings = _Settings(
         rule, params["date_format"], params["keep_case"], params["pretokenized"],
         documents.parse_where(params.get("where")), _index_columns(spec),
@@ -1339,8 +1436,9 @@ def _run(
         skip = params["skip_bad_dates"]
         if rule.kind == "even":
             year_files = _SliceFiles(Path(work) / "years", keep_lines=False)
+            feed = (make_feed or _local_feed)(reader, settings, year_files, counts)
             try:
-                totals = _first_pass(reader, settings, year_files, counts, skip, quiet, index)
+                totals = _first_pass(reader, settings, year_files, counts, skip, quiet, index, feed)
             finally:
                 index.close()
             _check_where(settings, totals, index)
@@ -1353,8 +1451,9 @@ def _run(
             shutil.rmtree(year_files.folder, ignore_errors=True)
         else:
             files = _SliceFiles(Path(work) / "slices", keep_lines=budget is not None)
+            feed = (make_feed or _local_feed)(reader, settings, files, counts)
             try:
-                totals = _first_pass(reader, settings, files, counts, skip, quiet, index)
+                totals = _first_pass(reader, settings, files, counts, skip, quiet, index, feed)
             finally:
                 index.close()
             _check_where(settings, totals, index)
@@ -1427,14 +1526,20 @@ def _run(
     runfolder.write_table(paths.root, "counts", table)
     runfolder.write_table(paths.root, "summary", summary)
     timings["write"] = round(time.perf_counter() - clock, 3)
-    summary.attrs.update(composition=composition, index_notes=notes + index_notes)
+    summary.attrs.update(
+        composition=composition, index_notes=notes + index_notes, reader_notes=feed.notes()
+    )
     totals_out = {
         "documents_read": totals.rows,
         "bad_dates_skipped": totals.bad.count,
         "outside_edges": totals.outside,
         "left_out_by_where": totals.where_dropped,
         "empty_documents": totals.empty,
-        "replaced_characters": reader.replaced,
-        "legacy_characters": reader.legacy,
+        "replaced_characters": feed.replaced,
+        "legacy_characters": feed.legacy,
     }
     return summary, totals_out, timings
+
+
+def _local_feed(reader: Reader, settings: _Settings, files: _SliceFiles, counts: WordCounts):
+    return LocalFeed(reader, settings)

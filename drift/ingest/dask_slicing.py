@@ -1,0 +1,283 @@
+"""``drift slice --engine dask``: each source file sliced on a Dask worker, merged in input order.
+
+The archive is split by file: one task per file (a folder of .txt documents is one task). A
+worker opens its file with the options the client resolved (format, columns, encoding), dates
+and tokenizes every batch exactly as the local engine does
+(:func:`drift.ingest.slicing._process_batch`), appends each slice's lines to its own part file
+in the run's work folder (``slices/.work-*/parts/<n>/<key>.txt``), and returns everything else
+small: per batch the row, date and document tallies and the document index entries, and the
+word counts of the whole file. The client consumes the results in file order and replays them
+through the same first pass as the local engine, appending each part file to its slice after the
+files before it. The lines of every slice are therefore in the same order, the counts are the
+same sums, and every output of the run folder equals the local engine's (see DEVELOPERS.md for
+which files are byte-identical).
+
+Every worker must see the run folder at the same path (a shared file system, as for training).
+A task whose worker dies is run again by Dask (its ``distributed.scheduler.allowed-failures``
+setting): a task writes only into its own part folder, which it empties first, so running it
+again duplicates nothing. Large files are not split by byte ranges: one file
+is one task, so a single large file runs on one worker.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import logging
+import os
+import shutil
+import sys
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from drift.errors import DriftError
+from drift.ingest import slicing
+from drift.ingest.readers import Reader, open_source
+from drift.ingest.sources import MultiReader
+
+#: Seconds to wait for a Dask scheduler before giving up (a typo should fail fast).
+CONNECT_TIMEOUT_S = 5.0
+
+
+def slice_part(task: dict[str, Any]) -> dict[str, Any]:
+    """Slice one source file on a worker: part files of lines per slice key in
+    ``task["folder"]``, and the batch outcomes (without their text) and word counts returned.
+    A problem with the file comes back as ``{"error": message}`` (not retried)."""
+    try:
+        return _slice_part(task)
+    except DriftError as exc:
+        return {"error": str(exc)}
+
+
+def _slice_part(task: dict[str, Any]) -> dict[str, Any]:
+    folder = Path(task["folder"])
+    shutil.rmtree(folder, ignore_errors=True)  # a task run again after a lost worker starts afresh
+    reader = open_source(
+        Path(task["path"]), task["fmt"], task["time_col"], task["text_col"],
+        encoding=task["encoding"], delimiter=task["delimiter"],
+    )
+    for column in task["extra_cols"]:
+        reader.want(column, "--meta")
+    settings = task["settings"]
+    files = slicing._SliceFiles(folder, keep_lines=False)
+    counts = slicing.WordCounts()
+    outcomes = []
+
+    def process(batch):
+        batch.source = task["source"]
+        return slicing._process_batch(batch, settings), batch.continues
+
+    for outcome, continues in slicing._ordered_map(process, reader.batches(), task["threads"]):
+        for part in outcome.parts:
+            files.append(part)
+            part.text = None
+        if outcome.counts is not None:
+            counts.add(outcome.counts)
+            outcome.counts = None
+        outcomes.append((outcome, continues))
+    files.close()
+    keys = sorted(files.tallies)
+    words, matrix = counts.matrix(keys)
+    by_key = {}
+    for column, key in enumerate(keys):
+        present = np.flatnonzero(matrix[:, column])
+        by_key[key] = (present, matrix[present, column])
+    return {
+        "outcomes": outcomes,
+        "counts": slicing.BatchCounts(words, by_key) if len(words) else None,
+        "keys": keys,
+        "replaced": reader.replaced,
+        "legacy": reader.legacy,
+        "notes": reader.notes(),
+        "bytes": reader.total_bytes,
+    }
+
+
+class DaskFeed:
+    """A first pass's batch outcomes, computed on Dask workers one file per task, consumed in
+    file order; each file's part files are appended to the slices once its outcomes are in."""
+
+    def __init__(
+        self,
+        client: Any,
+        tasks: list[dict[str, Any]],
+        files: slicing._SliceFiles,
+        counts: slicing.WordCounts,
+    ):
+        self.client, self.tasks, self.files, self.counts = client, tasks, files, counts
+        self.done_bytes = 0
+        self.replaced = 0
+        self.legacy = 0
+        self._notes: list[str] = []
+
+    def outcomes(self) -> Iterator[tuple[Any, bool]]:
+        futures = [
+            self.client.submit(
+                slice_part, task, key=f"drift-slice-{task['number']}-{os.urandom(4).hex()}",
+                pure=False,
+            )
+            for task in self.tasks
+        ]
+        try:
+            for task, future in zip(self.tasks, futures, strict=True):
+                result = _result(future, task)
+                yield from result["outcomes"]
+                for key in result["keys"]:
+                    self.files.append_file(key, Path(task["folder"]) / f"{key}.txt")
+                if result["counts"] is not None:
+                    self.counts.add(result["counts"])
+                self.replaced += result["replaced"]
+                self.legacy += result["legacy"]
+                self._notes += result["notes"]
+                self.done_bytes += result["bytes"]
+                shutil.rmtree(task["folder"], ignore_errors=True)
+        finally:
+            self.client.cancel([f for f in futures if not f.done()])
+
+    def position(self) -> int:
+        return self.done_bytes
+
+    def notes(self) -> list[str]:
+        return list(self._notes)
+
+
+def _result(future: Any, task: dict[str, Any]) -> dict[str, Any]:
+    """A task's result; a problem with the file, or a lost worker or scheduler, becomes a
+    DriftError naming the file."""
+    try:
+        result = future.result()
+        if "error" in result:
+            raise DriftError(result["error"])
+        return result
+    except DriftError:
+        raise
+    except Exception as exc:  # noqa: BLE001 - a cluster failure of any kind
+        if exc.__class__.__name__ in ("KilledWorker", "CommClosedError", "CancelledError",
+                                      "TimeoutError", "OSError", "FutureCancelledError"):
+            raise DriftError(
+                f"The Dask cluster lost the task slicing {task['path']} "
+                f"({exc.__class__.__name__}); check the workers (memory, shared file system) "
+                "and rerun the same command."
+            ) from None
+        raise
+
+
+def _import_distributed() -> Any:
+    try:
+        import distributed
+    except ImportError:
+        raise DriftError(
+            "--engine dask needs Dask's distributed scheduler; install it with "
+            "pip install 'lexical-drift[dask]' or use --engine local."
+        ) from None
+    return distributed
+
+
+@contextlib.contextmanager
+def _main_script_hidden() -> Iterator[None]:
+    """While LocalCluster workers start, hide the caller's main script from them, so that a
+    script without an ``if __name__ == "__main__":`` guard (or code read from stdin) is not run
+    again in every worker (the same guard as training's engines; the task function lives in
+    drift, so workers never need the script)."""
+    main = sys.modules.get("__main__")
+    if main is None:
+        yield
+        return
+    names = ("__file__", "__spec__")
+    saved = {name: main.__dict__[name] for name in names if name in main.__dict__}
+    main.__dict__.pop("__file__", None)
+    main.__dict__["__spec__"] = None
+    try:
+        yield
+    finally:
+        main.__dict__.pop("__spec__", None)
+        main.__dict__.update(saved)
+
+
+@contextlib.contextmanager
+def dask_client(scheduler: str | None, workers: int) -> Iterator[Any]:
+    """A client of the scheduler at ``scheduler``, or of a LocalCluster of ``workers``
+    single-threaded processes; closed on leaving."""
+    distributed = _import_distributed()
+    if scheduler is None:
+        with _main_script_hidden():
+            cluster = distributed.LocalCluster(
+                n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None,
+                silence_logs=logging.ERROR,
+            )
+        client = distributed.Client(cluster, set_as_default=False)
+        try:
+            yield client
+        finally:
+            client.close()
+            cluster.close()
+        return
+    try:
+        client = distributed.Client(scheduler, timeout=CONNECT_TIMEOUT_S, set_as_default=False)
+    except (OSError, TimeoutError, ValueError) as exc:
+        reason = str(exc).split("\n")[0][:160] or exc.__class__.__name__
+        raise DriftError(
+            f"Could not reach the Dask scheduler at {scheduler} within {CONNECT_TIMEOUT_S:g} s "
+            f"({reason}); check the address and that the scheduler is running."
+        ) from None
+    try:
+        yield client
+    finally:
+        client.close()
+
+
+def plan_tasks(
+    reader: Reader, work: Path, settings: Any, *, fmt: str | None,
+    encoding: str | None, delimiter: str | None, threads: int = 1,
+) -> list[dict[str, Any]]:
+    """One task per source file, in reading order (a folder of .txt documents is one task)."""
+    readers = reader.readers if isinstance(reader, MultiReader) else [reader]
+    names = reader.names if isinstance(reader, MultiReader) else [None]
+    tasks = []
+    for number, (one, name) in enumerate(zip(readers, names, strict=True)):
+        tasks.append({
+            "number": number,
+            "path": str(Path(one.path).resolve()),
+            "fmt": fmt,
+            "time_col": one.time_col,
+            "text_col": one.text_col,
+            "encoding": encoding,
+            "delimiter": delimiter,
+            "extra_cols": list(one.extra_cols),
+            "settings": settings,
+            "folder": str(work / f"{number:06d}"),
+            "source": name,
+            "threads": threads,
+        })
+    return tasks
+
+
+@contextlib.contextmanager
+def feeds(
+    reader: Reader,
+    *,
+    fmt: str | None,
+    encoding: str | None,
+    delimiter: str | None,
+    scheduler: str | None = None,
+    workers: int | None = None,
+) -> Iterator[Any]:
+    """A feed maker for :func:`drift.ingest.slicing._run` that slices on a Dask cluster: the
+    scheduler at ``scheduler``, or a LocalCluster of ``workers`` processes (default: the cores,
+    at most one per file)."""
+    parts = len(reader.readers) if isinstance(reader, MultiReader) else 1
+    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
+    size = max(1, min(workers or cores or 1, parts))
+    with dask_client(scheduler, size) as client:
+
+        def make_feed(reader_, settings, slice_files, counts):
+            work = slice_files.folder.parent / f"parts-{slice_files.folder.name}"
+            work.mkdir(parents=True, exist_ok=True)
+            tasks = plan_tasks(
+                reader_, work, settings, fmt=fmt, encoding=encoding, delimiter=delimiter
+            )
+            return DaskFeed(client, tasks, slice_files, counts)
+
+        yield make_feed
