@@ -16,7 +16,7 @@ from typer.testing import CliRunner
 
 from drift.cli import main
 from drift.cli.app import app
-from drift.cli.cmd_slice import balance_value
+from drift.cli.cmd_slice import balance_and_sources
 from drift.errors import DriftError
 
 GENSIM_DATA = Path(gensim.__file__).parent / "test" / "test_data"
@@ -79,13 +79,16 @@ def test_balance_with_and_without_a_number(source, tmp_path, capsys):
     )
 
 
-def test_balance_value():
-    assert balance_value(False, [], "a.csv") == (None, "a.csv")
-    assert balance_value(True, [], "a.csv") == ("smallest", "a.csv")
-    assert balance_value(True, ["100"], "a.csv") == ("100", "a.csv")
-    assert balance_value(True, ["a.csv"], "100") == ("100", "a.csv")
-    with pytest.raises(DriftError, match="Unexpected argument"):
-        balance_value(False, ["b.csv"], "a.csv")
+def test_balance_and_sources():
+    assert balance_and_sources(False, ["a.csv"]) == (None, ["a.csv"])
+    assert balance_and_sources(False, ["a.csv", "b.csv"]) == (None, ["a.csv", "b.csv"])
+    assert balance_and_sources(True, ["a.csv"]) == ("smallest", ["a.csv"])
+    assert balance_and_sources(True, ["a.csv", "100"]) == ("100", ["a.csv"])
+    assert balance_and_sources(True, ["100", "a.csv", "b.csv"]) == ("100", ["a.csv", "b.csv"])
+    with pytest.raises(DriftError, match="number is taken only right after --balance"):
+        balance_and_sources(False, ["a.csv", "100"])
+    with pytest.raises(DriftError, match="one token budget"):
+        balance_and_sources(True, ["a.csv", "100", "200"])
 
 
 def test_missing_file(tmp_path, capsys):
@@ -262,8 +265,9 @@ def test_bad_by_and_balance_values(source, tmp_path, capsys):
         capsys,
         "asks for more tokens",
     )
-    assert_bad_input(
-        [source, "extra.csv", "--out", tmp_path / "run"], capsys, "Unexpected argument extra.csv"
+    assert_bad_input(  # a second SOURCE is read too, so a missing one is named
+        [source, "extra.csv", "--out", tmp_path / "run"], capsys,
+        "There is no file or folder at extra.csv",
     )
 
 
