@@ -1,0 +1,123 @@
+"""`drift slice --engine dask` writes the same run folder as the local engine.
+
+A LocalCluster of two threads in this process (``processes=False``) keeps the test fast; the
+tasks go through Dask's scheduler and are pickled all the same. The text is gensim's bundled news
+corpus (``lee_background.cor``) split into parts of different formats.
+"""
+
+from __future__ import annotations
+
+import filecmp
+import json
+from pathlib import Path
+
+import pytest
+from test_sources import lee_frame, write_parts
+
+from drift.cli import main
+from drift.errors import DriftError
+from drift.ingest import dask_slicing
+from drift.ingest.slicing import _Settings, parse_by, slice_archive
+
+distributed = pytest.importorskip("distributed")
+
+
+@pytest.fixture(scope="module")
+def cluster():
+    with distributed.LocalCluster(
+        n_workers=2, threads_per_worker=1, processes=False, dashboard_address=None
+    ) as local:
+        yield local
+
+
+@pytest.fixture(scope="module")
+def parts(tmp_path_factory) -> Path:
+    folder = tmp_path_factory.mktemp("dask") / "parts"
+    write_parts(lee_frame(), folder)
+    return folder
+
+
+def run_files(run: Path) -> dict[str, Path]:
+    """Every file of a run folder but run.json (which records times), by relative path."""
+    return {
+        p.relative_to(run).as_posix(): p
+        for p in run.rglob("*")
+        if p.is_file() and p.name not in ("run.json", ".lock")
+    }
+
+
+def assert_same_run(local: Path, dask: Path) -> None:
+    """Same files, byte for byte, and the same slice record (params, labels, totals)."""
+    ours, theirs = run_files(local), run_files(dask)
+    assert sorted(ours) == sorted(theirs)
+    for name, path in ours.items():
+        assert filecmp.cmp(path, theirs[name], shallow=False), name
+    records = [
+        json.loads((run / "run.json").read_text())["stages"]["slice"] for run in (local, dask)
+    ]
+    for key in ("params", "labels", "totals", "inputs", "sources"):
+        assert records[0].get(key) == records[1].get(key), key
+    assert records[1]["engine"] == "dask"
+
+
+@pytest.mark.parametrize(
+    "options",
+    [
+        {"by": "5y", "meta": ["desk"]},
+        {"by": "year", "balance": "smallest", "balance_by": "desk"},
+        {"by": "even:3", "where": ["desk!=sport"]},
+    ],
+    ids=["5y-meta", "balanced", "even"],
+)
+def test_dask_slices_equal_the_local_engine(parts, cluster, tmp_path, options):
+    slice_archive(parts, tmp_path / "local", quiet=True, **options)
+    summary = slice_archive(parts, tmp_path / "dask", quiet=True, engine="dask",
+                            scheduler=cluster.scheduler_address, **options)
+    assert summary["tokens"].sum() > 0
+    assert_same_run(tmp_path / "local", tmp_path / "dask")
+    assert not list((tmp_path / "dask" / "slices").glob(".work-*")), "work folders are removed"
+
+
+def test_one_file_on_dask_equals_local(tmp_path, cluster):
+    whole = tmp_path / "whole.csv"
+    lee_frame().to_csv(whole, index=False)
+    slice_archive(whole, tmp_path / "local", by="5y", quiet=True)
+    slice_archive(whole, tmp_path / "dask", by="5y", quiet=True, engine="dask",
+                  scheduler=cluster.scheduler_address)
+    assert_same_run(tmp_path / "local", tmp_path / "dask")
+
+
+def test_a_task_run_twice_writes_its_part_once(parts, tmp_path):
+    """A task run again after its worker was lost starts from an empty part folder."""
+    from drift.ingest.sources import open_sources
+
+    reader, _ = open_sources(parts)
+    settings = _Settings(parse_by("5y"), None, False, False)
+    tasks = dask_slicing.plan_tasks(reader, tmp_path, settings, fmt=None, encoding=None,
+                                    delimiter=None)
+    first = dask_slicing.slice_part(tasks[1])
+    sizes = {p.name: p.stat().st_size for p in Path(tasks[1]["folder"]).iterdir()}
+    second = dask_slicing.slice_part(tasks[1])
+    assert {p.name: p.stat().st_size for p in Path(tasks[1]["folder"]).iterdir()} == sizes
+    assert first["keys"] == second["keys"] and first["bytes"] == second["bytes"]
+    assert len(first["outcomes"]) == len(second["outcomes"]) >= 1
+
+
+def test_cli_engine_dask_with_a_scheduler(parts, cluster, tmp_path, capsys):
+    with pytest.raises(SystemExit) as done:
+        main(["slice", str(parts / "*"), "--out", str(tmp_path / "run"), "--by", "5y",
+              "--engine", "dask", "--scheduler", cluster.scheduler_address, "-q"])
+    assert done.value.code == 0
+    assert "1990-1994" in capsys.readouterr().out
+
+
+def test_unreachable_scheduler_and_bad_file_are_one_sentence(parts, cluster, tmp_path):
+    with pytest.raises(DriftError, match="Could not reach the Dask scheduler at tcp://127.0.0.1:9"):
+        slice_archive(parts, tmp_path / "run", quiet=True, engine="dask",
+                      scheduler="tcp://127.0.0.1:9")
+    folder = tmp_path / "bad"
+    write_parts(lee_frame(), folder)
+    (folder / "p1.jsonl").write_text('{"date": "1990", "text": "fine"}\nnot json\n')
+    with pytest.raises(DriftError, match=r"Line 2 of .*p1\.jsonl is not valid JSON"):
+        slice_archive(folder, tmp_path / "run2", quiet=True, engine="dask",
+                      scheduler=cluster.scheduler_address)
