@@ -21,6 +21,7 @@ from drift.errors import DriftError
 from drift.ingest.documents import read_documents
 from drift.ingest.slicing import read_counts, read_summary, slice_archive
 from drift.ingest.sources import MultiReader, expand_sources, open_sources
+from drift.publish.evidence import source_problem
 
 GENSIM_DATA = Path(gensim.__file__).parent / "test" / "test_data"
 
@@ -122,6 +123,8 @@ def test_document_index_numbers_rows_within_each_file(corpus, tmp_path):
     record = json.loads((tmp_path / "run" / "run.json").read_text())["stages"]["slice"]
     assert [Path(p).name for p in record["sources"]] == list(first.index)
     assert record["params"]["format"] == "csv+jsonl+parquet+tsv"
+    # example passages are then quoted from the slice files, not the originals
+    assert source_problem(tmp_path / "run") == "the run was sliced from several files"
 
 
 def test_a_changed_part_makes_the_slices_stale(corpus, tmp_path):

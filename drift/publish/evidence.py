@@ -198,6 +198,8 @@ def source_problem(run: Path) -> str | None:
     source = record.get("source")
     if not source:
         return "the run does not record its source"
+    if record.get("sources"):
+        return "the run was sliced from several files"
     if len(record.get("history") or []) > 1:
         return "documents were appended to the run from other sources (drift slice --append)"
     path = Path(source)
