@@ -121,8 +121,9 @@ class DaskFeed:
             for task in self.tasks
         ]
         try:
-            for task, future in zip(self.tasks, futures, strict=True):
-                result = _result(future, task)
+            for number, task in enumerate(self.tasks):
+                result = _result(futures[number], task)
+                futures[number].release()  # the worker may drop the result now
                 yield from result["outcomes"]
                 for key in result["keys"]:
                     self.files.append_file(key, Path(task["folder"]) / f"{key}.txt")
