@@ -107,7 +107,7 @@ def expand_sources(source: str | Path | Sequence[str | Path], fmt: str | None = 
     --------
     >>> from drift.ingest.sources import expand_sources
     >>> [p.name for p in expand_sources([archive])]
-    ['archive.csv']
+    ['letters.csv']
     """
     items = [source] if isinstance(source, str | Path) else list(source)
     if not items:
@@ -235,6 +235,24 @@ def open_sources(
 
     One file or text folder gives :func:`drift.ingest.readers.open_source`'s reader; several give
     a :class:`MultiReader`. A file that cannot be opened is named in the error.
+
+    Parameters
+    ----------
+    source : str, Path or a sequence of them
+        As for :func:`expand_sources`.
+    fmt, time_col, text_col, encoding, delimiter
+        As for :func:`drift.ingest.readers.open_source`; they apply to every file.
+
+    Returns
+    -------
+    (Reader, list of Path)
+        The reader and the files it reads, in order.
+
+    Raises
+    ------
+    DriftError
+        A source that is missing or unreadable (named), files whose time and text columns have
+        other names (named, with the columns), a folder of .txt files among several sources.
 
     Examples
     --------
