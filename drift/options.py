@@ -502,6 +502,10 @@ class SliceOptions(StageOptions):
         show_default=False,
     )
 
+    def check(self) -> None:
+        if self.scheduler and self.engine != "dask":
+            raise DriftError("--scheduler only applies with --engine dask; add --engine dask.")
+
 
 @dataclass(frozen=True)
 class TrainOptions(StageOptions):

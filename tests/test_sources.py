@@ -192,3 +192,18 @@ def test_text_folders_and_append_stay_single(corpus, tmp_path):
     with pytest.raises(DriftError, match="one source at a time"):
         slice_archive([corpus["whole"], corpus["whole"]], tmp_path / "run", append=True,
                       quiet=True)
+
+
+def test_a_pattern_beside_the_run_folder_skips_it(corpus, tmp_path):
+    folder = tmp_path / "data"
+    write_parts(lee_frame(), folder)
+    first = slice_archive(str(folder / "*"), folder / "run", by="5y", quiet=True)
+    again = slice_archive(str(folder / "*"), folder / "run", by="5y", quiet=True)
+    assert again.attrs["reused"]
+    pd.testing.assert_frame_equal(first, again)
+
+
+def test_scheduler_needs_the_dask_engine(corpus, tmp_path):
+    with pytest.raises(DriftError, match="--scheduler only applies with --engine dask"):
+        slice_archive(corpus["whole"], tmp_path / "run", scheduler="tcp://127.0.0.1:8786",
+                      quiet=True)

@@ -1239,6 +1239,7 @@ def slice_archive(
             id_col=id_col, meta=meta, where=where, balance_by=balance_by,
         )
     started = time.perf_counter()
+    SliceOptions(engine=engine, scheduler=scheduler)  # checks them as the command line does
     rule = parse_by(by)
     budget = parse_balance(balance)
     given = [source] if isinstance(source, str | Path) else list(source)
@@ -1249,7 +1250,7 @@ def slice_archive(
                 "as documents next time; choose a run folder outside it."
             )
     reader, files = open_sources(
-        source, fmt, time_col, text_col, encoding=encoding, delimiter=delimiter
+        source, fmt, time_col, text_col, encoding=encoding, delimiter=delimiter, exclude=out
     )
     source = files[0] if len(files) == 1 else common_folder(files)
     spec, clauses = _resolve_columns(reader, id_col, meta, where, balance_by)

@@ -56,25 +56,32 @@ def _table_parts(folder: Path) -> list[Path]:
     return sorted(parts, key=lambda p: p.relative_to(folder).as_posix())
 
 
-def _holds_text_files(folder: Path) -> bool:
-    return any(p.is_file() and _TEXT_FILE_RE.search(p.name) for p in folder.rglob("*"))
+def _holds_text_files(folder: Path, exclude: Path | None = None) -> bool:
+    return any(
+        p.is_file() and _TEXT_FILE_RE.search(p.name) and not _inside(p, exclude)
+        for p in folder.rglob("*")
+    )
 
 
-def _expand_one(item: str | Path, fmt: str | None) -> list[Path]:
+def _inside(path: Path, folder: Path | None) -> bool:
+    return folder is not None and path.resolve().is_relative_to(folder)
+
+
+def _expand_one(item: str | Path, fmt: str | None, exclude: Path | None = None) -> list[Path]:
     text = str(item)
     if is_pattern(text):
         matches = sorted(Path(m) for m in glob.glob(os.path.expanduser(text), recursive=True))
-        found = [m for m in matches if m.is_file() or m.is_dir()]
+        found = [m for m in matches if (m.is_file() or m.is_dir()) and not _inside(m, exclude)]
         if not found:
             raise DriftError(
                 f"No file matches {printable(text)}; check the pattern (and quote it, so that "
                 "the shell does not expand it first)."
             )
-        return [p for m in found for p in _expand_one(m, fmt)]
+        return [p for m in found for p in _expand_one(m, fmt, exclude)]
     path = Path(text).expanduser()
-    if not path.is_dir() or fmt == "txt" or _holds_text_files(path):
+    if not path.is_dir() or fmt == "txt" or _holds_text_files(path, exclude):
         return [path]  # a file, a folder of .txt files, or a missing path (open_source says so)
-    parts = _table_parts(path)
+    parts = [p for p in _table_parts(path) if not _inside(p, exclude)]
     if not parts:
         raise DriftError(
             f"The folder {path} holds no .txt, CSV, TSV, JSON Lines or Parquet files; give a "
@@ -83,7 +90,11 @@ def _expand_one(item: str | Path, fmt: str | None) -> list[Path]:
     return parts
 
 
-def expand_sources(source: str | Path | Sequence[str | Path], fmt: str | None = None) -> list[Path]:
+def expand_sources(
+    source: str | Path | Sequence[str | Path],
+    fmt: str | None = None,
+    exclude: str | Path | None = None,
+) -> list[Path]:
     """The files and text folders that ``source`` names, in reading order.
 
     Parameters
@@ -92,6 +103,9 @@ def expand_sources(source: str | Path | Sequence[str | Path], fmt: str | None = 
         Paths, glob patterns (``news/*.csv.gz``, ``parts/**/*.parquet``) and folders.
     fmt : str, optional
         ``--input-format``: ``txt`` makes every folder a folder of .txt documents.
+    exclude : str or Path, optional
+        A folder whose contents a pattern or a folder never contributes (the run folder, which
+        may lie beside the parts: ``data/*`` with ``--out data/run``).
 
     Returns
     -------
@@ -114,8 +128,9 @@ def expand_sources(source: str | Path | Sequence[str | Path], fmt: str | None = 
         raise DriftError("No source given; name at least one file, folder or pattern.")
     found: list[Path] = []
     seen: set[Path] = set()
+    skip = Path(exclude).resolve() if exclude is not None else None
     for item in items:
-        for path in _expand_one(item, fmt):
+        for path in _expand_one(item, fmt, skip):
             key = path.resolve()
             if key not in seen:
                 seen.add(key)
@@ -230,6 +245,7 @@ def open_sources(
     *,
     encoding: str | None = None,
     delimiter: str | None = None,
+    exclude: str | Path | None = None,
 ) -> tuple[Reader, list[Path]]:
     """A reader for every file that ``source`` names (see :func:`expand_sources`), and the files.
 
@@ -242,6 +258,8 @@ def open_sources(
         As for :func:`expand_sources`.
     fmt, time_col, text_col, encoding, delimiter
         As for :func:`drift.ingest.readers.open_source`; they apply to every file.
+    exclude : str or Path, optional
+        As for :func:`expand_sources`.
 
     Returns
     -------
@@ -261,7 +279,7 @@ def open_sources(
     >>> type(reader).__name__, len(paths)
     ('CsvReader', 1)
     """
-    paths = expand_sources(source, fmt)
+    paths = expand_sources(source, fmt, exclude)
     if len(paths) == 1:
         return open_source(
             paths[0], fmt, time_col, text_col, encoding=encoding, delimiter=delimiter
