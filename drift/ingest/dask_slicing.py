@@ -49,11 +49,23 @@ def slice_part(task: dict[str, Any]) -> dict[str, Any]:
         return _slice_part(task)
     except DriftError as exc:
         return {"error": str(exc)}
+    except (_Stopped, FileNotFoundError):
+        if Path(task["folder"]).parent.is_dir():
+            raise
+        return {"error": "stopped"}
+
+
+class _Stopped(Exception):
+    """The client removed the work folder: the pass failed elsewhere, so this task stops."""
 
 
 def _slice_part(task: dict[str, Any]) -> dict[str, Any]:
     folder = Path(task["folder"])
     shutil.rmtree(folder, ignore_errors=True)  # a task run again after a lost worker starts afresh
+    try:
+        folder.mkdir()  # not its parents: a work folder the client has removed stays removed
+    except FileNotFoundError:
+        return {"error": "stopped"}
     reader = open_source(
         Path(task["path"]), task["fmt"], task["time_col"], task["text_col"],
         encoding=task["encoding"], delimiter=task["delimiter"],
@@ -66,6 +78,8 @@ def _slice_part(task: dict[str, Any]) -> dict[str, Any]:
     outcomes = []
 
     def process(batch):
+        if not folder.is_dir():
+            raise _Stopped
         batch.source = task["source"]
         return slicing._process_batch(batch, settings), batch.continues
 
@@ -81,9 +95,10 @@ def _slice_part(task: dict[str, Any]) -> dict[str, Any]:
     keys = sorted(files.tallies)
     words, matrix = counts.matrix(keys)
     by_key = {}
-    for column, key in enumerate(keys):
+    narrow = np.int32 if matrix.size == 0 or matrix.max() < 2**31 else np.int64
+    for column, key in enumerate(keys):  # sent to the client: 4-byte numbers where they fit
         present = np.flatnonzero(matrix[:, column])
-        by_key[key] = (present, matrix[present, column])
+        by_key[key] = (present.astype(np.int32), matrix[present, column].astype(narrow))
     return {
         "outcomes": outcomes,
         "counts": slicing.BatchCounts(words, by_key) if len(words) else None,
@@ -107,6 +122,7 @@ class DaskFeed:
         counts: slicing.WordCounts,
     ):
         self.client, self.tasks, self.files, self.counts = client, tasks, files, counts
+        self.work = Path(tasks[0]["folder"]).parent if tasks else None
         self.done_bytes = 0
         self.replaced = 0
         self.legacy = 0
@@ -136,6 +152,8 @@ class DaskFeed:
                 shutil.rmtree(task["folder"], ignore_errors=True)
         finally:
             self.client.cancel([f for f in futures if not f.done()])
+            if self.work is not None:  # tasks still running stop when they see it gone
+                shutil.rmtree(self.work, ignore_errors=True)
 
     def position(self) -> int:
         return self.done_bytes

@@ -1431,7 +1431,11 @@ def _run(
     timings: dict[str, float] = {}
     paths.slices_dir.mkdir(parents=True, exist_ok=True)
     counts = WordCounts()
-    with tempfile.TemporaryDirectory(prefix=".work-", dir=paths.slices_dir) as work:
+    # a Dask task still running when the pass failed may write into the work folder while it is
+    # removed; a leftover is removed by the next run (_clean_leftovers)
+    with tempfile.TemporaryDirectory(
+        prefix=".work-", dir=paths.slices_dir, ignore_cleanup_errors=True
+    ) as work:
         index = documents.DocumentIndex(spec, Path(work) / "index")
         clock = time.perf_counter()
         skip = params["skip_bad_dates"]
