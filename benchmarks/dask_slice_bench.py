@@ -15,10 +15,11 @@ It writes ``--files`` gzipped CSV files (id, date, text) of synthetic documents 
 
 For each it reports the wall time, the throughput in MB of CSV text per second, and the peak
 resident memory of the client process, of its largest child process (a Dask worker) and of
-the whole process tree, sampled every 0.1 s with psutil, and it checks that the three run
-folders hold the same slice files, counts and document index. Goals (issue 14): Dask with 2
-workers at least 1.8 times as fast as with 1 worker; no slower than the local engine; peak
-memory per worker under 600 MB. The load average is printed: the machine may be shared.
+the whole process tree, sampled every 0.1 s with psutil, the CPU seconds of the client and of
+its child processes (the last values seen before each process ended), and it checks that the
+three run folders hold the same slice files, counts and document index. Goals (issue 14): Dask
+with 2 workers at least 1.8 times as fast as with 1 worker; no slower than the local engine;
+peak memory per worker under 600 MB. The load average is printed: the machine may be shared.
 """
 
 from __future__ import annotations
@@ -71,9 +72,16 @@ def write_parts(folder: Path, megabytes: float, files: int, pool: list[str]) -> 
     return total / 1e6
 
 
-def _sample(pid: int, peaks: dict[str, float], stop: threading.Event) -> None:
+def _cpu(proc: psutil.Process) -> float:
+    times = proc.cpu_times()
+    return times.user + times.system
+
+
+def _sample(pid: int, peaks: dict[str, float], cpu: dict[int, float],
+            stop: threading.Event) -> None:
     """Peak RSS of the process ``pid`` (the client), of its largest descendant (a Dask worker
-    or nanny) and of the whole tree, sampled every 0.1 s."""
+    or nanny) and of the whole tree, and the last CPU seconds seen of each process, sampled
+    every 0.1 s."""
     try:
         root = psutil.Process(pid)
     except psutil.NoSuchProcess:
@@ -81,10 +89,12 @@ def _sample(pid: int, peaks: dict[str, float], stop: threading.Event) -> None:
     while not stop.is_set():
         try:
             own = root.memory_info().rss / 1e6
+            cpu[pid] = _cpu(root)
             others = []
             for proc in root.children(recursive=True):
                 try:
                     others.append(proc.memory_info().rss / 1e6)
+                    cpu[proc.pid] = _cpu(proc)
                 except psutil.NoSuchProcess:
                     pass
         except psutil.NoSuchProcess:
@@ -98,10 +108,13 @@ def _sample(pid: int, peaks: dict[str, float], stop: threading.Event) -> None:
 def measure(command: list[str], megabytes: float) -> dict[str, float]:
     """Run ``command``; wall seconds, MB/s and peak memory (one process, the tree)."""
     peaks: dict[str, float] = {}
+    cpu: dict[int, float] = {}
     stop = threading.Event()
     started = time.perf_counter()
     process = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-    sampler = threading.Thread(target=_sample, args=(process.pid, peaks, stop), daemon=True)
+    sampler = threading.Thread(
+        target=_sample, args=(process.pid, peaks, cpu, stop), daemon=True
+    )
     sampler.start()
     _, err = process.communicate()
     seconds = time.perf_counter() - started
@@ -115,6 +128,8 @@ def measure(command: list[str], megabytes: float) -> dict[str, float]:
         "peak_client_mb": peaks.get("client", 0.0),
         "peak_worker_mb": peaks.get("worker", 0.0),
         "peak_tree_mb": peaks.get("tree", 0.0),
+        "client_cpu_s": cpu.get(process.pid, 0.0),
+        "others_cpu_s": sum(v for k, v in cpu.items() if k != process.pid),
     }
 
 
@@ -155,7 +170,8 @@ def main() -> None:
             print(
                 f"{name:7s} {r['seconds']:7.1f} s  {r['mb_per_s']:6.1f} MB/s  "
                 f"peak RSS: client {r['peak_client_mb']:5.0f} MB, largest worker "
-                f"{r['peak_worker_mb']:5.0f} MB, all {r['peak_tree_mb']:5.0f} MB"
+                f"{r['peak_worker_mb']:5.0f} MB, all {r['peak_tree_mb']:5.0f} MB; CPU seconds: "
+                f"client {r['client_cpu_s']:5.1f}, workers {r['others_cpu_s']:5.1f}"
             )
         print(f"load average after: {os.getloadavg()[0]:.2f}")
         same = all(
