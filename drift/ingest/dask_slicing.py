@@ -30,8 +30,6 @@ from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
-import numpy as np
-
 from drift.errors import DriftError
 from drift.ingest import slicing
 from drift.ingest.readers import Reader, open_source
@@ -93,15 +91,9 @@ def _slice_part(task: dict[str, Any]) -> dict[str, Any]:
         outcomes.append((outcome, continues))
     files.close()
     keys = sorted(files.tallies)
-    words, matrix = counts.matrix(keys)
-    by_key = {}
-    narrow = np.int32 if matrix.size == 0 or matrix.max() < 2**31 else np.int64
-    for column, key in enumerate(keys):  # sent to the client: 4-byte numbers where they fit
-        present = np.flatnonzero(matrix[:, column])
-        by_key[key] = (present.astype(np.int32), matrix[present, column].astype(narrow))
     return {
         "outcomes": outcomes,
-        "counts": slicing.BatchCounts(words, by_key) if len(words) else None,
+        "counts": counts.as_batch(),
         "keys": keys,
         "replaced": reader.replaced,
         "legacy": reader.legacy,
