@@ -99,7 +99,7 @@ def test_a_task_run_twice_writes_its_part_once(parts, tmp_path):
     sizes = {p.name: p.stat().st_size for p in Path(tasks[1]["folder"]).iterdir()}
     second = dask_slicing.slice_part(tasks[1])
     assert {p.name: p.stat().st_size for p in Path(tasks[1]["folder"]).iterdir()} == sizes
-    assert first["keys"] == second["keys"] and first["bytes"] == second["bytes"]
+    assert first["keys"] == second["keys"] and first["replaced"] == second["replaced"]
     assert len(first["outcomes"]) == len(second["outcomes"]) >= 1
 
 
@@ -121,3 +121,61 @@ def test_unreachable_scheduler_and_bad_file_are_one_sentence(parts, cluster, tmp
     with pytest.raises(DriftError, match=r"Line 2 of .*p1\.jsonl is not valid JSON"):
         slice_archive(folder, tmp_path / "run2", quiet=True, engine="dask",
                       scheduler=cluster.scheduler_address)
+
+
+@pytest.fixture()
+def small_pieces(monkeypatch):
+    """Files over 40 kB are read in pieces of about 40 kB (the default is 64 MB)."""
+    monkeypatch.setattr(dask_slicing, "PIECE_BYTES", 40_000)
+
+
+def write_pieced_sources(folder: Path, frame) -> None:
+    """The frame as one JSON Lines file (about 150 kB) and one Parquet file of many row
+    groups: both larger than the pieces."""
+    folder.mkdir(parents=True, exist_ok=True)
+    half = len(frame) // 2
+    with (folder / "a.jsonl").open("w", encoding="utf-8") as handle:
+        for record in frame.iloc[:half].to_dict("records"):
+            handle.write(json.dumps(record, ensure_ascii=False) + "\n")
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    pq.write_table(pa.Table.from_pandas(frame.iloc[half:], preserve_index=False),
+                   folder / "b.parquet", row_group_size=20)
+
+
+def test_large_files_in_pieces_equal_the_local_engine(tmp_path, cluster, small_pieces):
+    folder = tmp_path / "big"
+    write_pieced_sources(folder, lee_frame())
+    reader, _ = __import__("drift.ingest.sources", fromlist=["open_sources"]).open_sources(folder)
+    tasks = dask_slicing.plan_tasks(reader, tmp_path / "work", None, fmt=None, encoding=None,
+                                    delimiter=None)
+    assert len(tasks) > 4 and [t["file"] for t in tasks] == sorted(t["file"] for t in tasks)
+    for options in ({"by": "5y", "meta": ["desk"]}, {"by": "even:2", "balance": "smallest"}):
+        slice_archive(folder, tmp_path / "local", quiet=True, **options)
+        slice_archive(folder, tmp_path / "dask", quiet=True, engine="dask",
+                      scheduler=cluster.scheduler_address, **options)
+        assert_same_run(tmp_path / "local", tmp_path / "dask")
+
+
+def test_a_piece_that_is_not_utf8_or_fails_reads_the_file_whole(tmp_path, cluster, small_pieces):
+    """Bytes that are not UTF-8 are read by what came before them (detection), and an error
+    names its line in the file: both come out as the local engine has them."""
+    folder = tmp_path / "odd"
+    write_pieced_sources(folder, lee_frame())
+    data = (folder / "a.jsonl").read_bytes()
+    cut = data.index(b"\n", len(data) * 2 // 3) + 1
+    odd = data[:cut] + b'{"date": "1995", "text": "caf\\u00e9", "desk": "x"}\n' \
+        .replace(b"\\u00e9", b"\xe9") + data[cut:]
+    (folder / "a.jsonl").write_bytes(odd)  # a cp1252/Latin-1 byte in the last piece
+    slice_archive(folder, tmp_path / "local", by="5y", quiet=True)
+    slice_archive(folder, tmp_path / "dask", by="5y", quiet=True, engine="dask",
+                  scheduler=cluster.scheduler_address)
+    assert_same_run(tmp_path / "local", tmp_path / "dask")
+    (folder / "a.jsonl").write_bytes(data[:cut] + b"not json\n" + data[cut:])
+    line = data[:cut].count(b"\n") + 1
+    for engine in ("local", "dask"):
+        extra = {"scheduler": cluster.scheduler_address} if engine == "dask" else {}
+        with pytest.raises(DriftError, match=rf"Line {line} of .*a\.jsonl is not valid JSON"):
+            slice_archive(folder, tmp_path / f"bad-{engine}", by="5y", quiet=True,
+                          engine=engine, **extra)

@@ -37,6 +37,9 @@ from drift.ingest.sources import MultiReader
 
 #: Seconds to wait for a Dask scheduler before giving up (a typo should fail fast).
 CONNECT_TIMEOUT_S = 5.0
+#: Uncompressed JSON Lines and Parquet files larger than this are read in pieces of about this
+#: size, each a task of its own (other files are one task each).
+PIECE_BYTES = 64 << 20
 
 
 def slice_part(task: dict[str, Any]) -> dict[str, Any]:
@@ -70,6 +73,7 @@ def _slice_part(task: dict[str, Any]) -> dict[str, Any]:
     )
     for column in task["extra_cols"]:
         reader.want(column, "--meta")
+    reader.restrict(task["piece"])
     settings = task["settings"]
     files = slicing._SliceFiles(folder, keep_lines=False)
     counts = slicing.WordCounts()
@@ -98,7 +102,6 @@ def _slice_part(task: dict[str, Any]) -> dict[str, Any]:
         "replaced": reader.replaced,
         "legacy": reader.legacy,
         "notes": reader.notes(),
-        "bytes": reader.total_bytes,
     }
 
 
@@ -120,28 +123,55 @@ class DaskFeed:
         self.legacy = 0
         self._notes: list[str] = []
 
+    def _submit(self, task: dict[str, Any]) -> Any:
+        return self.client.submit(
+            slice_part, task, key=f"drift-slice-{task['number']}-{os.urandom(4).hex()}",
+            pure=False,
+        )
+
+    def _file_results(self, tasks: list[dict[str, Any]], futures: list[Any]) -> list[dict]:
+        """The results of one file's tasks, in order. A file read in pieces is read again as
+        one task when a piece failed (so that the error names the right line) or met bytes
+        that are not UTF-8 (whose reading depends on what came before)."""
+        if len(tasks) == 1:
+            return [_result(futures[0], tasks[0])]
+        results = []
+        for task, future in zip(tasks, futures, strict=True):
+            try:
+                results.append(_result(future, task))
+            except DriftError:
+                results.append({"error": True})
+        if all("error" not in r and not r["replaced"] and not r["legacy"] for r in results):
+            return results
+        for task in tasks:
+            shutil.rmtree(task["folder"], ignore_errors=True)
+        whole = {**tasks[0], "piece": None, "bytes": sum(t["bytes"] for t in tasks)}
+        return [_result(self._submit(whole), whole)]
+
     def outcomes(self) -> Iterator[tuple[Any, bool]]:
-        futures = [
-            self.client.submit(
-                slice_part, task, key=f"drift-slice-{task['number']}-{os.urandom(4).hex()}",
-                pure=False,
-            )
-            for task in self.tasks
-        ]
+        futures = [self._submit(task) for task in self.tasks]
+        files: dict[int, list[int]] = {}  # file -> its tasks, in order
+        for position, task in enumerate(self.tasks):
+            files.setdefault(task["file"], []).append(position)
         try:
-            for number, task in enumerate(self.tasks):
-                result = _result(futures[number], task)
-                futures[number].release()  # the worker may drop the result now
-                yield from result["outcomes"]
-                for key in result["keys"]:
-                    self.files.append_file(key, Path(task["folder"]) / f"{key}.txt")
-                if result["counts"] is not None:
-                    self.counts.add(result["counts"])
-                self.replaced += result["replaced"]
-                self.legacy += result["legacy"]
-                self._notes += result["notes"]
-                self.done_bytes += result["bytes"]
-                shutil.rmtree(task["folder"], ignore_errors=True)
+            for positions in files.values():
+                tasks = [self.tasks[i] for i in positions]
+                results = self._file_results(tasks, [futures[i] for i in positions])
+                for i in positions:
+                    futures[i].release()  # the worker may drop the result now
+                for task, result in zip(tasks, results, strict=False):
+                    yield from result["outcomes"]
+                    for key in result["keys"]:
+                        self.files.append_file(key, Path(task["folder"]) / f"{key}.txt")
+                    if result["counts"] is not None:
+                        self.counts.add(result["counts"])
+                    self.replaced += result["replaced"]
+                    self.legacy += result["legacy"]
+                    self._notes += result["notes"]
+                    self.done_bytes += task["bytes"] if len(results) > 1 else sum(
+                        t["bytes"] for t in tasks
+                    )
+                    shutil.rmtree(task["folder"], ignore_errors=True)
         finally:
             self.client.cancel([f for f in futures if not f.done()])
             if self.work is not None:  # tasks still running stop when they see it gone
@@ -242,26 +272,35 @@ def dask_client(scheduler: str | None, workers: int) -> Iterator[Any]:
 def plan_tasks(
     reader: Reader, work: Path, settings: Any, *, fmt: str | None,
     encoding: str | None, delimiter: str | None, threads: int = 1,
+    piece_bytes: int | None = None,
 ) -> list[dict[str, Any]]:
-    """One task per source file, in reading order (a folder of .txt documents is one task)."""
+    """Tasks in reading order: one per source file (a folder of .txt documents is one), and one
+    per piece of an uncompressed JSON Lines or Parquet file larger than ``piece_bytes``
+    (default :data:`PIECE_BYTES`): line-aligned byte ranges, runs of row groups."""
     readers = reader.readers if isinstance(reader, MultiReader) else [reader]
     names = reader.names if isinstance(reader, MultiReader) else [None]
+    size = PIECE_BYTES if piece_bytes is None else piece_bytes
     tasks = []
-    for number, (one, name) in enumerate(zip(readers, names, strict=True)):
-        tasks.append({
-            "number": number,
-            "path": str(Path(one.path).resolve()),
-            "fmt": fmt,
-            "time_col": one.time_col,
-            "text_col": one.text_col,
-            "encoding": encoding,
-            "delimiter": delimiter,
-            "extra_cols": list(one.extra_cols),
-            "settings": settings,
-            "folder": str(work / f"{number:06d}"),
-            "source": name,
-            "threads": threads,
-        })
+    for file, (one, name) in enumerate(zip(readers, names, strict=True)):
+        pieces = one.pieces(size)
+        for piece in pieces:
+            tasks.append({
+                "number": len(tasks),
+                "file": file,
+                "piece": piece,
+                "bytes": one.total_bytes // len(pieces),
+                "path": str(Path(one.path).resolve()),
+                "fmt": fmt,
+                "time_col": one.time_col,
+                "text_col": one.text_col,
+                "encoding": encoding,
+                "delimiter": delimiter,
+                "extra_cols": list(one.extra_cols),
+                "settings": settings,
+                "folder": str(work / f"{len(tasks):06d}"),
+                "source": name,
+                "threads": threads,
+            })
     return tasks
 
 

@@ -42,6 +42,9 @@ MIX_SHIFT_WARNING = 0.2
 INDEX_COLUMNS = ("document", "date", "slice", "source_row", "source_file", "line", "lines",
                  "tokens")
 COMPOSITION_COLUMNS = list(runfolder.COMPOSITION_COLUMNS)
+#: Rows per row group of the document index (its files do not depend on how the source was cut
+#: into batches, so the local and Dask engines write the same bytes).
+INDEX_ROW_GROUP = 1 << 16
 #: How a repeated id is made unique: the n-th use of an id (n >= 2) becomes ``id~n``.
 DUPLICATE_SUFFIX = "~"
 _MISSING = "(none)"
@@ -122,6 +125,8 @@ class DocumentIndex:
     next_row: int = 1
     source: str | None = None  # the file being read (several sources)
     _writer: pq.ParquetWriter | None = None
+    _pending: list[pa.Table] = field(default_factory=list)
+    _pending_rows: int = 0
 
     @property
     def path(self) -> Path:
@@ -156,12 +161,32 @@ class DocumentIndex:
             strings = strings.append_column(
                 "source:", pa.array([docs.source] * strings.num_rows, pa.string())
             )
+        self._pending.append(strings)
+        self._pending_rows += strings.num_rows
+        if self._pending_rows >= INDEX_ROW_GROUP:
+            self._write(final=False)
+
+    def _write(self, final: bool) -> None:
+        """Write the strings kept so far in row groups of :data:`INDEX_ROW_GROUP` rows (the
+        rest waits, unless ``final``), so the files do not depend on how batches were cut."""
+        if not self._pending:
+            return
+        table = pa.concat_tables(self._pending)
         if self._writer is None:
             self.work.mkdir(parents=True, exist_ok=True)
-            self._writer = pq.ParquetWriter(self.path, strings.schema)
-        self._writer.write_table(strings)
+            self._writer = pq.ParquetWriter(self.path, table.schema)
+        whole = table.num_rows if final else table.num_rows - table.num_rows % INDEX_ROW_GROUP
+        for start in range(0, whole, INDEX_ROW_GROUP):
+            self._writer.write_table(
+                table.slice(start, min(INDEX_ROW_GROUP, whole - start)),
+                row_group_size=INDEX_ROW_GROUP,
+            )
+        rest = table.slice(whole)
+        self._pending = [rest] if rest.num_rows else []
+        self._pending_rows = rest.num_rows
 
     def close(self) -> None:
+        self._write(final=True)
         if self._writer is not None:
             self._writer.close()
             self._writer = None

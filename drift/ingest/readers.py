@@ -193,16 +193,24 @@ def detect_format(path: Path, fmt: str | None = None) -> str:
 class _CountingFile(io.RawIOBase):
     """A raw binary file that remembers how many bytes were read from it (for progress)."""
 
-    def __init__(self, path: Path):
+    def __init__(self, path: Path, byte_range: tuple[int, int] | None = None):
         self._file = open(path, "rb")  # noqa: SIM115 - closed with this object
         self.position = 0
+        self._left = None  # bytes left to read in ``byte_range`` (None: to the end)
+        if byte_range is not None:
+            self._file.seek(byte_range[0])
+            self._left = byte_range[1] - byte_range[0]
 
     def readable(self) -> bool:
         return True
 
     def readinto(self, buffer) -> int:
+        if self._left is not None:
+            buffer = memoryview(buffer)[: max(0, self._left)]
         count = self._file.readinto(buffer)
         self.position += count or 0
+        if self._left is not None:
+            self._left -= count or 0
         return count
 
     def close(self) -> None:
@@ -220,10 +228,16 @@ class _Utf8Stream(io.RawIOBase):
     raises DriftError (also when read from inside pyarrow).
     """
 
-    def __init__(self, path: Path, compression: str | None, encoding: str | None = None):
+    def __init__(
+        self,
+        path: Path,
+        compression: str | None,
+        encoding: str | None = None,
+        byte_range: tuple[int, int] | None = None,
+    ):
         self.path = path
         self.compression = compression
-        self.counter = _CountingFile(path)
+        self.counter = _CountingFile(path, byte_range)
         if compression == "gzip":
             self._source: BinaryIO = gzip.GzipFile(fileobj=self.counter, mode="rb")
         elif compression == "bzip2":
@@ -433,6 +447,8 @@ class Reader:
         self.extra_cols: list[str] = []
         self._streams: list[_Utf8Stream] = []
         self._done_bytes = 0
+        #: Only this part of the file is read (set by :meth:`restrict`; Dask slicing).
+        self.byte_range: tuple[int, int] | None = None
 
     def want(self, column: str, option: str) -> str:
         """Also read ``column`` (named with ``option``) into :attr:`DocBatch.extra`; returns its
@@ -491,7 +507,8 @@ class Reader:
         """A decoded stream of the source (or of ``path``); a ``probe`` (reading the header) is
         not counted in progress or replaced characters."""
         stream = _Utf8Stream(
-            path or self.path, compression if path else self.compression, self.encoding
+            path or self.path, compression if path else self.compression, self.encoding,
+            None if (path or probe) else self.byte_range,
         )
         if not probe:
             self._streams.append(stream)
@@ -513,6 +530,16 @@ class Reader:
                 f"{self.path} looks like a binary file, not text (a NUL byte at offset "
                 f"{offset}); check the path, or name the format with --input-format."
             )
+
+    def pieces(self, size: int) -> list[tuple[int, int] | None]:
+        """Parts of the file that can be read on their own (:meth:`restrict`), of about
+        ``size`` bytes, in order; ``[None]`` (the whole file) when it cannot be split."""
+        return [None]
+
+    def restrict(self, piece: tuple[int, int] | None) -> None:
+        """Read only ``piece``, one of :meth:`pieces` (after the columns are resolved)."""
+        if piece is not None:
+            raise ValueError(f"{self.path.name} cannot be read in parts")
 
     def batches(self) -> Iterator[DocBatch]:  # pragma: no cover - overridden
         raise NotImplementedError
@@ -654,6 +681,29 @@ class JsonLinesReader(Reader):
             self.columns, text_col, TEXT_COLUMN_NAMES, "text", "--text-col", self.path.name
         )
 
+    def pieces(self, size: int) -> list[tuple[int, int] | None]:
+        """Byte ranges that start at the beginning of a line (a line break never occurs inside
+        a JSON string or a UTF-8 character), for uncompressed files in UTF-8 or detected."""
+        total = self.total_bytes
+        if self.compression or self.encoding not in (None, "utf-8") or total <= size:
+            return [None]
+        starts = [0]
+        with open(self.path, "rb") as handle:
+            if handle.read(2) in (b"\xff\xfe", b"\xfe\xff"):  # UTF-16: read whole
+                return [None]
+            for guess in range(size, total, size):
+                if guess <= starts[-1]:
+                    continue
+                handle.seek(guess)
+                handle.readline()  # to the start of the next line
+                if handle.tell() < total:
+                    starts.append(handle.tell())
+        ends = [*starts[1:], total]
+        return [None] if len(starts) == 1 else list(zip(starts, ends, strict=True))
+
+    def restrict(self, piece: tuple[int, int] | None) -> None:
+        self.byte_range = piece
+
     def _lines(self, probe: bool = False) -> Iterator[tuple[int, bytes]]:
         stream = self._open_text_stream(probe=probe)
         try:
@@ -764,6 +814,7 @@ class ParquetReader(Reader):
         for column, role in ((self.text_col, "text"), (self.time_col, "time")):
             check_text_type(schema.field(column).type, column, role, self.path.name)
         self._rows_done = 0
+        self._groups: list[int] | None = None  # row groups to read (None: all)
 
     def _open(self) -> pq.ParquetFile:
         target = self.path
@@ -793,6 +844,30 @@ class ParquetReader(Reader):
         rows = max(self._file.metadata.num_rows, 1)
         return int(self.total_bytes * self._rows_done / rows)
 
+    def pieces(self, size: int) -> list[tuple[int, int] | None]:
+        """Runs of whole row groups, of about ``size`` bytes of the file each (uncompressed
+        files; a piece is (first row group, end row group))."""
+        metadata = self._file.metadata
+        groups = metadata.num_row_groups
+        if self.compression or groups < 2 or self.total_bytes <= size:
+            return [None]
+        sizes = []  # bytes of each row group in the file
+        for i in range(groups):
+            group = metadata.row_group(i)
+            sizes.append(sum(group.column(c).total_compressed_size
+                             for c in range(group.num_columns)))
+        pieces, first, held = [], 0, 0
+        for group, group_size in enumerate(sizes):
+            held += group_size
+            if held >= size and group + 1 < groups:
+                pieces.append((first, group + 1))
+                first, held = group + 1, 0
+        pieces.append((first, groups))
+        return [None] if len(pieces) == 1 else pieces
+
+    def restrict(self, piece: tuple[int, int] | None) -> None:
+        self._groups = None if piece is None else list(range(*piece))
+
     def batches(self) -> Iterator[DocBatch]:
         metadata = self._file.metadata
         row_bytes = max(
@@ -802,7 +877,9 @@ class ParquetReader(Reader):
         )
         rows = int(min(max(BATCH_BYTES // row_bytes, 1_000), 1_000_000))
         try:
-            for batch in self._file.iter_batches(batch_size=rows, columns=self._read_cols()):
+            for batch in self._file.iter_batches(
+                batch_size=rows, columns=self._read_cols(), row_groups=self._groups
+            ):
                 self._rows_done += batch.num_rows
                 yield DocBatch(
                     batch.column(self.time_col),
