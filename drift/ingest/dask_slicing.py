@@ -4,19 +4,24 @@ The archive is split by file: one task per file (a folder of .txt documents is o
 worker opens its file with the options the client resolved (format, columns, encoding), dates
 and tokenizes every batch exactly as the local engine does
 (:func:`drift.ingest.slicing._process_batch`), appends each slice's lines to its own part file
-in the run's work folder (``slices/.work-*/parts/<n>/<key>.txt``), and returns everything else
-small: per batch the row, date and document tallies and the document index entries, and the
-word counts of the whole file. The client consumes the results in file order and replays them
-through the same first pass as the local engine, appending each part file to its slice after the
-files before it. The lines of every slice are therefore in the same order, the counts are the
-same sums, and every output of the run folder equals the local engine's (see DEVELOPERS.md for
-which files are byte-identical).
+in the run's work folder (``slices/.work-*/parts-slices/<n>/<key>.txt``), and returns the rest,
+which is small: per batch the row, date and document tallies and the document index entries,
+and the word counts of the whole file. The client consumes the results in file order and
+replays them through the same first pass as the local engine, appending each part file to its
+slice after the files before it. The lines of every slice are therefore in the same order, the
+counts are the same sums, and every output of the run folder equals the local engine's (see
+DEVELOPERS.md for which files are byte-identical).
 
 Every worker must see the run folder at the same path (a shared file system, as for training).
 A task whose worker dies is run again by Dask (its ``distributed.scheduler.allowed-failures``
 setting): a task writes only into its own part folder, which it empties first, so running it
-again duplicates nothing. Large files are not split by byte ranges: one file
-is one task, so a single large file runs on one worker.
+again duplicates nothing.
+
+An uncompressed JSON Lines or Parquet file larger than :data:`PIECE_BYTES` is split into pieces
+(line-aligned byte ranges, runs of row groups; :meth:`drift.ingest.readers.Reader.pieces`), one
+task each; a file whose pieces fail or meet bytes that are not UTF-8 is read again as one task,
+so that decoding and error messages are the local engine's. CSV files and compressed files are
+one task each.
 """
 
 from __future__ import annotations
