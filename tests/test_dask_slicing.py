@@ -179,3 +179,16 @@ def test_a_piece_that_is_not_utf8_or_fails_reads_the_file_whole(tmp_path, cluste
         with pytest.raises(DriftError, match=rf"Line {line} of .*a\.jsonl is not valid JSON"):
             slice_archive(folder, tmp_path / f"bad-{engine}", by="5y", quiet=True,
                           engine=engine, **extra)
+
+
+def test_a_folder_of_text_files_on_dask_equals_local(tmp_path, cluster):
+    """A folder of .txt documents is one task; file names, dates and notes come through."""
+    lines = lee_frame()["text"].tolist()
+    for number, line in enumerate(lines[:60]):
+        folder = tmp_path / "letters" / str(1990 + number % 10)
+        folder.mkdir(parents=True, exist_ok=True)
+        (folder / f"note{number}.txt").write_text(line, encoding="utf-8")
+    slice_archive(tmp_path / "letters", tmp_path / "local", by="5y", quiet=True)
+    slice_archive(tmp_path / "letters", tmp_path / "dask", by="5y", quiet=True, engine="dask",
+                  scheduler=cluster.scheduler_address)
+    assert_same_run(tmp_path / "local", tmp_path / "dask")
