@@ -111,8 +111,9 @@ def _slice_part(task: dict[str, Any]) -> dict[str, Any]:
 
 
 class DaskFeed:
-    """A first pass's batch outcomes, computed on Dask workers one file per task, consumed in
-    file order; each file's part files are appended to the slices once its outcomes are in."""
+    """A first pass's batch outcomes, computed on Dask workers (a file or a piece per task),
+    taken in file order; each task's part files are appended to the slices once its outcomes
+    are in."""
 
     def __init__(
         self,
