@@ -1,6 +1,7 @@
 """The package layout follows the pipeline: no module imports a stage above its own.
 
-Layers, bottom to top: the shared contract (``runfolder``, ``errors``, ``progress``, ``options``),
+Layers, bottom to top: the shared contract (``runfolder``, ``errors``, ``progress``, ``options``,
+``cluster``),
 then ``ingest``, ``embed``, ``compare``, ``publish``, ``validate``, then ``pipeline`` and ``cli``.
 Every import is read from the source (lazy imports inside functions included), and a name taken
 from the top-level ``drift`` package counts as an import of the module that defines it.
@@ -18,7 +19,7 @@ import drift
 PACKAGE = Path(drift.__file__).resolve().parent
 LAYERS = {"base": 0, "ingest": 1, "embed": 2, "compare": 3, "publish": 4, "validate": 5,
           "pipeline": 6, "cli": 6, "__main__": 6}
-BASE_MODULES = {"runfolder", "errors", "progress", "options", "__init__"}
+BASE_MODULES = {"runfolder", "errors", "progress", "options", "cluster", "__init__"}
 
 
 def layer_of(module: str) -> str:

@@ -15,11 +15,16 @@ import functools
 import logging
 import os
 import signal
-import sys
 import threading
 from collections.abc import Callable, Iterator
 from typing import Any, Protocol
 
+from drift.cluster import (
+    CONNECT_TIMEOUT_S,
+    connect_dask,
+    import_distributed,
+    main_module_kept_from_workers,
+)
 from drift.errors import DriftError
 
 #: ``report(completed, total)``: a task's progress in its own steps.
@@ -31,7 +36,6 @@ EventHandler = Callable[[str, int, int], None]
 
 ENGINES = ("local", "dask")
 #: Seconds to wait for a Dask scheduler before giving up (kept short: a typo should fail fast).
-CONNECT_TIMEOUT_S = 5.0
 #: Topic of the progress events that Dask workers send to the client.
 DASK_EVENT_TOPIC = "drift-task-progress"
 
@@ -108,32 +112,6 @@ def pool_context(preload: tuple[str, ...] = ()) -> Any:
         context.set_forkserver_preload(list(preload))
         return context
     return multiprocessing.get_context("spawn")
-
-
-@contextlib.contextmanager
-def main_module_kept_from_workers(function: Callable[..., Any]) -> Iterator[None]:
-    """While worker processes start, hide the caller's main script from them.
-
-    Spawned and fork-server workers normally import the parent's ``__main__`` file again (as
-    ``__mp_main__``), which runs every top-level line of a script written without an
-    ``if __name__ == "__main__":`` guard: the script would start a second run inside each worker.
-    drift's task functions live in drift's own modules, so the workers do not need the script;
-    ``multiprocessing`` skips it when ``__main__`` has no ``__file__`` and no ``__spec__``. A
-    task function defined in the script itself still gets the script.
-    """
-    main = sys.modules.get("__main__")
-    if main is None or getattr(function, "__module__", None) == "__main__":
-        yield
-        return
-    names = ("__file__", "__spec__")
-    saved = {name: main.__dict__[name] for name in names if name in main.__dict__}
-    main.__dict__.pop("__file__", None)
-    main.__dict__["__spec__"] = None
-    try:
-        yield
-    finally:
-        main.__dict__.pop("__spec__", None)
-        main.__dict__.update(saved)
 
 
 def _queue_report(key: str) -> Report | None:
@@ -264,17 +242,6 @@ def _call_on_dask_worker(function: TaskFunction, task: dict[str, Any]) -> dict[s
     return function(task, report)
 
 
-def _import_distributed() -> Any:
-    try:
-        import distributed
-    except ImportError:
-        raise DriftError(
-            "--engine dask needs Dask's distributed scheduler; install it with "
-            "pip install 'lexical-drift[dask]' or use --engine local."
-        ) from None
-    return distributed
-
-
 class DaskEngine:
     """Tasks on a Dask cluster: the scheduler at ``address``, or a LocalCluster when None.
 
@@ -300,7 +267,7 @@ class DaskEngine:
         self.description = f"dask, {where}"
 
     def open(self) -> DaskEngine:
-        distributed = _import_distributed()
+        distributed = import_distributed()
         if self.address is None:
             with main_module_kept_from_workers(self.open):
                 self.cluster = distributed.LocalCluster(
@@ -335,7 +302,7 @@ class DaskEngine:
     def run(self, function: TaskFunction, tasks: list[dict[str, Any]]) -> Iterator[dict[str, Any]]:
         if not tasks:
             return
-        distributed = _import_distributed()
+        distributed = import_distributed()
         report = self.on_event is not None
         futures = [
             self.client.submit(
@@ -352,19 +319,6 @@ class DaskEngine:
                 yield future.result()
         finally:
             self.client.cancel([f for f in futures if not f.done()])
-
-
-def connect_dask(address: str, timeout_s: float = CONNECT_TIMEOUT_S) -> Any:
-    """A Dask client for the scheduler at ``address``, or a DriftError naming the address."""
-    distributed = _import_distributed()
-    try:
-        return distributed.Client(address, timeout=timeout_s, set_as_default=False)
-    except (OSError, TimeoutError, ValueError) as exc:
-        reason = str(exc).split("\n")[0][:160] or exc.__class__.__name__
-        raise DriftError(
-            f"Could not reach the Dask scheduler at {address} within {timeout_s:g} s ({reason}); "
-            "check the address and that the scheduler is running (nothing was written)."
-        ) from None
 
 
 @contextlib.contextmanager

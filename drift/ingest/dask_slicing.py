@@ -30,18 +30,17 @@ import contextlib
 import logging
 import os
 import shutil
-import sys
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
+from drift.cluster import connect_dask, import_distributed, main_module_kept_from_workers
 from drift.errors import DriftError
 from drift.ingest import slicing
 from drift.ingest.readers import Reader, open_source
 from drift.ingest.sources import MultiReader
 
 #: Seconds to wait for a Dask scheduler before giving up (a typo should fail fast).
-CONNECT_TIMEOUT_S = 5.0
 #: Uncompressed JSON Lines and Parquet files larger than this are read in pieces of about this
 #: size, each a task of its own (other files are one task each).
 PIECE_BYTES = 64 << 20
@@ -211,45 +210,13 @@ def _result(future: Any, task: dict[str, Any]) -> dict[str, Any]:
         raise
 
 
-def _import_distributed() -> Any:
-    try:
-        import distributed
-    except ImportError:
-        raise DriftError(
-            "--engine dask needs Dask's distributed scheduler; install it with "
-            "pip install 'lexical-drift[dask]' or use --engine local."
-        ) from None
-    return distributed
-
-
-@contextlib.contextmanager
-def _main_script_hidden() -> Iterator[None]:
-    """While LocalCluster workers start, hide the caller's main script from them, so that a
-    script without an ``if __name__ == "__main__":`` guard (or code read from stdin) is not run
-    again in every worker (the same guard as training's engines; the task function lives in
-    drift, so workers never need the script)."""
-    main = sys.modules.get("__main__")
-    if main is None:
-        yield
-        return
-    names = ("__file__", "__spec__")
-    saved = {name: main.__dict__[name] for name in names if name in main.__dict__}
-    main.__dict__.pop("__file__", None)
-    main.__dict__["__spec__"] = None
-    try:
-        yield
-    finally:
-        main.__dict__.pop("__spec__", None)
-        main.__dict__.update(saved)
-
-
 @contextlib.contextmanager
 def dask_client(scheduler: str | None, workers: int) -> Iterator[Any]:
     """A client of the scheduler at ``scheduler``, or of a LocalCluster of ``workers``
     single-threaded processes; closed on leaving."""
-    distributed = _import_distributed()
+    distributed = import_distributed()
     if scheduler is None:
-        with _main_script_hidden():
+        with main_module_kept_from_workers():
             cluster = distributed.LocalCluster(
                 n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None,
                 silence_logs=logging.ERROR,
@@ -261,14 +228,7 @@ def dask_client(scheduler: str | None, workers: int) -> Iterator[Any]:
             client.close()
             cluster.close()
         return
-    try:
-        client = distributed.Client(scheduler, timeout=CONNECT_TIMEOUT_S, set_as_default=False)
-    except (OSError, TimeoutError, ValueError) as exc:
-        reason = str(exc).split("\n")[0][:160] or exc.__class__.__name__
-        raise DriftError(
-            f"Could not reach the Dask scheduler at {scheduler} within {CONNECT_TIMEOUT_S:g} s "
-            f"({reason}); check the address and that the scheduler is running."
-        ) from None
+    client = connect_dask(scheduler)
     try:
         yield client
     finally:
