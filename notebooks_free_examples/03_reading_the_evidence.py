@@ -35,7 +35,8 @@ def main() -> None:
     # The control pair: the compared decades' documents pooled, shuffled and split in two. No
     # time separates the halves, so any displacement there is noise. The null is that noise as
     # a function of word frequency; z says how far above it a word sits, q controls the false
-    # discovery rate over all words (Benjamini-Hochberg).
+    # discovery rate over all words (Benjamini-Hochberg). With the default measure, evidence,
+    # z combines two such z per word: of its displacement and of its local neighbourhood change.
     flagged = rank_record(args.out).get("control_flagged")
     print(f"words the control itself would flag as changed: {flagged} (should be few)")
     print(f"words significant at q < 0.05: {int(scores['significant'].sum())} of {len(scores)}")
