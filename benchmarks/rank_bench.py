@@ -7,9 +7,9 @@ Run by hand (never in the test suite):
     python benchmarks/rank_bench.py --control          # also score the control pair
     python benchmarks/rank_bench.py --once             # one bare run, not two
 
-It writes a run folder of random vectors (one gensim KeyedVectors per slice and seed, saved with
-``KeyedVectors.save``, Zipf-like counts, slices/summary.csv, counts.parquet, run.json) into a
-temporary folder under /tmp, then runs, each in its own subprocess:
+It writes a run folder of random vectors (one model per slice and seed, saved as drift saves
+them: ``.npy`` and a Parquet vocabulary; Zipf-like counts, slices/summary.csv, counts.parquet,
+run.json) into a temporary folder under /tmp, then runs, each in its own subprocess:
 
 - ``bare``: for every model, unit-normalise and find every word's top-k neighbours among all
   words of that model, in blocks of the same memory budget as drift (64 MiB of float32
