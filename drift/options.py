@@ -417,6 +417,21 @@ def _words() -> Any:
     )
 
 
+def _engine() -> Any:
+    """``--engine``, the same option for slicing and training."""
+    return opt("local", "local or dask.", check=_choice(ENGINES, "--engine"))
+
+
+def _scheduler() -> Any:
+    """``--scheduler``, the same option for slicing and training."""
+    return opt(
+        None,
+        "Dask scheduler address (default: a LocalCluster).",
+        metavar="ADDR",
+        show_default=False,
+    )
+
+
 def _between() -> Any:
     return opt(
         None,
@@ -494,13 +509,8 @@ class SliceOptions(StageOptions):
         False, "Add SOURCE's documents to the slices already in --out (new slices are added, "
         "slices that gain documents are redone, the rest kept as they are)."
     )
-    engine: str = opt("local", "local or dask.", check=_choice(ENGINES, "--engine"))
-    scheduler: str | None = opt(
-        None,
-        "Dask scheduler address (default: a LocalCluster).",
-        metavar="ADDR",
-        show_default=False,
-    )
+    engine: str = _engine()
+    scheduler: str | None = _scheduler()
 
     def check(self) -> None:
         if self.scheduler and self.engine != "dask":
@@ -553,13 +563,8 @@ class TrainOptions(StageOptions):
         flag="--no-control",
         negate=True,
     )
-    engine: str = opt("local", "local or dask.", check=_choice(ENGINES, "--engine"))
-    scheduler: str | None = opt(
-        None,
-        "Dask scheduler address (default: a LocalCluster).",
-        metavar="ADDR",
-        show_default=False,
-    )
+    engine: str = _engine()
+    scheduler: str | None = _scheduler()
 
     def check(self) -> None:
         if self.base_seed + self.seeds >= SEED_LIMIT:
