@@ -744,6 +744,7 @@ class TableSchema:
     stage: str
     columns: tuple[str, ...]
     csv_twin: str | None = None
+    #: columns a CSV table reads as text (a label such as 1990 is not a number)
     text_columns: tuple[str, ...] = ()
     open_after: str | None = None
 
@@ -789,22 +790,19 @@ COMPOSITION_COLUMNS = ("slice", "column", "value", "documents", "tokens", "share
 TABLES: dict[str, TableSchema] = {
     "summary": TableSchema("slices/summary.csv", "slice", SUMMARY_COLUMNS,
                            text_columns=("label", "start", "end")),
-    "counts": TableSchema("counts.parquet", "slice", ("word",), text_columns=("word",),
+    "counts": TableSchema("counts.parquet", "slice", ("word",),
                           open_after="word"),
     "documents": TableSchema("documents.parquet", "slice", ("document", "date"),
-                             csv_twin="documents.csv", text_columns=("document", "date"),
+                             csv_twin="documents.csv",
                              open_after="date"),
     "composition": TableSchema("composition.parquet", "slice", COMPOSITION_COLUMNS,
-                               csv_twin="composition.csv",
-                               text_columns=("slice", "column", "value")),
-    "scores": TableSchema("scores.parquet", "rank", SCORE_COLUMNS, csv_twin="scores.csv",
-                          text_columns=("word",)),
+                               csv_twin="composition.csv"),
+    "scores": TableSchema("scores.parquet", "rank", SCORE_COLUMNS, csv_twin="scores.csv"),
     "timeline": TableSchema("timeline.parquet", "rank", TIMELINE_COLUMNS,
-                            csv_twin="timeline.csv", text_columns=("word", "slice")),
+                            csv_twin="timeline.csv"),
     "terms": TableSchema("terms.parquet", "rank", TERM_COLUMNS, csv_twin="terms.csv",
-                         text_columns=("word", "kind"), open_after="measured"),
-    "neighbours": TableSchema("neighbours.parquet", "rank", NEIGHBOUR_COLUMNS,
-                              text_columns=("word", "slice", "neighbour")),
+                         open_after="measured"),
+    "neighbours": TableSchema("neighbours.parquet", "rank", NEIGHBOUR_COLUMNS),
 }
 #: Columns the document index always has after the ``--meta`` columns.
 DOCUMENT_TAIL = ("slice", "source_row", "source_file", "line", "lines", "tokens")
@@ -829,22 +827,27 @@ def write_table(root: Path | str, name: str, frame: Any) -> Path:
     schema.check(frame, where=f"the {name} table")
     path = schema.path(root)
     path.parent.mkdir(parents=True, exist_ok=True)
-    if hasattr(frame, "column_names"):  # a pyarrow Table
-        frame = frame.to_pandas() if path.suffix == ".csv" or schema.csv_twin else frame
+    if hasattr(frame, "column_names") and (path.suffix == ".csv" or schema.csv_twin):
+        frame = frame.to_pandas()  # a pyarrow Table is written as it is only to Parquet alone
     if path.suffix == ".csv":
         write_text_atomic(path, frame.to_csv(index=False))
-    elif hasattr(frame, "column_names"):
-        import pyarrow.parquet as pq
-
-        with atomic_path(path) as tmp:
-            pq.write_table(frame, tmp)
     else:
         with atomic_path(path) as tmp:
-            frame.to_parquet(tmp, index=False)
+            _write_parquet(frame, tmp)
     if schema.csv_twin:
         with atomic_path(Path(root) / schema.csv_twin) as tmp:
             frame.to_csv(tmp, index=False)
     return path
+
+
+def _write_parquet(frame: Any, target: Path) -> None:
+    """A pandas DataFrame or a pyarrow Table (counts, written without a pandas copy) as Parquet."""
+    if hasattr(frame, "column_names"):
+        import pyarrow.parquet as pq
+
+        pq.write_table(frame, target)
+    else:
+        frame.to_parquet(target, index=False)
 
 
 def read_table(root: Path | str, name: str, columns: list[str] | None = None) -> Any:

@@ -137,10 +137,14 @@ def _significance(noise_null: Any, drift_null: Any, reasons: list[str]) -> tuple
         status = "unavailable"
     else:
         status = "weak" if reasons else "full"
-    note = "" if status == "full" else f"significance {status}: " + "; ".join(
+    return status, _significance_note(status, reasons)
+
+
+def _significance_note(status: str, reasons: list[str]) -> str:
+    """The sentence the table shows for a significance that is not full ('' when it is)."""
+    return "" if status == "full" else f"significance {status}: " + "; ".join(
         reason.rstrip(".") for reason in reasons
     )
-    return status, note
 
 
 def calibrate_pair(
@@ -170,7 +174,7 @@ def _evidence_calibration(
 ) -> tuple[pd.DataFrame, Any, dict[str, Any]]:
     """The ``evidence`` measure: each of :data:`EVIDENCE_MEASURES` calibrated on its own, their
     z combined per null (:func:`drift.compare.calibration.combine_evidence`)."""
-    from drift.compare.calibration import bh_qvalues, combine_evidence
+    from drift.compare.calibration import combine_evidence
     from drift.options import EVIDENCE_MEASURES
 
     tables, records, control_p = {}, {}, []
@@ -187,17 +191,14 @@ def _evidence_calibration(
     ))
     statuses = [record["significance"]["status"] for record in records.values()]
     status = next(s for s in ("unavailable", "weak", "full") if s in statuses)
-    note = "" if status == "full" else f"significance {status}: " + "; ".join(
-        reason.rstrip(".") for reason in reasons
-    )
-    combined["significance_note"] = note
+    combined["significance_note"] = _significance_note(status, reasons)
     record: dict[str, Any] = {"control_flagged": None}
     if len(control_p) == len(EVIDENCE_MEASURES):
-        control_z, _ = combine_evidence(
+        control, _ = combine_evidence(
             {name: pd.DataFrame({"noise_p": p, "drift_p": p})
              for name, p in zip(EVIDENCE_MEASURES, control_p, strict=True)}, alpha
         )
-        record["control_flagged"] = int((bh_qvalues(control_z["noise_p"]) <= ALPHA_RECORD).sum())
+        record["control_flagged"] = int((control["noise_q"] <= ALPHA_RECORD).sum())
     first = records[EVIDENCE_MEASURES[0]]
     for key in ("noise_null", "drift_null"):
         if key in first:

@@ -423,8 +423,8 @@ def _merge(
     merged = work_dir / "merged"  # the merged tables, written by the run folder's writers
     runfolder.write_table(merged, "counts", counts)
     runfolder.write_table(merged, "summary", summary)
-    ready += [(runfolder.TABLES[name].path(merged), runfolder.TABLES[name].path(paths.root))
-              for name in ("counts", "summary")]
+    staged = runfolder.RunPaths(merged)
+    ready += [(staged.counts, paths.counts), (staged.slice_summary, paths.slice_summary)]
     docs_parquet, docs_csv = work_dir / "documents.parquet.new", work_dir / "documents.csv.new"
     renamed = _merge_documents(
         paths, work, line_offset, None if params.get("id_col") else source.name,
@@ -436,7 +436,6 @@ def _merge(
         runfolder.read_table(work.root, "composition"), labels,
     )
     runfolder.write_table(merged, "composition", composition)
-    staged = runfolder.RunPaths(merged)
     ready += [(staged.composition_parquet, paths.composition_parquet),
               (staged.composition_csv, paths.composition_csv)]
     for prepared, target in ready:
