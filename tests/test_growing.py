@@ -122,6 +122,40 @@ def test_append_writes_what_slicing_everything_at_once_writes(archive, tmp_path,
     assert drift.slice_labels(grown) == ["2001", "2002", "2003"]
 
 
+def test_append_of_several_files_at_once_equals_slicing_everything(archive, tmp_path, capsys):
+    """Two files appended together (a glob) write what slicing all three at once writes; their
+    ids carry each file's name, run.json lists both, and the same batch again adds nothing."""
+    batch = tmp_path / "batch"
+    batch.mkdir()
+    for name in ("later", "late2002"):
+        (batch / f"{name}.csv").write_bytes(archive[name].read_bytes())
+    grown, at_once = tmp_path / "grown", tmp_path / "at_once"
+    assert cli(["slice", archive["first"], "--out", grown, "-q"], capsys)[0] == 0
+    code, out, err = cli(["slice", str(batch / "*.csv"), "--out", grown, "--append"], capsys)
+    assert code == 0, err
+    title = " ".join(out.split())
+    assert "(appended 2 files; new: 2003; redone: 2002)" in title
+    assert "documents of the 2 files in" in err
+    # slicing at once: the first part, then the batch's files in the glob's (sorted) order
+    parts = [archive["first"], batch / "late2002.csv", batch / "later.csv"]
+    assert cli(["slice", *parts, "--out", at_once, "-q"], capsys)[0] == 0
+    labels = drift.slice_labels(at_once)
+    assert drift.slice_labels(grown) == labels == ["2001", "2002", "2003"]
+    for label in labels:
+        assert RunPaths(grown).slice_file(label).read_bytes() == \
+            RunPaths(at_once).slice_file(label).read_bytes(), label
+    pd.testing.assert_frame_equal(drift.read_counts(grown), drift.read_counts(at_once))
+    pd.testing.assert_frame_equal(drift.read_summary(grown), drift.read_summary(at_once))
+    ids = drift.read_documents(grown)["document"]
+    assert ids.is_unique
+    assert ids.str.startswith("late2002.csv:").sum() == 20
+    assert ids.str.startswith("later.csv:").sum() == 100
+    entry = json.loads((grown / "run.json").read_text())["stages"]["slice"]["history"][-1]
+    assert [Path(p).name for p in entry["sources"]] == ["late2002.csv", "later.csv"]
+    code, out, err = cli(["slice", str(batch / "*.csv"), "--out", grown, "--append"], capsys)
+    assert code == 0 and "(reused)" in out and "added to" in err
+
+
 def test_append_before_the_first_slice_names_the_new_reference(archive, tmp_path, capsys):
     run = tmp_path / "run"
     assert cli(["slice", archive["later"], "--out", run, "--by", "year", "-q"], capsys)[0] == 0

@@ -181,7 +181,7 @@ def test_cli_takes_several_sources_and_a_balance_number(corpus, tmp_path, capsys
     assert (summary["tokens"] <= 3000).all() and len(summary) == 2
 
 
-def test_text_folders_and_append_stay_single(corpus, tmp_path):
+def test_text_folders_stay_single(corpus, tmp_path):
     texts = tmp_path / "texts"
     texts.mkdir()
     (texts / "letter_1990.txt").write_text("a few words", encoding="utf-8")
@@ -189,9 +189,6 @@ def test_text_folders_and_append_stay_single(corpus, tmp_path):
         open_sources([texts, corpus["whole"]])
     reader, paths = open_sources([corpus["whole"]])
     assert not isinstance(reader, MultiReader) and paths == [corpus["whole"]]
-    with pytest.raises(DriftError, match="one source at a time"):
-        slice_archive([corpus["whole"], corpus["whole"]], tmp_path / "run", append=True,
-                      quiet=True)
 
 
 def test_a_pattern_beside_the_run_folder_skips_it(corpus, tmp_path):

@@ -66,5 +66,5 @@ def slice_command(
     if added and (added["new"] or added["redone"]):
         parts = [f"new: {', '.join(added['new'])}"] if added["new"] else []
         parts += [f"redone: {', '.join(added['redone'])}"] if added["redone"] else []
-        title += f" (appended {Path(sources[0]).name}; {'; '.join(parts)})"
+        title += f" (appended {summary.attrs['appended']}; {'; '.join(parts)})"
     print_table(lambda width: summary_view(summary, title, width))

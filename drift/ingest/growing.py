@@ -41,7 +41,7 @@ import pyarrow.parquet as pq
 from drift import runfolder
 from drift.errors import DriftError
 from drift.ingest import documents, slicing
-from drift.ingest.readers import open_source
+from drift.ingest.sources import common_folder, expand_sources, fingerprint_sources, open_sources
 from drift.options import SliceOptions
 from drift.progress import note, warn
 
@@ -221,7 +221,7 @@ def _merge_documents(
 
 
 def append_archive(
-    source: Path | str,
+    source: Path | str | Sequence[Path | str],
     run: Path | str,
     *,
     fmt: str | None = None,
@@ -243,8 +243,10 @@ def append_archive(
 
     Parameters
     ----------
-    source : str or Path
-        The new documents (any format ``drift slice`` reads).
+    source : str, Path, or a sequence of them
+        The new documents (any format ``drift slice`` reads); several paths, glob patterns and
+        folders of table parts are added together as one batch (see
+        :func:`drift.ingest.sources.expand_sources`).
     run : str or Path
         A run folder sliced with :func:`drift.slice_archive`.
 
@@ -273,7 +275,6 @@ def append_archive(
     (['2000s', '2010s'], {'new': ['2010s'], 'redone': []})
     """
     started = time.perf_counter()
-    source = Path(source)
     if not (Path(run) / runfolder.MANIFEST_NAME).is_file():
         raise DriftError(
             f"--append adds to a sliced run, and {run} holds no slices; slice the first part of "
@@ -290,27 +291,33 @@ def append_archive(
         params = dict(record["params"])
         _check_fixed(params, given)
         entries = history(record)
-        fingerprint = runfolder.fingerprint_path(source) if source.exists() else None
+        files = expand_sources(source, fmt, exclude=paths.root)
+        name = _batch_name(files)
+        present = all(f.exists() for f in files)  # a missing one: open_sources says so below
+        fingerprint = fingerprint_sources(files) if present else None
         if fingerprint is not None and fingerprint in [e.get("fingerprint") for e in entries]:
             if not quiet:
                 note(
-                    f"{source} was added to {paths.root} before (same content); nothing to add.",
+                    f"{name} {'was' if len(files) == 1 else 'were'} added to {paths.root} "
+                    "before (same content); nothing to add.",
                     quiet,
                 )
             summary = slicing.read_summary(paths.root)
-            summary.attrs.update(reused=True, added={"new": [], "redone": []}, warnings=[],
+            summary.attrs.update(reused=True, added={"new": [], "redone": []},
+                                 appended=_short_name(files), warnings=[],
                                  totals=record.get("totals", {}))
             return summary
         same_format = fmt is None or fmt == params.get("format")
-        reader = open_source(
-            source,
+        reader, _ = open_sources(
+            files,
             fmt,
             time_col or (params.get("time_col") if same_format else None),
             text_col or (params.get("text_col") if same_format else None),
             encoding=encoding or params.get("encoding"),
             delimiter=delimiter or params.get("delimiter"),
         )
-        fingerprint = runfolder.fingerprint_path(source)
+        # one file's ids are prefixed with its name here; several files' ids carry theirs already
+        id_prefix = None if params.get("id_col") or len(files) > 1 else files[0].name
         spec, _ = slicing._resolve_columns(
             reader, params.get("id_col"), params.get("meta"), params.get("where"), None
         )
@@ -328,7 +335,7 @@ def append_archive(
                 reader, work, rule, None, new_params, int(params.get("seed", 1)), quiet, spec,
                 check_edges=False,
             )
-            summary, notes = _merge(paths, work, work_dir, added, reader, params, source)
+            summary, notes = _merge(paths, work, work_dir, added, name, id_prefix)
         finally:
             shutil.rmtree(work_dir, ignore_errors=True)
         old_totals = record.get("totals") or {}
@@ -340,7 +347,8 @@ def append_archive(
         entry = {
             "added": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
             "action": "append",
-            "source": str(source.resolve()),
+            "source": str((files[0] if len(files) == 1 else common_folder(files)).resolve()),
+            **({"sources": [str(f.resolve()) for f in files]} if len(files) > 1 else {}),
             "fingerprint": fingerprint,
             "documents": int(added["documents"].sum()),
             "tokens": int(added["tokens"].sum()),
@@ -365,18 +373,31 @@ def append_archive(
     messages = notes + slicing.slice_warnings(summary) + reader.notes()
     if totals.get("outside_edges"):
         messages.append(
-            f"{slicing._count(totals['outside_edges'], 'document')} of {source.name} outside the "
+            f"{slicing._count(totals['outside_edges'], 'document')} of {name} outside the "
             "--by edges left out."
         )
     if totals.get("bad_dates_skipped"):
         messages.append(
-            f"{slicing._count(totals['bad_dates_skipped'], 'document')} of {source.name} whose "
+            f"{slicing._count(totals['bad_dates_skipped'], 'document')} of {name} whose "
             "date does not parse left out (--skip-bad-dates)."
         )
     for message in messages:
         warn(message)
-    summary.attrs.update(reused=False, warnings=messages, totals=merged_totals)
+    summary.attrs.update(reused=False, warnings=messages, totals=merged_totals,
+                         appended=_short_name(files))
     return summary
+
+
+def _batch_name(files: Sequence[Path]) -> str:
+    """How notes name an appended batch: its file, or how many files and where."""
+    if len(files) == 1:
+        return files[0].name
+    return f"the {len(files)} files in {common_folder(files)}"
+
+
+def _short_name(files: Sequence[Path]) -> str:
+    """The appended batch in a table title: its file, or how many files."""
+    return files[0].name if len(files) == 1 else f"{len(files)} files"
 
 
 def _merge(
@@ -384,11 +405,13 @@ def _merge(
     work: runfolder.RunPaths,
     work_dir: Path,
     added: pd.DataFrame,
-    reader: Any,
-    params: dict[str, Any],
-    source: Path,
+    name: str,
+    id_prefix: str | None,
 ) -> tuple[pd.DataFrame, list[str]]:
-    """Write the grown run's files (each renamed into place); return the summary and notes."""
+    """Write the grown run's files (each renamed into place); return the summary and notes.
+
+    ``name`` names the appended source in notes; ``id_prefix`` (the file's name, or None)
+    prefixes appended document ids that carry no source name of their own."""
     old = slicing.read_summary(paths.root)
     known = set(old["label"])
     new_labels = [label for label in added["label"] if label not in known]
@@ -427,8 +450,7 @@ def _merge(
     ready += [(staged.counts, paths.counts), (staged.slice_summary, paths.slice_summary)]
     docs_parquet, docs_csv = work_dir / "documents.parquet.new", work_dir / "documents.csv.new"
     renamed = _merge_documents(
-        paths, work, line_offset, None if params.get("id_col") else source.name,
-        docs_parquet, docs_csv,
+        paths, work, line_offset, id_prefix, docs_parquet, docs_csv,
     )
     ready += [(docs_parquet, paths.documents_parquet), (docs_csv, paths.documents_csv)]
     composition = _merge_composition(
@@ -447,7 +469,7 @@ def _merge(
         listed = ", ".join(f"{label}: {int(n):,}" for label, n in moved.items())
         several = len(redone) > 1
         notes.append(
-            f"documents of {source.name} are dated inside {'slices' if several else 'a slice'} "
+            f"documents of {name} are dated inside {'slices' if several else 'a slice'} "
             f"the run already had ({listed} documents); "
             f"{'those slices were' if several else 'it was'} redone, so "
             f"'drift train {paths.root}' trains {'their' if several else 'its'} models again."
@@ -455,7 +477,7 @@ def _merge(
     first_old, first_now = old["label"].iloc[0], summary["label"].iloc[0]
     if first_now != first_old:
         notes.append(
-            f"{source.name} adds slice {first_now} before the first slice {first_old}; the "
+            f"{name} adds slice {first_now} before the first slice {first_old}; the "
             f"reference slice (by default the first) is now {first_now}, so every slice is "
             f"aligned anew. Rank with --reference {first_old} to keep the old reference."
         )

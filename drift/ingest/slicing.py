@@ -1241,13 +1241,6 @@ def slice_archive(
     if append:
         from drift.ingest.growing import append_archive
 
-        if not isinstance(source, str | Path):
-            if len(source) != 1:
-                raise DriftError(
-                    "--append adds one source at a time; append the files one by one."
-                )
-            source = source[0]
-
         return append_archive(
             source, out, fmt=fmt, time_col=time_col, text_col=text_col, date_format=date_format,
             skip_bad_dates=skip_bad_dates, encoding=encoding, delimiter=delimiter, quiet=quiet,
