@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import filecmp
 import json
+import re
 from pathlib import Path
 
 import pytest
@@ -192,3 +193,94 @@ def test_a_folder_of_text_files_on_dask_equals_local(tmp_path, cluster):
     slice_archive(tmp_path / "letters", tmp_path / "dask", by="5y", quiet=True, engine="dask",
                   scheduler=cluster.scheduler_address)
     assert_same_run(tmp_path / "local", tmp_path / "dask")
+
+
+def kept_tasks(run: Path) -> list[Path]:
+    """Task folders a failed Dask pass kept, with a finished result."""
+    from drift.ingest import partstore
+
+    root = run / "slices" / ".dask-parts"
+    return [p for p in root.rglob("*") if p.is_dir() and partstore.is_finished(p)]
+
+
+def test_a_failed_pass_keeps_finished_files_and_a_rerun_resumes(parts, cluster, tmp_path, caplog):
+    """A bad file stops the pass (exit 2); the files sliced by then are kept, and the same
+    command after the file is mended slices only what was not finished, with the same run
+    folder as the local engine's."""
+    folder = tmp_path / "mended"
+    write_parts(lee_frame(), folder)
+    good = (folder / "p1.jsonl").read_bytes()
+    (folder / "p1.jsonl").write_text('{"date": "1990", "text": "fine"}\nnot json\n')
+    run = tmp_path / "dask"
+    with pytest.raises(DriftError, match=r"p1\.jsonl is not valid JSON"):
+        slice_archive(folder, run, by="5y", quiet=False, engine="dask",
+                      scheduler=cluster.scheduler_address)
+    kept = kept_tasks(run)
+    assert len(kept) >= 1, "p0 was finished before p1 failed"
+    (folder / "p1.jsonl").write_bytes(good)
+    caplog.clear()
+    with caplog.at_level("INFO", logger="drift"):
+        slice_archive(folder, run, by="5y", quiet=False, engine="dask",
+                      scheduler=cluster.scheduler_address)
+    resumed = [r.getMessage() for r in caplog.records if r.getMessage().startswith("resuming")]
+    assert len(resumed) == 1, resumed
+    found = re.fullmatch(r"resuming: (\d) of 4 slicing tasks were finished by an earlier run "
+                         r"and are not run again\.", resumed[0])
+    # a task cancelled while it ran may still have finished after the failure was seen
+    assert found and len(kept) <= int(found.group(1)) <= 3
+    slice_archive(folder, tmp_path / "local", by="5y", quiet=True)
+    assert_same_run(tmp_path / "local", run)  # .dask-parts is gone too
+
+
+def test_a_damaged_kept_result_is_sliced_again(parts, cluster, tmp_path):
+    """A kept result is data, read without pickle: one that was tampered with is not used."""
+    folder = tmp_path / "src"
+    write_parts(lee_frame(), folder)
+    good = (folder / "p1.jsonl").read_bytes()
+    (folder / "p1.jsonl").write_text('{"date": "1990", "text": "fine"}\nnot json\n')
+    run = tmp_path / "dask"
+    with pytest.raises(DriftError):
+        slice_archive(folder, run, by="5y", quiet=True, engine="dask",
+                      scheduler=cluster.scheduler_address)
+    kept = kept_tasks(run)
+    assert kept
+    for task in kept:
+        (task / "result.json").write_text('{"object": "os.system", "fields": {"command": "x"}}')
+    (folder / "p1.jsonl").write_bytes(good)
+    from drift.ingest import partstore
+
+    assert all(partstore.load_result(task, "any") is None for task in kept)
+    slice_archive(folder, run, by="5y", quiet=True, engine="dask",
+                  scheduler=cluster.scheduler_address)
+    slice_archive(folder, tmp_path / "local", by="5y", quiet=True)
+    assert_same_run(tmp_path / "local", run)
+
+
+def test_a_lost_cluster_is_one_sentence_and_the_rerun_resumes(parts, tmp_path, monkeypatch):
+    """The scheduler goes away after the first file's result came back: exit 2 with one
+    sentence, finished files kept; the same command on a new cluster resumes."""
+    local = distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False,
+                                     dashboard_address=None)
+    real_result = dask_slicing._result
+    calls = []
+
+    def result_then_lose_the_cluster(future, task):
+        out = real_result(future, task)
+        calls.append(task["path"])
+        if len(calls) == 1:
+            local.close()
+        return out
+
+    monkeypatch.setattr(dask_slicing, "_result", result_then_lose_the_cluster)
+    run = tmp_path / "dask"
+    with pytest.raises(DriftError, match="lost the task slicing .*rerun the same command"):
+        slice_archive(parts, run, by="5y", quiet=True, engine="dask",
+                      scheduler=local.scheduler_address)
+    assert len(kept_tasks(run)) >= 1
+    monkeypatch.setattr(dask_slicing, "_result", real_result)
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False,
+                                  dashboard_address=None) as again:
+        slice_archive(parts, run, by="5y", quiet=True, engine="dask",
+                      scheduler=again.scheduler_address)
+    slice_archive(parts, tmp_path / "local", by="5y", quiet=True)
+    assert_same_run(tmp_path / "local", run)

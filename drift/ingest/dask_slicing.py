@@ -4,7 +4,8 @@ The archive is split by file: one task per file (a folder of .txt documents is o
 worker opens its file with the options the client resolved (format, columns, encoding), dates
 and tokenizes every batch exactly as the local engine does
 (:func:`drift.ingest.slicing._process_batch`), appends each slice's lines to its own part file
-in the run's work folder (``slices/.work-*/parts-slices/<n>/<key>.txt``), and returns the rest,
+in the run's folder of kept parts (``slices/.dask-parts/<pass>/<task>/<key>.txt``, the task named
+by its fingerprint), and returns the rest,
 which is small: per batch the row, date and document tallies and the document index entries,
 and the word counts of the whole file. The client consumes the results in file order and
 replays them through the same first pass as the local engine, appending each part file to its
@@ -16,6 +17,12 @@ Every worker must see the run folder at the same path (a shared file system, as 
 A task whose worker dies is run again by Dask (its ``distributed.scheduler.allowed-failures``
 setting): a task writes only into its own part folder, which it empties first, so running it
 again duplicates nothing.
+
+A finished task also keeps its result beside its part files (:mod:`drift.ingest.partstore`, no
+pickles). When the pass fails (the scheduler went away, a file was bad, the command was
+stopped), the finished tasks stay; the same command run again takes their results instead of
+running them, and runs only the others. The kept parts are removed once a pass succeeds, so
+until then the archive's text lies on disk twice (parts and slices).
 
 An uncompressed JSON Lines or Parquet file larger than :data:`PIECE_BYTES` is split into pieces
 (line-aligned byte ranges, runs of row groups; :meth:`drift.ingest.readers.Reader.pieces`), one
@@ -36,11 +43,11 @@ from typing import Any
 
 from drift.cluster import connect_dask, import_distributed, main_module_kept_from_workers
 from drift.errors import DriftError
-from drift.ingest import slicing
+from drift.ingest import partstore, slicing
 from drift.ingest.readers import Reader, open_source
 from drift.ingest.sources import MultiReader
+from drift.progress import note
 
-#: Seconds to wait for a Dask scheduler before giving up (a typo should fail fast).
 #: Uncompressed JSON Lines and Parquet files larger than this are read in pieces of about this
 #: size, each a task of its own (other files are one task each).
 PIECE_BYTES = 64 << 20
@@ -55,7 +62,7 @@ def slice_part(task: dict[str, Any]) -> dict[str, Any]:
     except DriftError as exc:
         return {"error": str(exc)}
     except (_Stopped, FileNotFoundError):
-        if Path(task["folder"]).parent.is_dir():
+        if Path(task["folder"]).is_dir():  # not stopped by the client: a real error
             raise
         return {"error": "stopped"}
 
@@ -99,7 +106,7 @@ def _slice_part(task: dict[str, Any]) -> dict[str, Any]:
         outcomes.append((outcome, continues))
     files.close()
     keys = sorted(files.tallies)
-    return {
+    result = {
         "outcomes": outcomes,
         "counts": counts.as_batch(),
         "keys": keys,
@@ -107,6 +114,24 @@ def _slice_part(task: dict[str, Any]) -> dict[str, Any]:
         "legacy": reader.legacy,
         "notes": reader.notes(),
     }
+    partstore.save_result(folder, task["fingerprint"], result)  # a rerun need not redo it
+    return result
+
+
+class _Kept:
+    """A task's result kept by an earlier run, standing in for its future."""
+
+    def __init__(self, result: dict[str, Any]):
+        self._result = result
+
+    def result(self) -> dict[str, Any]:
+        return self._result
+
+    def done(self) -> bool:
+        return True
+
+    def release(self) -> None:
+        pass
 
 
 class DaskFeed:
@@ -120,9 +145,12 @@ class DaskFeed:
         tasks: list[dict[str, Any]],
         files: slicing._SliceFiles,
         counts: slicing.WordCounts,
+        quiet: bool = True,
     ):
         self.client, self.tasks, self.files, self.counts = client, tasks, files, counts
         self.work = Path(tasks[0]["folder"]).parent if tasks else None
+        self.quiet = quiet
+        self.resumed = 0  # tasks whose result an earlier run kept
         self.done_bytes = 0
         self.replaced = 0
         self.legacy = 0
@@ -134,12 +162,14 @@ class DaskFeed:
             pure=False,
         )
 
-    def _file_results(self, tasks: list[dict[str, Any]], futures: list[Any]) -> list[dict]:
+    def _file_results(
+        self, tasks: list[dict[str, Any]], futures: list[Any]
+    ) -> list[tuple[dict[str, Any], dict[str, Any]]]:
         """The results of one file's tasks, in order. A file read in pieces is read again as
         one task when a piece failed (so that the error names the right line) or met bytes
         that are not UTF-8 (whose reading depends on what came before)."""
         if len(tasks) == 1:
-            return [_result(futures[0], tasks[0])]
+            return [(tasks[0], _result(futures[0], tasks[0]))]
         results = []
         for task, future in zip(tasks, futures, strict=True):
             try:
@@ -147,24 +177,38 @@ class DaskFeed:
             except DriftError:
                 results.append({"error": True})
         if all("error" not in r and not r["replaced"] and not r["legacy"] for r in results):
-            return results
+            return list(zip(tasks, results, strict=True))
         for task in tasks:
             shutil.rmtree(task["folder"], ignore_errors=True)
-        whole = {**tasks[0], "piece": None, "bytes": sum(t["bytes"] for t in tasks)}
-        return [_result(self._submit(whole), whole)]
+        whole = _with_folder({**tasks[0], "piece": None, "bytes": sum(t["bytes"] for t in tasks)},
+                             Path(tasks[0]["folder"]).parent)
+        return [(whole, _result(self._start(whole), whole))]
+
+    def _start(self, task: dict[str, Any]) -> Any:
+        """The task's result kept by an earlier run (see :mod:`drift.ingest.partstore`), or
+        a future of it running now."""
+        kept = partstore.load_result(Path(task["folder"]), task["fingerprint"])
+        if kept is not None:
+            self.resumed += 1
+            return _Kept(kept)
+        return self._submit(task)
 
     def outcomes(self) -> Iterator[tuple[Any, bool]]:
-        futures = [self._submit(task) for task in self.tasks]
+        futures = [self._start(task) for task in self.tasks]
+        if self.resumed:
+            note(f"resuming: {self.resumed} of {len(self.tasks)} slicing tasks were finished by "
+                 "an earlier run and are not run again.", self.quiet)
         files: dict[int, list[int]] = {}  # file -> its tasks, in order
         for position, task in enumerate(self.tasks):
             files.setdefault(task["file"], []).append(position)
+        finished = False
         try:
             for positions in files.values():
                 tasks = [self.tasks[i] for i in positions]
                 results = self._file_results(tasks, [futures[i] for i in positions])
                 for i in positions:
                     futures[i].release()  # the worker may drop the result now
-                for task, result in zip(tasks, results, strict=False):
+                for task, result in results:
                     yield from result["outcomes"]
                     for key in result["keys"]:
                         self.files.append_file(key, Path(task["folder"]) / f"{key}.txt")
@@ -176,11 +220,13 @@ class DaskFeed:
                     self.done_bytes += task["bytes"] if len(results) > 1 else sum(
                         t["bytes"] for t in tasks
                     )
-                    shutil.rmtree(task["folder"], ignore_errors=True)
+            finished = True
         finally:
             self.client.cancel([f for f in futures if not f.done()])
-            if self.work is not None:  # tasks still running stop when they see it gone
+            if self.work is not None and finished:
                 shutil.rmtree(self.work, ignore_errors=True)
+            elif self.work is not None:  # finished tasks are kept for a rerun; tasks still
+                partstore.remove_unfinished(self.work)  # running stop when their folder goes
 
     def position(self) -> int:
         return self.done_bytes
@@ -205,7 +251,7 @@ def _result(future: Any, task: dict[str, Any]) -> dict[str, Any]:
             raise DriftError(
                 f"The Dask cluster lost the task slicing {task['path']} "
                 f"({exc.__class__.__name__}); check the workers (memory, shared file system) "
-                "and rerun the same command."
+                "and rerun the same command, which keeps the files sliced so far."
             ) from None
         raise
 
@@ -263,11 +309,18 @@ def plan_tasks(
                 "delimiter": delimiter,
                 "extra_cols": list(one.extra_cols),
                 "settings": settings,
-                "folder": str(work / f"{len(tasks):06d}"),
                 "source": name,
                 "threads": threads,
             })
+            _with_folder(tasks[-1], work)
     return tasks
+
+
+def _with_folder(task: dict[str, Any], work: Path) -> dict[str, Any]:
+    """``task`` with its fingerprint and its part folder under ``work`` named by it."""
+    task["fingerprint"] = partstore.task_fingerprint(task)
+    task["folder"] = str(work / task["fingerprint"])
+    return task
 
 
 @contextlib.contextmanager
@@ -279,6 +332,7 @@ def feeds(
     delimiter: str | None,
     scheduler: str | None = None,
     workers: int | None = None,
+    quiet: bool = True,
 ) -> Iterator[Any]:
     """A feed maker for :func:`drift.ingest.slicing._run` that slices on a Dask cluster: the
     scheduler at ``scheduler``, or a LocalCluster of ``workers`` processes (default: the cores,
@@ -289,11 +343,12 @@ def feeds(
     with dask_client(scheduler, size) as client:
 
         def make_feed(reader_, settings, slice_files, counts):
-            work = slice_files.folder.parent / f"parts-{slice_files.folder.name}"
+            # beside the run's temporary work folder, kept when the pass fails (a rerun resumes)
+            work = slice_files.folder.parent.parent / slicing.KEPT_PARTS / slice_files.folder.name
             work.mkdir(parents=True, exist_ok=True)
             tasks = plan_tasks(
                 reader_, work, settings, fmt=fmt, encoding=encoding, delimiter=delimiter
             )
-            return DaskFeed(client, tasks, slice_files, counts)
+            return DaskFeed(client, tasks, slice_files, counts, quiet)
 
         yield make_feed

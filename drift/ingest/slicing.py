@@ -58,6 +58,9 @@ SIZE_RATIO_WARNING = 10
 SUMMARY_COLUMNS = list(runfolder.SUMMARY_COLUMNS)
 #: Sources smaller than this are read without a progress bar.
 PROGRESS_MIN_BYTES = 32 << 20
+#: The folder of ``slices/`` where a Dask pass keeps its finished tasks' parts until it
+#: succeeds, so that a rerun after a lost cluster resumes (:mod:`drift.ingest.dask_slicing`).
+KEPT_PARTS = ".dask-parts"
 #: Threads that tokenize batches (this project targets 2-core machines).
 WORKERS = max(1, min(2, os.cpu_count() or 1))
 _MAX_OPEN_FILES = 64
@@ -1308,13 +1311,15 @@ def slice_archive(
 
             with dask_slicing.feeds(
                 reader, fmt=fmt, encoding=encoding, delimiter=delimiter,
-                scheduler=scheduler, workers=dask_workers,
+                scheduler=scheduler, workers=dask_workers, quiet=quiet,
             ) as make_feed:
                 summary, totals, timings = _run(
                     reader, paths, rule, budget, params, seed, quiet, spec, make_feed=make_feed
                 )
         else:
             summary, totals, timings = _run(reader, paths, rule, budget, params, seed, quiet, spec)
+        # parts a failed Dask pass kept for its rerun are not needed once a pass succeeded
+        shutil.rmtree(paths.slices_dir / KEPT_PARTS, ignore_errors=True)
         labels = summary["label"].tolist()
         timings["total"] = round(time.perf_counter() - started, 3)
         runfolder.record_stage(
