@@ -326,6 +326,40 @@ def test_the_slice_files_feed_gensim_unchanged(trained):
     assert sidecar["words"] == tokens
 
 
+def test_models_see_the_slice_lines_in_a_seeded_random_order(trained, tmp_path):
+    """Every model trains on its slice's lines shuffled by the run's base seed: the same lines,
+    another order, the same order for every seed of the slice; the model equals gensim's own
+    Word2Vec trained on that shuffled file (gensim is the reference), and no copy is left."""
+    from gensim.models import Word2Vec
+
+    root, _ = trained
+    paths = RunPaths(root)
+    corpus = paths.slice_file("2001")
+    first, again = tmp_path / "a.txt", tmp_path / "b.txt"
+    assert training.write_shuffled_lines(corpus, first, 1) == len(corpus.read_text().splitlines())
+    training.write_shuffled_lines(corpus, again, 1)
+    lines = corpus.read_text(encoding="utf-8").splitlines()
+    shuffled = first.read_text(encoding="utf-8").splitlines()
+    assert sorted(shuffled) == sorted(lines) and shuffled != lines
+    assert first.read_bytes() == again.read_bytes()
+    sidecars = [json.loads(training.sidecar_file(paths.model_file("2001", s)).read_text())
+                for s in (0, 1)]
+    assert {s["model"]["line_order"] for s in sidecars} == {"shuffled"}
+    assert len({s["model"]["line_order_seed"] for s in sidecars}) == 1
+    params = sidecars[0]["model"]
+    order = tmp_path / "order.txt"
+    training.write_shuffled_lines(corpus, order, params["line_order_seed"])
+    model = Word2Vec(corpus_file=str(order), sg=1, hs=0, vector_size=params["dim"],
+                     window=params["window"], negative=params["negative"],
+                     sample=params["sample"], min_count=params["min_count"],
+                     epochs=params["epochs"], seed=params["seed"], workers=1,
+                     hashfxn=training.stable_hash)
+    ours = training.load_vectors(root, "2001", 0)
+    assert ours.index_to_key == model.wv.index_to_key
+    assert np.allclose(ours.vectors, model.wv.vectors)
+    assert not list(paths.models_dir.rglob("*.lines-shuffled.txt"))
+
+
 # ---------------------------------------------------------------------------- storage, no pickles
 
 

@@ -42,6 +42,9 @@ ARCHITECTURES = options.ARCHITECTURES
 CONTROL_LABELS = ("control-a", "control-b")
 #: Bumped when the way a model is trained or saved changes, so older models are retrained.
 MODEL_FORMAT = 2  # 2: vectors in .npy and vocabulary in .vocab.parquet (1: gensim pickles)
+#: Every model is trained on its slice's lines in a random order drawn from the run's base seed
+#: (:func:`write_shuffled_lines`); part of each model's parameters, so older models retrain.
+LINE_ORDER = "shuffled"
 CONTROL_FORMAT = 1
 RESULT_COLUMNS = ["group", "label", "seed", "path", "vocabulary", "seconds", "reused", "threads"]
 _LABEL_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
@@ -73,6 +76,10 @@ class TrainParams:
         record.pop("seeds")
         record.pop("base_seed")
         record["seed"] = self.base_seed + seed_index
+        record["line_order"] = LINE_ORDER
+        # every seed of a slice sees the same order (gensim breaks ties in word counts by first
+        # occurrence, and the seeds of a slice must share one vocabulary in one order)
+        record["line_order_seed"] = self.base_seed
         return record
 
 
@@ -460,16 +467,54 @@ def train_one_model(
     ``task`` holds plain values only: ``key, group, label, seed, corpus, output, model`` (the
     parameters from :meth:`TrainParams.model`), ``threads`` and ``fingerprint``. Writes the
     ``.vocab.parquet`` and ``.npy`` files, then the sidecar; returns a small dict describing it.
+    The model sees the slice's lines in a random order (:func:`write_shuffled_lines`, a
+    temporary file beside the model).
     """
-    from gensim import __version__ as gensim_version
-    from gensim.models import Word2Vec
-
     corpus, output, params = Path(task["corpus"]), Path(task["output"]), task["model"]
     if not corpus.is_file():
         raise DriftError(
             f"Slice file {corpus} cannot be read here; with --engine dask the run folder must be "
             "on a file system that every worker sees at the same path."
         )
+    output.parent.mkdir(parents=True, exist_ok=True)
+    shuffled = output.with_suffix(".lines-shuffled.txt")
+    try:
+        write_shuffled_lines(corpus, shuffled, params["line_order_seed"])
+        return _train_on(task, shuffled, output, params, report)
+    finally:
+        shuffled.unlink(missing_ok=True)
+
+
+def write_shuffled_lines(corpus: Path, target: Path, seed: int) -> int:
+    """Write the lines of ``corpus`` to ``target`` in a random order drawn from ``seed``;
+    returns how many lines.
+
+    Word2vec's learning rate falls as training goes through the file, so text that comes in
+    clusters (one source's documents one after another, as a slice file keeps them in the
+    archive's order) weighs by its place in the file. The control slices are drawn in random
+    order; training every model on its lines in random order makes a slice and a control slice
+    differ only by their text (see README: the calibration benchmark).
+    """
+    if corpus.stat().st_size == 0:
+        target.write_bytes(b"")
+        return 0
+    starts, ends, _ = line_index(corpus)
+    order = np.random.default_rng([int(seed), 0x5EED]).permutation(len(starts))
+    sources = np.zeros(len(starts), np.int8)
+    with corpus.open("rb") as handle:
+        with mmap.mmap(handle.fileno(), 0, access=mmap.ACCESS_READ) as text:
+            _write_lines(target, order, sources, starts, ends, [text])
+    return len(order)
+
+
+def _train_on(
+    task: dict[str, Any], corpus: Path, output: Path, params: dict[str, Any],
+    report: Callable[[int, int], None] | None,
+) -> dict[str, Any]:
+    """Train one model on ``corpus`` (the task's lines in training order) and save it."""
+    from gensim import __version__ as gensim_version
+    from gensim.models import Word2Vec
+
     started = time.perf_counter()
     steps = params["epochs"] + 1  # the vocabulary scan, then one step per epoch
     if report is not None:
