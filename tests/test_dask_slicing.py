@@ -226,8 +226,9 @@ def test_a_failed_pass_keeps_finished_files_and_a_rerun_resumes(parts, cluster, 
     assert len(resumed) == 1, resumed
     found = re.fullmatch(r"resuming: (\d) of 4 slicing tasks were finished by an earlier run "
                          r"and are not run again\.", resumed[0])
-    # a task cancelled while it ran may still have finished after the failure was seen
-    assert found and len(kept) <= int(found.group(1)) <= 3
+    # p0 at least (consumed before p1 failed); p1 never. How many of p2 and p3 is timing: a task
+    # cancelled while it ran may finish after the failure, or be run again by the rerun.
+    assert found and 1 <= int(found.group(1)) <= 3
     slice_archive(folder, tmp_path / "local", by="5y", quiet=True)
     assert_same_run(tmp_path / "local", run)  # .dask-parts is gone too
 
