@@ -172,16 +172,17 @@ DOCUMENTED = {
 #: Candidate calibrations: name -> (measure, drift.compare.ranking.CalibrationOptions fields).
 CANDIDATES = {
     "count only, pareto tail": (
-        "displacement", dict(use_seed_noise=False, log_scale=False, tail="pareto")),
-    "count+noise, pareto tail": ("displacement", dict(log_scale=False, tail="pareto")),
-    "count+noise, log scale, pareto tail": ("displacement", dict(tail="pareto")),
-    "count+noise, log scale, normal tail": ("displacement", dict()),
-    "evidence (displacement + local, Stouffer)": ("evidence", dict()),
-    "count only, log scale, normal tail": ("displacement", dict(use_seed_noise=False)),
-    "count+noise, log, normal, combined": ("combined", dict()),
-    "count+noise, log, normal, local": ("local", dict()),
+        "displacement", dict(use_seed_noise=False, log_scale=False, tail="pareto", paired=False)),
+    "count+noise, log scale, normal tail": ("displacement", dict(paired=False)),
+    "local, unpaired": ("local", dict(paired=False)),
+    "evidence, unpaired": ("evidence", dict(paired=False)),
+    "evidence, unpaired, drift null with own control": (
+        "evidence", dict(paired=False, own_control=True)),
+    "displacement, paired": ("displacement", dict()),
+    "local, paired": ("local", dict()),
+    "evidence, paired (default)": ("evidence", dict()),
 }
-DEFAULT_CANDIDATE = "evidence (displacement + local, Stouffer)"
+DEFAULT_CANDIDATE = "evidence, paired (default)"
 
 BASELINE_CODE = """
 import sys

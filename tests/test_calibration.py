@@ -359,3 +359,107 @@ def test_combined_evidence_finds_a_word_that_moves_in_both_measures():
     expected = 6.0 / np.sqrt(2 + 2 * correlation["noise"])
     assert table["noise_z"].iloc[0] == pytest.approx(expected)
     assert 3.0 < table["z"].iloc[0] < 6.0 / np.sqrt(2)
+
+
+def test_own_control_covariate_separates_movers_from_words_noisy_in_their_own_way():
+    """Each word has a noise level of its own that the covariates do not see (a bursty word),
+    shown both in its control measure and between the slices, as in the calibration benchmark
+    (README: the residuals of log displacement in the pair and in the control correlate, 0.8 on
+    shuffled text). With the control measure as a covariate the drift null ranks the movers
+    higher, across seeds (binomial bound, scipy.stats.binomtest), and keeps its level."""
+    better, flagged_unmoved = 0, []
+    for seed in SEEDS:
+        rng = np.random.default_rng(100 + seed)
+        n = 2000
+        values, cf, ct, noise = draw_words(rng, n)
+        xc, xn = frequency_covariate(cf, ct), noise_covariate(noise)
+        own_level = 2.0 * rng.standard_normal(n)  # the word's own noise, in null spreads
+        spread = true_spread(xc, xn)
+        own = np.exp(true_centre(xc, xn) + spread * (own_level + 0.5 * rng.standard_normal(n)))
+        values = values * np.exp(spread * own_level)
+        movers = np.arange(n) < 20
+        values[movers] = moved(values[movers], cf[movers], ct[movers], noise[movers], 4)
+        plain = fit_null(values, cf, ct, noise, what="pair")
+        with_own = fit_null(values, cf, ct, noise, what="pair", own=own)
+        z_plain = plain.z(values, np.minimum(cf, ct), noise)
+        z_own = with_own.z(values, np.minimum(cf, ct), noise, own)
+        ranks_plain = stats.rankdata(-z_plain)[movers]
+        ranks_own = stats.rankdata(-z_own)[movers]
+        better += np.median(ranks_own) < np.median(ranks_plain)
+        p_unmoved = with_own.p_of_z(z_own[~movers])
+        flagged_unmoved.append(np.mean(p_unmoved <= 0.01))
+    # The own covariate helps in more seeds than chance would give (sign test).
+    assert stats.binomtest(better, len(SEEDS), 0.5, alternative="greater").pvalue < 0.01
+    # Unmoved words keep the level: about 1% at p <= 0.01.
+    assert np.mean(flagged_unmoved) < 0.02
+    described = with_own.describe()["covariates"]
+    assert "own control measure" in described
+
+
+def test_own_control_values_are_needed_once_fitted():
+    values, cf, ct, noise = draw_words(np.random.default_rng(3), 500)
+    null = fit_null(values, cf, ct, noise, own=values)
+    with pytest.raises(DriftError, match="own control measure"):
+        null.z(values, cf, noise)
+    # a missing own value is held at the middle of its fitted range, not propagated as NaN
+    own = values.copy()
+    own[0] = np.nan
+    assert np.isfinite(null.z(values, cf, noise, own)).all()
+
+
+def paired_words(rng: np.random.Generator, n: int, moved_share: float = 0.0, shift: float = 0.0):
+    """Exchangeable pairs: each word has a noise level of its own (unseen by the covariates),
+    shown alike in its control measure and between the slices; ``moved_share`` of the words
+    then moved up by ``shift`` spreads of the paired ratio."""
+    values, cf, ct, noise = draw_words(rng, n)
+    xc, xn = frequency_covariate(cf, ct), noise_covariate(noise)
+    level = true_centre(xc, xn) + 2.0 * true_spread(xc, xn) * rng.standard_normal(n)
+    own = np.exp(level + true_spread(xc, xn) * rng.standard_normal(n))
+    measure = np.exp(level + true_spread(xc, xn) * rng.standard_normal(n))
+    ratio = np.log(measure) - np.log(own)
+    moved_words = rng.random(n) < moved_share
+    ratio[moved_words] += shift * np.sqrt(2.0) * true_spread(xc, xn)[moved_words]
+    return ratio, cf, ct, noise, moved_words
+
+
+def test_paired_null_keeps_its_level_across_seeds():
+    """Under exchangeability the paired ratio is symmetric about 0: p is uniform (KS test,
+    scipy.stats.kstest) and about 1% of words fall below 0.01, across seeds (binomial bound,
+    scipy.stats.binomtest, over the words of all seeds)."""
+    from drift.compare.calibration import fit_paired_null
+
+    below, total = 0, 0
+    for seed in SEEDS:
+        ratio, cf, ct, noise, _ = paired_words(np.random.default_rng(300 + seed), 2000)
+        null = fit_paired_null(ratio, cf, ct, noise)
+        p = null.p_of_z(null.z(ratio, np.minimum(cf, ct), noise))
+        below += int(np.sum(p <= 0.01))
+        total += len(p)
+        if seed == 0:
+            assert stats.kstest(p, "uniform").pvalue > 0.001
+            assert null.describe()["scale"].startswith("log of the measure over")
+    assert stats.binomtest(below, total, 0.01).pvalue > 0.001, below / total
+
+
+def test_paired_null_is_fitted_on_the_side_movers_never_reach():
+    """When most words moved (a long archive), the words that moved less than in the control
+    still give the right spread: movers found, the unmoved words keep their level."""
+    from drift.compare.calibration import fit_paired_null
+
+    ratio, cf, ct, noise, moved_words = paired_words(np.random.default_rng(9), 4000, 0.6, 5.0)
+    null = fit_paired_null(ratio, cf, ct, noise)
+    xc, xn = frequency_covariate(cf, ct), noise_covariate(noise)
+    fitted_spread = null.model_spread(np.minimum(cf, ct), noise)
+    true = np.sqrt(2.0) * true_spread(xc, xn)
+    assert 0.85 < np.median(fitted_spread / true) < 1.15
+    p = null.p_of_z(null.z(ratio, np.minimum(cf, ct), noise))
+    assert np.mean(p[~moved_words] <= 0.01) < 0.02
+    assert np.mean(p[moved_words] <= 0.01) > 0.6
+
+
+def test_paired_null_needs_words_below_zero():
+    from drift.compare.calibration import fit_paired_null
+
+    ratio = np.abs(np.random.default_rng(1).standard_normal(300)) + 0.1
+    with pytest.raises(DriftError, match="moved less than in the control pair"):
+        fit_paired_null(ratio, np.full(300, 100.0), np.full(300, 100.0))

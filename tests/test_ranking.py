@@ -33,7 +33,7 @@ MOVED = [f"moved{i}" for i in range(8)]
 FREQUENCY_ONLY = [f"rarer{i}" for i in range(8)]
 
 
-def _geometry_run(root, control=True, seeds=2):
+def _geometry_run(root, control=True, seeds=2, control_counts=1):
     """Three slices of one random geometry, each in its own random rotation, with noise that
     shrinks with frequency. Eight words seen about 40 times get new vectors in 2003; eight words
     seen about 120 times only become rare in 2003 (8 times: more noise, same meaning); one word
@@ -70,7 +70,7 @@ def _geometry_run(root, control=True, seeds=2):
     pair = None
     if control:
         pair = {
-            name: (words, [noisy(base, counts) for _ in range(seeds)], counts)
+            name: (words, [noisy(base, counts * control_counts) for _ in range(seeds)], counts)
             for name in ("control-a", "control-b")
         }
     return write_array_run(root, slices, pair)
@@ -247,13 +247,41 @@ def test_evidence_combines_the_single_measure_rankings(own_geometry_run):
     evidence = evidence.set_index("word")
     np.testing.assert_allclose(evidence["score"], evidence["displacement"])
     for null in ("noise", "drift"):
-        words = evidence.index[evidence[f"{null}_p"] > 1e-12]  # away from the float floor
+        # away from the floats' floor and ceiling in both measures
+        inside = [single[m][f"{null}_p"].between(1e-12, 1 - 1e-12) for m in single]
+        words = evidence.index[inside[0].reindex(evidence.index) & inside[1].reindex(
+            evidence.index)]
         z_d = single["displacement"].loc[words, f"{null}_z"]
         z_l = single["local"].loc[words, f"{null}_z"]
         expected = (z_d + z_l) / np.sqrt(2 + 2 * correlation[null])
         np.testing.assert_allclose(evidence.loc[words, f"{null}_z"], expected, rtol=1e-6)
         assert 0.0 < correlation[null] < 1.0
     assert evidence.loc[MOVED, "significant"].all()
+
+
+def test_noise_is_paired_with_each_word_s_own_control_by_default(geometry_run):
+    root, scores = geometry_run
+    nulls = runfolder.read_manifest(root)["stages"]["rank"]["evidence"]["nulls"]
+    for measure in ("displacement", "local"):
+        assert nulls[measure]["noise_null"]["scale"] == (
+            "log of the measure over the word's own control measure")
+        assert "own control measure" in nulls[measure]["drift_null"]["covariates"]
+    assert scores.set_index("word").loc[MOVED, "significant"].all()
+
+
+def test_noise_is_asked_unpaired_when_almost_every_word_moved_more_than_in_the_control(tmp_path):
+    """A control whose words barely move (its vectors as steady as 400 times the text would
+    make them): hardly any word moved less than in the control, so the paired mirror null has
+    no sample; the noise question falls back to the control null, run.json says so, and the
+    planted movers still lead."""
+    root = _geometry_run(tmp_path / "run", control_counts=400)
+    scores = rank_run(root, k=10, measure="displacement", quiet=True)
+    record = runfolder.read_manifest(root)["stages"]["rank"]
+    assert "moved less than in the control pair" in record["noise_null"]["not paired"]
+    assert "log of the measure" == record["noise_null"]["scale"]
+    assert "own control measure" in record["drift_null"]["covariates"]
+    assert scores["noise_z"].notna().all()
+    assert set(scores["word"].head(len(MOVED))) == set(MOVED)
 
 
 def test_rank_without_control_is_descriptive(tmp_path, caplog):

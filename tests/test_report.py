@@ -504,7 +504,7 @@ def test_both_nulls_are_shown_where_the_run_has_them(tmp_path):
     run = edited_run(tmp_path, noise_z=7.5, noise_p=0.0004, noise_q=0.002, drift_z=2.25,
                      drift_p=0.03, drift_q=0.25)
     numbers = report.chart_word(run, WORD).read_text(encoding="utf-8").split('id="numbers"')[1]
-    assert "beyond sampling and optimisation noise? (control pair)" in numbers
+    assert "beyond noise? (more than the word itself moved in the control pair)" in numbers
     assert "z = 7.5, p = 0.0004, q = 0.002" in numbers
     assert "more than typical words of its frequency? (this corpus)" in numbers
     assert "z = 2.25, p = 0.03, q = 0.25" in numbers

@@ -182,8 +182,8 @@ def scores_table(
     shown = {c.key for c in kept}
     notes = [
         f"z, q: the headline of two questions, both needed: did {measure_phrase(measure)} "
-        "move beyond noise "
-        "(control pair: noise_z, noise_q) and more than words of its frequency and noisiness "
+        "move beyond noise, more than it moved between the control pair's random halves "
+        "(noise_z, noise_q), and more than words of its frequency and noisiness "
         "moved here (drift null: drift_z, drift_q)? z is the smaller z, q the "
         f"Benjamini-Hochberg q of the larger p; * significant at alpha "
         f"{params.get('alpha', 0.05)}. scores.csv has both questions' numbers."

@@ -29,12 +29,24 @@ median absolute standardised residual is that of a standard normal (0.6745). The
 The two questions:
 
 1. **noise null** (``noise_z``, ``noise_p``, ``noise_q``): "did the word move beyond sampling and
-   optimisation noise?" Fitted on the *control pair* (the two compared slices pooled and split
-   at random, trained and measured the same way), where nothing changed.
+   optimisation noise?" Judged against the *control pair* (the two compared slices pooled and
+   split at random, trained and measured the same way), where nothing changed. By default the
+   test is *paired* (:func:`fit_paired_null`): each word's measure is compared with its own
+   measure in the control pair, ``log(measure) - log(own control measure)``, corrected for a
+   change in its count between the slices. Words have noise levels of their own that neither
+   covariate sees (bursty words, found in a few documents, move far between any two halves of
+   a text): on the benchmark's shuffled text the residuals of the log displacement in the pair
+   and in the control correlate at about 0.8, so the ratio cancels most of that noise. With
+   every model trained on its lines in random order (:mod:`drift.embed.training`), pair and
+   control are exchangeable when nothing changed, and the ratio is symmetric about 0. The
+   unpaired fit below (``CalibrationOptions(paired=False)``) is the earlier default, and the
+   fallback when too few words moved less than in the control to fit the mirror null.
 2. **drift null** (``drift_z``, ``drift_p``, ``drift_q``): "did it move more than the typical word
    of its frequency and noise moved between these same two slices?" Fitted robustly on the real
-   pair's own words: the empirical-null idea of Efron (2004, JASA; from memory), which takes the
-   centre and spread of the null from the bulk of the test statistics themselves. Between distant
+   pair's own words, by default with the word's own control measure as a third covariate
+   (its weight fitted, not fixed at one as in the ratio): the empirical-null idea of Efron (2004,
+   JASA; from memory), which takes the centre and spread of the null from the bulk of the test
+   statistics themselves. Between distant
    periods almost every word moves beyond noise; this null keeps the shortlist short.
 
 Shape (the tail that turns z into p): by default normal. On the log scale the benchmark's
@@ -131,20 +143,29 @@ def bh_qvalues(p: Any) -> np.ndarray:
     return q
 
 
-def _design(x_count: np.ndarray, x_noise: np.ndarray | None) -> np.ndarray:
-    """A quadratic surface in the covariates: 1, c, n, c^2, n^2, c*n (n only with noise)."""
+def _design(
+    x_count: np.ndarray, x_noise: np.ndarray | None, x_own: np.ndarray | None = None
+) -> np.ndarray:
+    """The centre's surface: quadratic in count and noise (1, c, n, c^2, n^2, c*n; n only with
+    noise), plus a linear term in the word's own control measure o when given."""
     columns = [np.ones_like(x_count), x_count]
     if x_noise is not None:
         columns += [x_noise]
     columns += [x_count**2]
     if x_noise is not None:
         columns += [x_noise**2, x_count * x_noise]
+    if x_own is not None:
+        columns += [x_own]
     return np.column_stack(columns)
 
 
-def _linear(design: np.ndarray) -> np.ndarray:
-    """The constant and linear columns of a :func:`_design` (the spread's plane)."""
-    return design[:, :3] if design.shape[1] == 6 else design[:, :2]
+def _plane(
+    x_count: np.ndarray, x_noise: np.ndarray | None, x_own: np.ndarray | None = None
+) -> np.ndarray:
+    """The spread's plane: 1, c, n, o (n and o where given)."""
+    columns = [np.ones_like(x_count), x_count]
+    columns += [x for x in (x_noise, x_own) if x is not None]
+    return np.column_stack(columns)
 
 
 #: Covariates are winsorised at these quantiles before the surfaces are fitted.
@@ -195,12 +216,18 @@ class Null:
     words: int
     kept: int  # words left after trimming
     log_scale: bool = True  # the surfaces model log(measure)
+    #: the range of the word's own control measure (model scale), when it is a covariate
+    own_range: tuple[float, float] | None = None
+    #: the null is of the paired statistic log(measure) - log(own control measure)
+    paired: bool = False
 
     @property
     def uses_noise(self) -> bool:
         return self.noise_range is not None
 
-    def _x(self, count: Any, noise: Any) -> np.ndarray:
+    def _covariates(
+        self, count: Any, noise: Any, own: Any
+    ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
         xc = np.clip(np.log(np.maximum(np.asarray(count, dtype=float), 1.0)), *self.count_range)
         xn = None
         if self.noise_range is not None:
@@ -208,35 +235,40 @@ class Null:
                 raise DriftError("This null needs each word's seed noise; pass seed_noise.")
             xn = np.clip(noise_covariate(noise), *self.noise_range)
             xn = np.where(np.isfinite(xn), xn, np.mean(self.noise_range))
-        return _design(xc, xn)
+        xo = None
+        if self.own_range is not None:
+            if own is None:
+                raise DriftError("This null needs each word's own control measure; pass own.")
+            xo = np.clip(to_model_scale(own, self.log_scale), *self.own_range)
+            xo = np.where(np.isfinite(xo), xo, np.mean(self.own_range))
+        return xc, xn, xo
 
-    def model_centre(self, count: Any, noise: Any = None) -> np.ndarray:
+    def model_centre(self, count: Any, noise: Any = None, own: Any = None) -> np.ndarray:
         """The centre on the modelled scale (log of the measure by default)."""
-        return self._x(count, noise) @ self.centre_coef
+        return _design(*self._covariates(count, noise, own)) @ self.centre_coef
 
-    def model_spread(self, count: Any, noise: Any = None) -> np.ndarray:
+    def model_spread(self, count: Any, noise: Any = None, own: Any = None) -> np.ndarray:
         """The spread (a standard deviation) on the modelled scale."""
-        return self.spread_scale * np.exp(
-            0.5 * (_linear(self._x(count, noise)) @ self.spread_coef)
-        )
+        plane = _plane(*self._covariates(count, noise, own))
+        return self.spread_scale * np.exp(0.5 * (plane @ self.spread_coef))
 
-    def centre(self, count: Any, noise: Any = None) -> np.ndarray:
+    def centre(self, count: Any, noise: Any = None, own: Any = None) -> np.ndarray:
         """The null's centre (its median) on the measure's own scale, for words of rarer-side
-        ``count`` and seed ``noise``."""
-        centre = self.model_centre(count, noise)
+        ``count``, seed ``noise`` and (where the null uses it) ``own`` control measure."""
+        centre = self.model_centre(count, noise, own)
         return np.exp(centre) if self.log_scale else centre
 
-    def spread(self, count: Any, noise: Any = None) -> np.ndarray:
+    def spread(self, count: Any, noise: Any = None, own: Any = None) -> np.ndarray:
         """The null's spread on the measure's own scale (on the log scale, the delta-method
         approximation: centre times the log-scale spread)."""
-        spread = self.model_spread(count, noise)
-        return self.centre(count, noise) * spread if self.log_scale else spread
+        spread = self.model_spread(count, noise, own)
+        return self.centre(count, noise, own) * spread if self.log_scale else spread
 
-    def z(self, values: Any, count: Any, noise: Any = None) -> np.ndarray:
+    def z(self, values: Any, count: Any, noise: Any = None, own: Any = None) -> np.ndarray:
         """Standardised values: (model-scale value - centre) / spread, on the modelled scale."""
-        return (to_model_scale(values, self.log_scale) - self.model_centre(count, noise)) / (
-            self.model_spread(count, noise)
-        )
+        return (
+            to_model_scale(values, self.log_scale) - self.model_centre(count, noise, own)
+        ) / self.model_spread(count, noise, own)
 
     def p_of_z(self, z: Any) -> np.ndarray:
         """One-sided p of standardised values (NaN stays NaN)."""
@@ -274,8 +306,10 @@ class Null:
     def describe(self) -> dict[str, Any]:
         """A small JSON-able summary for run.json."""
         return {
-            "scale": "log of the measure" if self.log_scale else "the measure",
-            "covariates": "log rarer count" + (", log seed noise" if self.uses_noise else ""),
+            "scale": "log of the measure over the word's own control measure" if self.paired
+            else "log of the measure" if self.log_scale else "the measure",
+            "covariates": "log rarer count" + (", log seed noise" if self.uses_noise else "")
+            + (", the word's own control measure" if self.own_range is not None else ""),
             "words": self.words,
             "kept_after_trimming": self.kept,
             "tail": self.tail,
@@ -294,10 +328,14 @@ def fit_null(
     what: str = "control pair",
     shape_from: Null | None = None,
     log_scale: bool = True,
+    own: Any = None,
 ) -> Null:
     """Fit a null to measured words (see the module notes): robust centre and spread surfaces.
 
     ``seed_noise`` (one value per word, or None) adds the word's own noise as a covariate.
+    ``own`` (one value per word, or None) adds the word's own measure in the control pair
+    (on the measure's scale) as a linear covariate: a word that moved far between two random
+    halves of the same text is expected to move far between the slices too.
     ``shape_from``: take the shape of the standardised null (its residuals and tail) from that
     null instead, keeping this fit's centre and spread (the drift null borrows the control's
     shape: the pair's own words include the movers, whose tail is not the null's).
@@ -316,8 +354,13 @@ def fit_null(
     if seed_noise is not None:
         xn = noise_covariate(seed_noise).ravel()
         keep &= np.isfinite(xn)
+    xo = None
+    if own is not None:
+        xo = to_model_scale(np.asarray(own, dtype=float).ravel(), log_scale)
+        keep &= np.isfinite(xo)
     vals, xc = to_model_scale(vals[keep], log_scale), xc[keep]
     xn = xn[keep] if xn is not None else None
+    xo = xo[keep] if xo is not None else None
     if len(vals) < MIN_NULL_WORDS:
         raise DriftError(
             f"The {what} has only {len(vals)} measured words (at least {MIN_NULL_WORDS} are "
@@ -336,7 +379,12 @@ def fit_null(
     if xn is not None:
         noise_range = _inner_range(xn)
         xn = np.clip(xn, *noise_range)
-    design = _design(xc, xn)
+    own_range = None
+    if xo is not None:
+        own_range = _inner_range(xo)
+        xo = np.clip(xo, *own_range)
+    design = _design(xc, xn, xo)
+    plane = _plane(xc, xn, xo)
     inside = np.ones(len(vals), dtype=bool)
     for _ in range(TRIM_ROUNDS):
         # Median (least absolute deviation) fits: a handful of words that moved far cannot pull
@@ -344,7 +392,6 @@ def fit_null(
         coef = _median_fit(design[inside], vals[inside])
         residual = vals - design @ coef
         log_abs = np.log(np.maximum(np.abs(residual[inside]), 1e-12))
-        plane = _linear(design)
         spread_coef = 2.0 * _median_fit(plane[inside], log_abs)
         spread = np.exp(0.5 * (plane @ spread_coef))
         standard = residual / spread
@@ -354,7 +401,7 @@ def fit_null(
             break
         inside = now_inside
     # Rescale so that the median |standardised residual| of the kept words is that of N(0, 1).
-    standard = (vals - design @ coef) / np.exp(0.5 * (_linear(design) @ spread_coef))
+    standard = (vals - design @ coef) / np.exp(0.5 * (plane @ spread_coef))
     scale = float(np.median(np.abs(standard[inside]))) / HALF_NORMAL_MEDIAN
     scale = scale if scale > 0 else 1.0
     residuals = np.sort(standard / scale)
@@ -375,7 +422,7 @@ def fit_null(
             residuals=shape_from.residuals, tail=shape_from.tail,
             tail_threshold=shape_from.tail_threshold, tail_shape=shape_from.tail_shape,
             tail_scale=shape_from.tail_scale, words=int(len(vals)), kept=int(inside.sum()),
-            log_scale=log_scale,
+            log_scale=log_scale, own_range=own_range,
         )
     return Null(
         centre_coef=coef,
@@ -391,17 +438,65 @@ def fit_null(
         words=int(len(vals)),
         kept=int(inside.sum()),
         log_scale=log_scale,
+        own_range=own_range,
+    )
+
+
+def fit_paired_null(
+    ratio: Any, count_from: Any, count_to: Any, seed_noise: Any = None
+) -> Null:
+    """The noise null of the paired statistic ``log(measure) - log(own control measure)``.
+
+    The compared slices and the control slices (the same text pooled and split at random, at
+    the same sizes, each model trained on its lines in random order) are exchangeable when
+    nothing changed, so each word's ratio is then symmetric about 0, whatever the word's own
+    noise (a bursty word moves far in both). The centre is therefore 0, and the spread, a
+    surface in the covariates as in :func:`fit_null`, is fitted on the words whose ratio is
+    negative: they cannot have changed in the direction tested, so even an archive where most
+    words moved leaves them as the null's sample (the mirror idea of symmetric test
+    statistics; common practice, e.g. in target-decoy and knockoff-style FDR control, from
+    memory). The tail is normal.
+    """
+    ratio = np.asarray(ratio, dtype=float).ravel()
+    xc = frequency_covariate(count_from, count_to).ravel()
+    xn = None if seed_noise is None else noise_covariate(seed_noise).ravel()
+    usable = np.isfinite(ratio) & np.isfinite(xc)
+    if xn is not None:
+        usable &= np.isfinite(xn)
+    below = usable & (ratio < 0)
+    if below.sum() < MIN_NULL_WORDS:
+        raise DriftError(
+            f"Only {int(below.sum())} words moved less than in the control pair (at least "
+            f"{MIN_NULL_WORDS} are needed for the paired null); use more text per slice."
+        )
+    count_range = _inner_range(xc[usable])
+    noise_range = _inner_range(xn[usable]) if xn is not None else None
+    xc_b = np.clip(xc[below], *count_range)
+    xn_b = np.clip(xn[below], *noise_range) if xn is not None else None
+    plane = _plane(xc_b, xn_b)
+    size = np.abs(ratio[below])
+    spread_coef = 2.0 * _median_fit(plane, np.log(np.maximum(size, 1e-12)))
+    standard = size / np.exp(0.5 * (plane @ spread_coef))
+    scale = float(np.median(standard)) / HALF_NORMAL_MEDIAN
+    scale = scale if scale > 0 else 1.0
+    mirrored = np.sort(np.concatenate([-standard, standard]) / scale)
+    design_width = _design(xc_b[:1], xn_b[:1] if xn_b is not None else None).shape[1]
+    return Null(
+        centre_coef=np.zeros(design_width), spread_coef=spread_coef, spread_scale=scale,
+        count_range=count_range, noise_range=noise_range, residuals=mirrored, tail="normal",
+        tail_threshold=np.nan, tail_shape=0.0, tail_scale=1.0, words=int(usable.sum()),
+        kept=int(below.sum()), log_scale=False, paired=True,
     )
 
 
 def _score(null: Null | None, values: np.ndarray, cf: np.ndarray, ct: np.ndarray,
-           noise: np.ndarray | None) -> tuple[np.ndarray, ...]:
+           noise: np.ndarray | None, own: Any = None) -> tuple[np.ndarray, ...]:
     n = len(values)
     if null is None:
         return (np.full(n, np.nan),) * 4
     count = np.minimum(cf, ct)
-    z = null.z(values, count, noise)
-    return null.centre(count, noise), null.spread(count, noise), z, null.p_of_z(z)
+    z = null.z(values, count, noise, own)
+    return null.centre(count, noise, own), null.spread(count, noise, own), z, null.p_of_z(z)
 
 
 def calibrate(
@@ -413,6 +508,7 @@ def calibrate(
     noise_null: Null | None = None,
     drift_null: Null | None = None,
     alpha: float = 0.05,
+    own: Any = None,
 ) -> pd.DataFrame:
     """Score ``values`` against both nulls: the :data:`CALIBRATION_COLUMNS`, one row per value.
 
@@ -428,6 +524,8 @@ def calibrate(
         Each word's seed-to-seed distance, when the nulls were fitted with it.
     noise_null, drift_null : Null, optional
         The nulls from :func:`fit_null` (control pair, and the pair's own words).
+    own : array-like, optional
+        Each word's own measure in the control pair, when the drift null was fitted with it.
     alpha : float
         False discovery rate for ``significant``.
 
@@ -459,7 +557,7 @@ def calibrate(
     ct = np.asarray(count_to, dtype=float).ravel()
     noise = None if seed_noise is None else np.asarray(seed_noise, dtype=float).ravel()
     null_centre, null_spread, noise_z, noise_p = _score(noise_null, vals, cf, ct, noise)
-    typical, typical_spread, drift_z, drift_p = _score(drift_null, vals, cf, ct, noise)
+    typical, typical_spread, drift_z, drift_p = _score(drift_null, vals, cf, ct, noise, own)
     both = noise_null is not None and drift_null is not None
     p = np.fmax(noise_p, drift_p) if both else np.full(len(vals), np.nan)
     z = np.fmin(noise_z, drift_z) if both else np.full(len(vals), np.nan)
@@ -490,8 +588,10 @@ CORRELATION_TRIM_Z = 3.0
 
 
 def _as_normal_z(p: np.ndarray) -> np.ndarray:
-    """The standard normal z whose upper tail is ``p`` (the same z for a normal-tailed null)."""
-    return stats.norm.isf(np.clip(p, 1e-300, 1.0))
+    """The standard normal z whose upper tail is ``p`` (the same z for a normal-tailed null);
+    p is held inside the floats' reach of both ends (a p that rounds to 1 gives z = -8.2, not
+    minus infinity)."""
+    return stats.norm.isf(np.clip(p, 1e-300, 1.0 - 1e-16))
 
 
 def evidence_correlation(z_columns: np.ndarray) -> float:

@@ -53,6 +53,13 @@ class CalibrationOptions:
     tail: str = "normal"
     #: the drift null borrows the noise null's shape (else: a normal tail)
     shared_shape: bool = True
+    #: (unpaired only) the drift null also takes each word's own measure in the control pair
+    #: as a covariate
+    own_control: bool = False
+    #: the noise question judges the paired statistic log(measure) - log(the word's own measure
+    #: in the control pair) (:func:`drift.compare.calibration.fit_paired_null`), and the drift
+    #: null takes that own measure as a covariate (see :func:`_paired_calibration`)
+    paired: bool = True
 
 
 def combine_noise(columns: np.ndarray, how: str) -> np.ndarray:
@@ -237,22 +244,149 @@ def _one_measure_calibration(
     noise_null, displacement_null = _noise_nulls(
         measured, measure, options, noise is not None, reasons, record, control_p
     )
+    if options.paired and noise_null is not None:
+        return _paired_calibration(measured, scores, measure, alpha, options, noise,
+                                   noise_null, displacement_null, reasons, record)
     drift_null = None
+    own = None
+    if options.own_control and noise_null is not None:
+        own = own_control_values(measured, measure, scores["word"].tolist(), noise_null,
+                                 np.minimum(count_from, count_to), noise)
     try:
         drift_null = fit_null(values, count_from, count_to, noise, tail="normal",
                               what=f"pair {measured.pair[0]}-{measured.pair[1]}",
                               shape_from=noise_null if options.shared_shape else None,
-                              log_scale=options.log_scale)
+                              log_scale=options.log_scale, own=own)
         record["drift_null"] = drift_null.describe()
     except DriftError as exc:
         reasons.append(f"no drift null: {exc}")
     columns = calibrate(values, count_from, count_to, seed_noise=noise, noise_null=noise_null,
-                        drift_null=drift_null, alpha=alpha)
+                        drift_null=drift_null, alpha=alpha, own=own)
     columns.insert(0, "seed_noise", noise if noise is not None else np.nan)
     status, note = _significance(noise_null, drift_null, reasons)
     columns["significance_note"] = note
     record["significance"] = {"status": status, "reasons": reasons}
     return columns, displacement_null, record
+
+
+def _paired_calibration(
+    measured: Measured, scores: pd.DataFrame, measure: str, alpha: float,
+    options: CalibrationOptions, noise: np.ndarray | None, control_null: Any,
+    displacement_null: Any, reasons: list[str], record: dict[str, Any],
+) -> tuple[pd.DataFrame, Any, dict[str, Any]]:
+    """:func:`_one_measure_calibration` with ``options.paired``: each word against its own
+    measure in the control pair.
+
+    The noise question is asked of the paired ratio ``log(measure) - log(own control
+    measure)``, corrected for a change of the word's count between the slices, against its
+    mirror null (:func:`drift.compare.calibration.fit_paired_null`); where too few words moved
+    less than in the control (a long archive where nearly everything moved) it is asked
+    unpaired, against the control null, and run.json says so. The drift question is asked of
+    the log measure with the word's own control measure as a third covariate beside count and
+    seed noise, its weight fitted on the pair's own words: between distant periods the own
+    control predicts less than on shuffled text, and a fixed weight of one (the ratio) would
+    add the control's noise to every word. ``null_centre``/``null_spread`` stay the control
+    null's (the chart's band); ``typical`` is the drift null's centre for the word."""
+    from drift.compare.calibration import LOG_FLOOR, calibrate, fit_null, fit_paired_null
+
+    values = scores["score"].to_numpy(dtype=float)
+    count_from = scores["count_from"].to_numpy(dtype=float)
+    count_to = scores["count_to"].to_numpy(dtype=float)
+    rarer = np.minimum(count_from, count_to)
+    words = scores["word"].tolist()
+    own = own_control_values(measured, measure, words, control_null, rarer, noise)
+    # A word whose count changed between the slices (but not between the control's halves,
+    # which pool both) is expected to move more or less for that reason alone: the control
+    # null's centre at the pair's effective count against the control's. The effective count
+    # of two is their harmonic mean (sampling variances add as 1/count), which for the
+    # control's balanced halves is close to the rarer count the null was fitted on.
+    effective = harmonic_count(count_from, count_to)
+    control_effective = own_control_counts(measured, words, effective)
+    frequency_shift = control_null.model_centre(effective, noise) - control_null.model_centre(
+        control_effective, noise)
+    with np.errstate(invalid="ignore"):
+        ratio = np.log(np.maximum(values, LOG_FLOOR)) - np.log(np.maximum(own, LOG_FLOOR))
+    ratio = ratio - frequency_shift
+    try:
+        paired_null = fit_paired_null(ratio, count_from, count_to, noise)
+        record["noise_null"] = paired_null.describe()
+        noise_columns = calibrate(ratio, count_from, count_to, seed_noise=noise,
+                                  noise_null=paired_null, drift_null=paired_null, alpha=alpha)
+    except DriftError as exc:
+        record["noise_null"] = {**control_null.describe(),
+                                "not paired": str(exc).split(" (")[0]}
+        noise_columns = calibrate(values, count_from, count_to, seed_noise=noise,
+                                  noise_null=control_null, drift_null=control_null, alpha=alpha)
+    drift_null = None
+    try:
+        drift_null = fit_null(values, count_from, count_to, noise, tail="normal",
+                              what=f"pair {measured.pair[0]}-{measured.pair[1]}",
+                              log_scale=options.log_scale, own=own)
+        record["drift_null"] = drift_null.describe()
+    except DriftError as exc:
+        reasons.append(f"no drift null: {exc}")
+    columns = calibrate(values, count_from, count_to, seed_noise=noise, noise_null=control_null,
+                        drift_null=drift_null, alpha=alpha, own=own)
+    for column in ("noise_z", "noise_p", "noise_q"):
+        columns[column] = noise_columns[column].to_numpy()
+    if drift_null is not None:
+        columns = with_headline(columns, alpha)
+    columns.insert(0, "seed_noise", noise if noise is not None else np.nan)
+    status, note = _significance(control_null, drift_null, reasons)
+    columns["significance_note"] = note
+    record["significance"] = {"status": status, "reasons": reasons}
+    return columns, displacement_null, record
+
+
+def with_headline(columns: pd.DataFrame, alpha: float) -> pd.DataFrame:
+    """``columns`` with the headline (``z``, ``p``, ``q``, ``significant``) recomputed from its
+    two questions' columns, as :func:`drift.compare.calibration.calibrate` makes it."""
+    from drift.compare.calibration import bh_qvalues
+
+    out = columns.copy()
+    out["p"] = np.fmax(out["noise_p"], out["drift_p"])
+    out["z"] = np.fmin(out["noise_z"], out["drift_z"])
+    out["q"] = bh_qvalues(out["p"].to_numpy(dtype=float))
+    q = out["q"].to_numpy(dtype=float)
+    out["significant"] = pd.array(np.where(np.isfinite(q), q <= alpha, False), dtype="boolean")
+    return out
+
+
+def harmonic_count(count_from: Any, count_to: Any) -> np.ndarray:
+    """The harmonic mean of two counts (each at least 1)."""
+    a = np.maximum(np.asarray(count_from, dtype=float), 1.0)
+    b = np.maximum(np.asarray(count_to, dtype=float), 1.0)
+    return 2.0 / (1.0 / a + 1.0 / b)
+
+
+def own_control_counts(
+    measured: Measured, words: Sequence[str], fallback: np.ndarray
+) -> np.ndarray:
+    """Each word's effective count in the control pair (:func:`harmonic_count`; ``fallback``
+    where the control models lack it)."""
+    control = next(r.control for r in measured.results if r.control is not None)
+    effective = harmonic_count(control.counts_from, control.counts_to)
+    lookup = dict(zip(control.words, effective.tolist(), strict=True))
+    found = np.array([lookup.get(w, np.nan) for w in words], dtype=float)
+    return np.where(np.isfinite(found), found, fallback)
+
+
+def own_control_values(
+    measured: Measured, measure: str, words: Sequence[str], noise_null: Any,
+    count: np.ndarray, noise: np.ndarray | None,
+) -> np.ndarray:
+    """Each word's own ``measure`` in the control pair (averaged over seeds), for the drift
+    null's third covariate. A word the control models lack gets the noise null's centre: the
+    control measure expected of a word of its count and seed noise."""
+    controls = [r.control for r in measured.results if r.control is not None]
+    values, _ = mean_and_spread([c.value(measure) for c in controls])
+    lookup = dict(zip(controls[0].words, values.tolist(), strict=True))
+    own = np.array([lookup.get(w, np.nan) for w in words], dtype=float)
+    missing = ~np.isfinite(own)
+    if missing.any():
+        own[missing] = noise_null.centre(count[missing],
+                                         None if noise is None else noise[missing])
+    return own
 
 
 def calibrate_steps(

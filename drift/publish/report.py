@@ -568,7 +568,7 @@ def word_facts_html(data: RunData, view: WordView) -> str:
                       fmt(row.get("score"))))
     facts.append((f"neighbour turnover ({k} nearest, {a} vs {b})", fmt(view.turnover(data))))
     if "noise_z" in row.index and pd.notna(row.get("noise_z")):
-        facts.append(("beyond sampling and optimisation noise? (control pair)",
+        facts.append(("beyond noise? (more than the word itself moved in the control pair)",
                       _triple(row, "noise_")))
     if "drift_z" in row.index and pd.notna(row.get("drift_z")):
         facts.append(("more than typical words of its frequency? (this corpus)",
@@ -862,9 +862,10 @@ averaged over seeds); gained, lost and turnover are counted among these {k}.</p>
 the control pair ({esc(a)} and {esc(b)} pooled and split at random, so without real change): 95%
 of control words this frequent moved less than its top edge. It is a per-slice line, not corrected
 for testing {len(data.scores):,} words at once, so a point above it is not by itself significant;
-the verdict uses q, which is corrected (Benjamini-Hochberg). z is measured on the log of the
-distance, against words of the same frequency and the same seed-to-seed noise, and the verdict
-needs both nulls: beyond noise, and beyond the corpus's own drift{_evidence_note(data.measure)}.{
+the verdict uses q, which is corrected (Benjamini-Hochberg). The noise question compares the log
+of the word's distance with the log of its own distance between the control pair's halves; the
+drift question compares it with words of the same frequency, seed-to-seed noise and control
+distance in this corpus; the verdict needs both{_evidence_note(data.measure)}.{
     ' The dotted line is the typical movement of words this frequent in this corpus.'
     if 'typical' in data.timeline else ''}</p>
 {change_html(data, view)}
@@ -1173,8 +1174,8 @@ def report_page(
     tokens = int(data.summary["tokens"].sum()) if "tokens" in data.summary else 0
     significant = int(data.scores["significant"].fillna(False).astype(bool).sum())
     order_note = (
-        "by z, how far each word moved beyond both nulls: the control's noise, and what words "
-        "of its frequency and noisiness generally moved in this corpus"
+        "by z, how far each word moved beyond both nulls: its own movement in the control pair, "
+        "and what words of its frequency and noisiness generally moved in this corpus"
         if data.scores["z"].notna().any()
         else "by the corpus drift null's z (no control in this run)"
     ) + _evidence_note(data.measure)
