@@ -230,7 +230,7 @@ def _one_measure_calibration(
     control_p: list[np.ndarray] | None = None,
 ) -> tuple[pd.DataFrame, Any, dict[str, Any]]:
     """:func:`calibrate_pair` for one measure, whose values are ``scores['score']``."""
-    from drift.compare.calibration import calibrate, fit_null
+    from drift.compare.calibration import calibrate
 
     values = scores["score"].to_numpy(dtype=float)
     count_from = scores["count_from"].to_numpy(dtype=float)
@@ -252,14 +252,8 @@ def _one_measure_calibration(
     if options.own_control and noise_null is not None:
         own = own_control_values(measured, measure, scores["word"].tolist(), noise_null,
                                  np.minimum(count_from, count_to), noise)
-    try:
-        drift_null = fit_null(values, count_from, count_to, noise, tail="normal",
-                              what=f"pair {measured.pair[0]}-{measured.pair[1]}",
-                              shape_from=noise_null if options.shared_shape else None,
-                              log_scale=options.log_scale, own=own)
-        record["drift_null"] = drift_null.describe()
-    except DriftError as exc:
-        reasons.append(f"no drift null: {exc}")
+    drift_null = _drift_null(measured, values, count_from, count_to, noise, options, own,
+                             noise_null if options.shared_shape else None, reasons, record)
     columns = calibrate(values, count_from, count_to, seed_noise=noise, noise_null=noise_null,
                         drift_null=drift_null, alpha=alpha, own=own)
     columns.insert(0, "seed_noise", noise if noise is not None else np.nan)
@@ -287,7 +281,7 @@ def _paired_calibration(
     control predicts less than on shuffled text, and a fixed weight of one (the ratio) would
     add the control's noise to every word. ``null_centre``/``null_spread`` stay the control
     null's (the chart's band); ``typical`` is the drift null's centre for the word."""
-    from drift.compare.calibration import LOG_FLOOR, calibrate, fit_null, fit_paired_null
+    from drift.compare.calibration import LOG_FLOOR, calibrate, fit_paired_null
 
     values = scores["score"].to_numpy(dtype=float)
     count_from = scores["count_from"].to_numpy(dtype=float)
@@ -317,14 +311,8 @@ def _paired_calibration(
                                 "not paired": str(exc).split(" (")[0]}
         noise_columns = calibrate(values, count_from, count_to, seed_noise=noise,
                                   noise_null=control_null, drift_null=control_null, alpha=alpha)
-    drift_null = None
-    try:
-        drift_null = fit_null(values, count_from, count_to, noise, tail="normal",
-                              what=f"pair {measured.pair[0]}-{measured.pair[1]}",
-                              log_scale=options.log_scale, own=own)
-        record["drift_null"] = drift_null.describe()
-    except DriftError as exc:
-        reasons.append(f"no drift null: {exc}")
+    drift_null = _drift_null(measured, values, count_from, count_to, noise, options, own, None,
+                             reasons, record)
     columns = calibrate(values, count_from, count_to, seed_noise=noise, noise_null=control_null,
                         drift_null=drift_null, alpha=alpha, own=own)
     for column in ("noise_z", "noise_p", "noise_q"):
@@ -336,6 +324,25 @@ def _paired_calibration(
     columns["significance_note"] = note
     record["significance"] = {"status": status, "reasons": reasons}
     return columns, displacement_null, record
+
+
+def _drift_null(
+    measured: Measured, values: np.ndarray, count_from: np.ndarray, count_to: np.ndarray,
+    noise: np.ndarray | None, options: CalibrationOptions, own: np.ndarray | None,
+    shape_from: Any, reasons: list[str], record: dict[str, Any],
+) -> Any:
+    """The pair's drift null (None, with a reason, when it cannot be fitted)."""
+    from drift.compare.calibration import fit_null
+
+    try:
+        null = fit_null(values, count_from, count_to, noise, tail="normal",
+                        what=f"pair {measured.pair[0]}-{measured.pair[1]}",
+                        shape_from=shape_from, log_scale=options.log_scale, own=own)
+    except DriftError as exc:
+        reasons.append(f"no drift null: {exc}")
+        return None
+    record["drift_null"] = null.describe()
+    return null
 
 
 def with_headline(columns: pd.DataFrame, alpha: float) -> pd.DataFrame:
