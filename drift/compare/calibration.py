@@ -305,7 +305,7 @@ class Null:
 
     def describe(self) -> dict[str, Any]:
         """A small JSON-able summary for run.json."""
-        return {
+        described = {
             "scale": "log of the measure over the word's own control measure" if self.paired
             else "log of the measure" if self.log_scale else "the measure",
             "covariates": "log rarer count" + (", log seed noise" if self.uses_noise else "")
@@ -316,6 +316,11 @@ class Null:
             "residual_sd": round(float(np.std(self.residuals)), 4),
             "residual_max": round(float(self.residuals[-1]), 3) if len(self.residuals) else None,
         }
+        if self.paired:  # no trimming: the spread comes from the words below 0
+            described["kept_after_trimming"] = None
+            described["fitted_on"] = (f"the {self.kept} words whose paired value is below 0, "
+                                      "mirrored about 0")
+        return described
 
 
 def fit_null(
