@@ -256,11 +256,8 @@ def _one_measure_calibration(
                              noise_null if options.shared_shape else None, reasons, record)
     columns = calibrate(values, count_from, count_to, seed_noise=noise, noise_null=noise_null,
                         drift_null=drift_null, alpha=alpha, own=own)
-    columns.insert(0, "seed_noise", noise if noise is not None else np.nan)
-    status, note = _significance(noise_null, drift_null, reasons)
-    columns["significance_note"] = note
-    record["significance"] = {"status": status, "reasons": reasons}
-    return columns, displacement_null, record
+    return _with_significance(columns, noise, noise_null, drift_null, reasons, record), \
+        displacement_null, record
 
 
 def _paired_calibration(
@@ -319,11 +316,21 @@ def _paired_calibration(
         columns[column] = noise_columns[column].to_numpy()
     if drift_null is not None:
         columns = with_headline(columns, alpha)
+    return _with_significance(columns, noise, control_null, drift_null, reasons, record), \
+        displacement_null, record
+
+
+def _with_significance(
+    columns: pd.DataFrame, noise: np.ndarray | None, noise_null: Any, drift_null: Any,
+    reasons: list[str], record: dict[str, Any],
+) -> pd.DataFrame:
+    """The calibration columns with ``seed_noise`` first and the significance note last; the
+    status and reasons recorded in ``record``."""
     columns.insert(0, "seed_noise", noise if noise is not None else np.nan)
-    status, note = _significance(control_null, drift_null, reasons)
+    status, note = _significance(noise_null, drift_null, reasons)
     columns["significance_note"] = note
     record["significance"] = {"status": status, "reasons": reasons}
-    return columns, displacement_null, record
+    return columns
 
 
 def _drift_null(
