@@ -563,22 +563,35 @@ def calibrate(
     noise = None if seed_noise is None else np.asarray(seed_noise, dtype=float).ravel()
     null_centre, null_spread, noise_z, noise_p = _score(noise_null, vals, cf, ct, noise)
     typical, typical_spread, drift_z, drift_p = _score(drift_null, vals, cf, ct, noise, own)
-    both = noise_null is not None and drift_null is not None
-    p = np.fmax(noise_p, drift_p) if both else np.full(len(vals), np.nan)
-    z = np.fmin(noise_z, drift_z) if both else np.full(len(vals), np.nan)
-    q = bh_qvalues(p)
-    significant = pd.array(np.where(np.isfinite(q), q <= alpha, False), dtype="boolean")
-    if not both:
-        significant[:] = pd.NA
-    return pd.DataFrame(
+    table = pd.DataFrame(
         {
             "null_centre": null_centre, "null_spread": null_spread,
             "noise_z": noise_z, "noise_p": noise_p, "noise_q": bh_qvalues(noise_p),
             "typical": typical, "typical_spread": typical_spread,
             "drift_z": drift_z, "drift_p": drift_p, "drift_q": bh_qvalues(drift_p),
-            "z": z, "p": p, "q": q, "significant": significant,
         }
     )
+    return with_headline(table, alpha, noise_null is not None and drift_null is not None)
+
+
+def with_headline(table: pd.DataFrame, alpha: float, answerable: bool = True) -> pd.DataFrame:
+    """``table`` (with both questions' ``noise_*`` and ``drift_*`` columns) with the headline:
+    ``p = max(noise_p, drift_p)``, ``z = min(noise_z, drift_z)``, ``q`` the Benjamini-Hochberg
+    adjustment of p and ``significant = q <= alpha``. When the question cannot be answered
+    (``answerable`` False: a null is missing) z, p and q are NaN and ``significant`` missing."""
+    out = table.copy()
+    n = len(out)
+    noise_p, drift_p = out["noise_p"].to_numpy(float), out["drift_p"].to_numpy(float)
+    out["z"] = np.fmin(out["noise_z"].to_numpy(float), out["drift_z"].to_numpy(float)) \
+        if answerable else np.full(n, np.nan)
+    out["p"] = np.fmax(noise_p, drift_p) if answerable else np.full(n, np.nan)
+    q = bh_qvalues(out["p"].to_numpy(float))
+    out["q"] = q
+    significant = pd.array(np.where(np.isfinite(q), q <= alpha, False), dtype="boolean")
+    if not answerable:
+        significant[:] = pd.NA
+    out["significant"] = significant
+    return out
 
 
 # ------------------------------------------------------------------ the combined evidence
@@ -681,13 +694,5 @@ def combine_evidence(
         out[f"{null}_z"] = combined
         out[f"{null}_p"] = stats.norm.sf(combined)
         out[f"{null}_q"] = bh_qvalues(out[f"{null}_p"].to_numpy())
-    both = out["noise_z"].notna().any() and out["drift_z"].notna().any()
-    out["p"] = np.fmax(out["noise_p"], out["drift_p"]) if both else np.nan
-    out["z"] = np.fmin(out["noise_z"], out["drift_z"]) if both else np.nan
-    out["q"] = bh_qvalues(out["p"].to_numpy(dtype=float))
-    q = out["q"].to_numpy(dtype=float)
-    significant = pd.array(np.where(np.isfinite(q), q <= alpha, False), dtype="boolean")
-    if not both:
-        significant[:] = pd.NA
-    out["significant"] = significant
-    return out, correlation
+    answerable = out["noise_z"].notna().any() and out["drift_z"].notna().any()
+    return with_headline(out, alpha, answerable), correlation

@@ -278,7 +278,7 @@ def _paired_calibration(
     control predicts less than on shuffled text, and a fixed weight of one (the ratio) would
     add the control's noise to every word. ``null_centre``/``null_spread`` stay the control
     null's (the chart's band); ``typical`` is the drift null's centre for the word."""
-    from drift.compare.calibration import LOG_FLOOR, calibrate, fit_paired_null
+    from drift.compare.calibration import LOG_FLOOR, calibrate, fit_paired_null, with_headline
 
     values = scores["score"].to_numpy(dtype=float)
     count_from = scores["count_from"].to_numpy(dtype=float)
@@ -350,20 +350,6 @@ def _drift_null(
         return None
     record["drift_null"] = null.describe()
     return null
-
-
-def with_headline(columns: pd.DataFrame, alpha: float) -> pd.DataFrame:
-    """``columns`` with the headline (``z``, ``p``, ``q``, ``significant``) recomputed from its
-    two questions' columns, as :func:`drift.compare.calibration.calibrate` makes it."""
-    from drift.compare.calibration import bh_qvalues
-
-    out = columns.copy()
-    out["p"] = np.fmax(out["noise_p"], out["drift_p"])
-    out["z"] = np.fmin(out["noise_z"], out["drift_z"])
-    out["q"] = bh_qvalues(out["p"].to_numpy(dtype=float))
-    q = out["q"].to_numpy(dtype=float)
-    out["significant"] = pd.array(np.where(np.isfinite(q), q <= alpha, False), dtype="boolean")
-    return out
 
 
 def harmonic_count(count_from: Any, count_to: Any) -> np.ndarray:
