@@ -159,6 +159,36 @@ def test_large_files_in_pieces_equal_the_local_engine(tmp_path, cluster, small_p
         assert_same_run(tmp_path / "local", tmp_path / "dask")
 
 
+def test_large_csv_in_pieces_equals_the_local_engine(tmp_path, cluster, small_pieces):
+    """A CSV whose quoted fields hold commas, line breaks and doubled quotes is split at rows
+    (readers.csv_row_starts), and the run folder is the local engine's, byte for byte; a bad
+    row in a later piece is named by its line in the whole file."""
+    from test_readers import awkward_csv
+
+    folder = tmp_path / "csv"
+    folder.mkdir()
+    path = awkward_csv(folder / "news.csv", rows=900)
+    reader, _ = __import__("drift.ingest.sources", fromlist=["open_sources"]).open_sources(path)
+    tasks = dask_slicing.plan_tasks(reader, tmp_path / "work", None, fmt=None, encoding=None,
+                                    delimiter=None)
+    assert len(tasks) > 4
+    slice_archive(path, tmp_path / "local", by="5y", quiet=True)
+    slice_archive(path, tmp_path / "dask", by="5y", quiet=True, engine="dask",
+                  scheduler=cluster.scheduler_address)
+    assert_same_run(tmp_path / "local", tmp_path / "dask")
+    data = path.read_bytes()
+    cut = tasks[-2]["piece"][0]
+    path.write_bytes(data[:cut] + b"1995,one,two,three\n" + data[cut:])
+    messages = []
+    for engine in ("local", "dask"):
+        extra = {"scheduler": cluster.scheduler_address} if engine == "dask" else {}
+        with pytest.raises(DriftError) as failed:
+            slice_archive(path, tmp_path / f"bad-{engine}", by="5y", quiet=True,
+                          engine=engine, **extra)
+        messages.append(str(failed.value))
+    assert messages[0] == messages[1]
+
+
 def test_a_piece_that_is_not_utf8_or_fails_reads_the_file_whole(tmp_path, cluster, small_pieces):
     """Bytes that are not UTF-8 are read by what came before them (detection), and an error
     names its line in the file: both come out as the local engine has them."""

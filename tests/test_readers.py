@@ -12,6 +12,7 @@ from pathlib import Path
 import gensim
 import pandas as pd
 import pyarrow as pa
+import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 import pytest
 
@@ -141,6 +142,77 @@ def test_byte_order_mark_and_quoted_line_breaks(tmp_path):
     reader = open_source(path)
     assert reader.columns == ["date", "text"]
     assert read_all(reader) == (["1990"], ["one\ntwo, three"])
+
+
+def awkward_csv(path: Path, rows: int = 600, bom: bool = False) -> Path:
+    """A CSV of gensim's Lee news text whose fields hold the delimiter, line breaks (LF and
+    CRLF) and doubled quotes, written by pandas (minimal quoting, RFC 4180)."""
+    lines = (GENSIM_DATA / "lee_background.cor").read_text(encoding="utf-8").splitlines()
+    texts = []
+    for i in range(rows):
+        text = lines[i % len(lines)]
+        if i % 3 == 0:
+            text = text.replace(" ", "\n", 3)
+        if i % 5 == 0:
+            text = f'he said "{text[:40]}", then\r\nleft'
+        texts.append(text)
+    frame = pd.DataFrame({"date": [str(1990 + i % 10) for i in range(rows)], "text": texts})
+    frame.to_csv(path, index=False, encoding="utf-8-sig" if bom else "utf-8")
+    return path
+
+
+@pytest.mark.parametrize("bom", [False, True])
+def test_csv_row_starts_split_where_pyarrow_sees_rows(tmp_path, bom):
+    """Reference: pyarrow's own CSV reader of the whole file. Reading each byte range from
+    csv_row_starts on its own (with the header's column names) gives the same rows in order."""
+    path = awkward_csv(tmp_path / "awkward.csv", bom=bom)
+    whole = pacsv.read_csv(path, parse_options=pacsv.ParseOptions(newlines_in_values=True))
+    starts = readers.csv_row_starts(path, b",", 20_000)
+    assert starts is not None and len(starts) > 10
+    data = path.read_bytes()
+    assert all(data[s - 1:s] == b"\n" for s in starts[1:])
+    texts = []
+    for number, (a, b) in enumerate(zip(starts, [*starts[1:], len(data)], strict=True)):
+        names = None if number == 0 else ["date", "text"]
+        part = pacsv.read_csv(
+            pa.BufferReader(data[a:b]),
+            read_options=pacsv.ReadOptions(column_names=names),
+            parse_options=pacsv.ParseOptions(newlines_in_values=True),
+            convert_options=pacsv.ConvertOptions(column_types={"date": pa.string()}),
+        )
+        texts += part.column("text").to_pylist()
+    assert texts == whole.column("text").to_pylist()
+
+
+def test_csv_with_stray_quotes_is_not_split(tmp_path):
+    path = tmp_path / "stray.csv"
+    body = "".join(f'{1990 + i % 10},a 5" disk number {i}\n' for i in range(3000))
+    path.write_text("date,text\n" + body, encoding="utf-8")
+    assert readers.csv_row_starts(path, b",", 10_000) is None
+    reader = open_source(path)
+    assert reader.pieces(10_000) == [None]
+    odd = tmp_path / "odd.csv"
+    odd.write_text('date,text\n1990,"never closed\n' + "1991,x\n" * 3000, encoding="utf-8")
+    assert readers.csv_row_starts(odd, b",", 10_000) is None
+
+
+def test_csv_pieces_read_as_the_whole_file(tmp_path):
+    path = awkward_csv(tmp_path / "awkward.csv", rows=900)
+    whole = read_all(open_source(path))
+    pieces = open_source(path).pieces(30_000)
+    assert len(pieces) > 5
+    times, texts = [], []
+    for piece in pieces:
+        reader = open_source(path)
+        reader.restrict(piece)
+        got = read_all(reader)
+        times += got[0]
+        texts += got[1]
+    assert (times, texts) == whole
+    for compressed in ("gz",):
+        other = tmp_path / f"awkward.csv.{compressed}"
+        other.write_bytes(gzip.compress(path.read_bytes()))
+        assert open_source(other).pieces(30_000) == [None]
 
 
 def test_csv_streams_in_batches(tmp_path, monkeypatch):

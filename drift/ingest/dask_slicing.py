@@ -24,11 +24,12 @@ stopped), the finished tasks stay; the same command run again takes their result
 running them, and runs only the others. The kept parts are removed once a pass succeeds, so
 until then the archive's text lies on disk twice (parts and slices).
 
-An uncompressed JSON Lines or Parquet file larger than :data:`PIECE_BYTES` is split into pieces
-(line-aligned byte ranges, runs of row groups; :meth:`drift.ingest.readers.Reader.pieces`), one
-task each; a file whose pieces fail or meet bytes that are not UTF-8 is read again as one task,
-so that decoding and error messages are the local engine's. CSV files and compressed files are
-one task each.
+An uncompressed CSV, TSV, JSON Lines or Parquet file larger than :data:`PIECE_BYTES` is split
+into pieces (byte ranges that start at a row, runs of row groups;
+:meth:`drift.ingest.readers.Reader.pieces`), one task each; a file whose pieces fail or meet
+bytes that are not UTF-8 is read again as one task, so that decoding and error messages are the
+local engine's. Compressed files, and CSV files whose quoting is not plain
+(:func:`drift.ingest.readers.csv_row_starts`), are one task each.
 """
 
 from __future__ import annotations
@@ -48,7 +49,7 @@ from drift.ingest.readers import Reader, open_source
 from drift.ingest.sources import MultiReader
 from drift.progress import note
 
-#: Uncompressed JSON Lines and Parquet files larger than this are read in pieces of about this
+#: Uncompressed CSV, JSON Lines and Parquet files larger than this are read in pieces of about this
 #: size, each a task of its own (other files are one task each).
 PIECE_BYTES = 64 << 20
 
@@ -287,8 +288,8 @@ def plan_tasks(
     piece_bytes: int | None = None,
 ) -> list[dict[str, Any]]:
     """Tasks in reading order: one per source file (a folder of .txt documents is one), and one
-    per piece of an uncompressed JSON Lines or Parquet file larger than ``piece_bytes``
-    (default :data:`PIECE_BYTES`): line-aligned byte ranges, runs of row groups."""
+    per piece of an uncompressed CSV, JSON Lines or Parquet file larger than ``piece_bytes``
+    (default :data:`PIECE_BYTES`): byte ranges that start at a row, runs of row groups."""
     readers = reader.readers if isinstance(reader, MultiReader) else [reader]
     names = reader.names if isinstance(reader, MultiReader) else [None]
     size = PIECE_BYTES if piece_bytes is None else piece_bytes

@@ -29,6 +29,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import BinaryIO
 
+import numpy as np
 import pyarrow as pa
 import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
@@ -545,6 +546,54 @@ class Reader:
         raise NotImplementedError
 
 
+#: Bytes read at a time while looking for the rows at which a large CSV file can be split.
+_SCAN_BYTES = 16 << 20
+
+
+def csv_row_starts(path: Path, delimiter: bytes, size: int) -> list[int] | None:
+    """Offsets at which rows of the CSV file ``path`` begin, about ``size`` bytes apart (the
+    first is 0), or None when its quoting is not plain enough to tell rows apart without
+    parsing.
+
+    Plain quoting (RFC 4180, and how pyarrow reads it): a double quote opens a quoted field only
+    at the start of a field, and inside one a quote is written twice. A line break then ends a
+    row exactly when an even number of quotes came before it, so one pass that counts quotes
+    finds row starts. The pass also checks that every quote at an even count stands at the
+    start of a field (after the delimiter, a line break or the second quote of a pair) and
+    that the count ends even; a file where that fails (a stray quote in an unquoted field) is
+    not split.
+    """
+    total = path.stat().st_size
+    quote, allowed = ord('"'), np.frombuffer(delimiter + b'\n\r"', np.uint8)
+    starts, wanted = [0], size
+    count, offset, before = 0, 0, ord("\n")  # quotes so far; the byte before the chunk
+    with open(path, "rb") as handle:
+        while chunk := handle.read(_SCAN_BYTES):
+            data = np.frombuffer(chunk, np.uint8)
+            quotes = np.flatnonzero(data == quote)
+            opening = quotes[(count + np.arange(len(quotes))) % 2 == 0]
+            previous = np.where(opening > 0, data[np.maximum(opening - 1, 0)], before)
+            if offset == 0 and chunk.startswith(codecs.BOM_UTF8):
+                previous[opening == len(codecs.BOM_UTF8)] = ord("\n")  # a quote after the BOM
+            if not np.isin(previous, allowed).all():
+                return None
+            while wanted < offset + len(data):
+                breaks = np.flatnonzero(data[max(wanted - offset, 0):] == ord("\n"))
+                breaks += max(wanted - offset, 0)
+                even = (count + np.searchsorted(quotes, breaks)) % 2 == 0
+                if not even.any():
+                    wanted = offset + len(data)  # look on in the next chunk
+                    break
+                start = offset + int(breaks[np.argmax(even)]) + 1
+                if start < total:
+                    starts.append(start)
+                wanted = start + size
+            count += len(quotes)
+            offset += len(data)
+            before = int(data[-1])
+    return starts if count % 2 == 0 else None
+
+
 class CsvReader(Reader):
     """CSV or TSV through pyarrow's streaming CSV reader (quoted fields may hold line breaks)."""
 
@@ -569,16 +618,40 @@ class CsvReader(Reader):
             self.columns, text_col, TEXT_COLUMN_NAMES, "text", "--text-col", self.path.name
         )
 
+    def pieces(self, size: int) -> list[tuple[int, int] | None]:
+        """Byte ranges that start at a row (after a line break outside every quoted field), for
+        uncompressed files in UTF-8 or detected (not UTF-16) whose quoting is plain (see
+        :func:`csv_row_starts`); other files are read whole."""
+        total = self.total_bytes
+        delimiter = self._parse.delimiter
+        if (self.compression or self.encoding not in (None, "utf-8") or total <= size
+                or len(delimiter.encode("utf-8")) != 1 or delimiter == '"'):
+            return [None]
+        with open(self.path, "rb") as handle:
+            if handle.read(2) in (b"\xff\xfe", b"\xfe\xff"):  # UTF-16: read whole
+                return [None]
+        starts = csv_row_starts(self.path, delimiter.encode("utf-8"), size)
+        if starts is None or len(starts) == 1:
+            return [None]
+        return list(zip(starts, [*starts[1:], total], strict=True))
+
+    def restrict(self, piece: tuple[int, int] | None) -> None:
+        self.byte_range = piece
+
     def _open(self, block_size: int, columns: list[str] | None):
         stream = self._open_text_stream(probe=columns is None)
         convert = pacsv.ConvertOptions(
             include_columns=columns,
             column_types={c: pa.string() for c in columns} if columns else None,
         )
+        # a piece after the first has no header row: its columns are the file's
+        headless = columns is not None and self.byte_range is not None and self.byte_range[0] > 0
         try:
             return pacsv.open_csv(
                 io.BufferedReader(stream, 1 << 20),
-                read_options=pacsv.ReadOptions(block_size=block_size),
+                read_options=pacsv.ReadOptions(
+                    block_size=block_size, column_names=self.columns if headless else None
+                ),
                 parse_options=self._parse,
                 convert_options=convert,
             ), stream
