@@ -181,6 +181,7 @@ CANDIDATES = {
     "displacement, paired": ("displacement", dict()),
     "local, paired": ("local", dict()),
     "evidence, paired (default)": ("evidence", dict()),
+    "evidence, paired noise null only": ("evidence", dict(paired_drift=False)),
 }
 DEFAULT_CANDIDATE = "evidence, paired (default)"
 

@@ -269,6 +269,30 @@ def test_noise_is_paired_with_each_word_s_own_control_by_default(geometry_run):
     assert scores.set_index("word").loc[MOVED, "significant"].all()
 
 
+def test_only_the_noise_question_paired_leaves_the_drift_null_without_own_control(
+    own_geometry_run,
+):
+    """CalibrationOptions(paired_drift=False), a benchmark candidate (README): the noise
+    question is still paired, the drift null has count and seed noise only."""
+    from drift.compare.alignment import parse_anchors
+    from drift.compare.ranking import CalibrationOptions, assemble_scores, measure_run
+    from drift.compare.runinputs import read_run_inputs
+
+    root, _ = own_geometry_run
+    inputs = read_run_inputs(root)
+    measured = measure_run(inputs, (LABELS[0], LABELS[-1]), LABELS[0], 10, parse_anchors(None),
+                           quiet=True)
+    scores, _, _, record = assemble_scores(inputs, measured, "displacement", 0.05,
+                                           CalibrationOptions(paired_drift=False))
+    default, *_ = assemble_scores(inputs, measured, "displacement", 0.05, CalibrationOptions())
+    assert record["noise_null"]["scale"] == "log of the measure over the word's own control measure"
+    assert "own control measure" not in record["drift_null"]["covariates"]
+    by_word = scores.set_index("word")
+    assert by_word.loc[MOVED, "significant"].all()
+    np.testing.assert_allclose(by_word.loc[MOVED, "noise_z"],
+                               default.set_index("word").loc[MOVED, "noise_z"])
+
+
 def test_noise_is_asked_unpaired_when_almost_every_word_moved_more_than_in_the_control(tmp_path):
     """A control whose words barely move (its vectors as steady as 400 times the text would
     make them): hardly any word moved less than in the control, so the paired mirror null has

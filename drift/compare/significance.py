@@ -60,6 +60,9 @@ class CalibrationOptions:
     #: in the control pair) (:func:`drift.compare.calibration.fit_paired_null`), and the drift
     #: null takes that own measure as a covariate (see :func:`_paired_calibration`)
     paired: bool = True
+    #: (paired only) the drift null takes the word's own control measure as a covariate; off,
+    #: only the noise question is paired
+    paired_drift: bool = True
 
 
 def combine_noise(columns: np.ndarray, how: str) -> np.ndarray:
@@ -308,10 +311,11 @@ def _paired_calibration(
                                 "not paired": str(exc).split(" (")[0]}
         noise_columns = calibrate(values, count_from, count_to, seed_noise=noise,
                                   noise_null=control_null, drift_null=control_null, alpha=alpha)
-    drift_null = _drift_null(measured, values, count_from, count_to, noise, options, own, None,
-                             reasons, record)
+    drift_own = own if options.paired_drift else None
+    drift_null = _drift_null(measured, values, count_from, count_to, noise, options, drift_own,
+                             None, reasons, record)
     columns = calibrate(values, count_from, count_to, seed_noise=noise, noise_null=control_null,
-                        drift_null=drift_null, alpha=alpha, own=own)
+                        drift_null=drift_null, alpha=alpha, own=drift_own)
     for column in ("noise_z", "noise_p", "noise_q"):
         columns[column] = noise_columns[column].to_numpy()
     if drift_null is not None:
