@@ -95,7 +95,7 @@ def build(args: argparse.Namespace) -> None:
 
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
-    train = dict(workers=args.workers, quiet=True)
+    train = dict(workers=args.workers, quiet=True, control_splits=args.control_splits)
     started = time.perf_counter()
     if not args.skip_real:
         source = out / "real.csv"
@@ -139,6 +139,8 @@ def main() -> None:
     b.add_argument("--first-repeat", type=int, default=0)
     b.add_argument("--workers", type=int, default=os.cpu_count() or 2)
     b.add_argument("--skip-real", action="store_true")
+    b.add_argument("--control-splits", type=int, default=1,
+                   help="control pairs per run (drift train --control-splits)")
     e = sub.add_parser("evaluate")
     e.add_argument("--out", type=Path, required=True)
     e.add_argument("--trim", type=float, default=0.1, help="anchor trim to compare (0: none)")
@@ -182,6 +184,8 @@ CANDIDATES = {
     "local, paired": ("local", dict()),
     "evidence, paired (default)": ("evidence", dict()),
     "evidence, paired noise null only": ("evidence", dict(paired_drift=False)),
+    # on a run trained with --control-splits 2: its first control split only, and both
+    "evidence, paired, first control split only": ("evidence", dict(control_splits=1)),
 }
 DEFAULT_CANDIDATE = "evidence, paired (default)"
 
@@ -247,11 +251,25 @@ def candidate_scores(run: Path, trims: list[float]) -> dict[str, pd.DataFrame]:
                 pickle.dump(measured, handle)
         for name in wanted:
             measure, fields = CANDIDATES[name]
+            fields = dict(fields)
+            used = _first_splits(measured, fields.pop("control_splits", None))
             options = CalibrationOptions(**fields)
-            scores, *_ = assemble_scores(inputs, measured, measure, 0.05, options)
+            scores, *_ = assemble_scores(inputs, used, measure, 0.05, options)
             scores.to_parquet(files[name])
             out[names[name]] = scores
     return out
+
+
+def _first_splits(measured, splits: int | None):
+    """``measured`` with only its first ``splits`` control splits (None: all of them)."""
+    if splits is None:
+        return measured
+    import dataclasses
+
+    return dataclasses.replace(measured, results=[
+        dataclasses.replace(r, more_controls=list(r.more_controls[: splits - 1]))
+        for r in measured.results
+    ])
 
 
 def _significant(scores: pd.DataFrame, column: str = "significant") -> pd.Series:

@@ -563,6 +563,13 @@ class TrainOptions(StageOptions):
         flag="--no-control",
         negate=True,
     )
+    control_splits: int = opt(
+        1,
+        "Control pairs, each the compared slices pooled and split at random anew; their average "
+        "is each word's own control measure (2 sharpened ranking in the calibration benchmark, "
+        "see the README).",
+        check=_least(1, "--control-splits"),
+    )
     engine: str = _engine()
     scheduler: str | None = _scheduler()
 

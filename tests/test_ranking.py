@@ -293,6 +293,47 @@ def test_only_the_noise_question_paired_leaves_the_drift_null_without_own_contro
                                default.set_index("word").loc[MOVED, "noise_z"])
 
 
+def test_several_control_splits_average_each_word_s_own_control_measure(tmp_path):
+    """A run trained with two control splits (real Lee text, small models): each word's own
+    control measure is the mean of its measure in the two control pairs, each averaged over
+    the seeds, and ranking uses it."""
+    from test_sources import lee_frame
+
+    from drift.compare.alignment import parse_anchors
+    from drift.compare.ranking import measure_run
+    from drift.compare.runinputs import read_run_inputs
+    from drift.compare.significance import own_control_values
+    from drift.embed.training import train_run
+    from drift.ingest.slicing import slice_archive
+
+    lee_frame().to_csv(tmp_path / "lee.csv", index=False)
+    root = tmp_path / "run"
+    slice_archive(tmp_path / "lee.csv", root, by="5y", quiet=True)
+    train_run(root, dim=16, epochs=2, min_count=3, seeds=2, workers=1, control_splits=2,
+              quiet=True)
+    inputs = read_run_inputs(root)
+    pair = (inputs.labels[0], inputs.labels[-1])
+    measured = measure_run(inputs, pair, pair[0], 10, parse_anchors(None), quiet=True)
+    assert all(len(r.more_controls) == 1 for r in measured.results)
+    words = measured.words
+    expected = []
+    for split in ([r.control for r in measured.results],
+                  [r.more_controls[0] for r in measured.results]):
+        assert split[0].words == split[1].words
+        mean = (split[0].displacement + split[1].displacement) / 2
+        lookup = dict(zip(split[0].words, mean.tolist(), strict=True))
+        expected.append([lookup.get(w, np.nan) for w in words])
+    expected = np.array(expected)
+    found = np.isfinite(expected).all(axis=0)  # in both control pairs
+    assert found.sum() > 500  # of about 1,100 words at min count 3 in either slice
+    kept = [w for w, ok in zip(words, found, strict=True) if ok]
+    own = own_control_values(measured, "displacement", kept, None, np.ones(len(kept)), None)
+    np.testing.assert_allclose(own, expected[:, found].mean(axis=0))
+    assert np.abs(own - expected[0, found]).mean() > 0.01  # not the first split's alone
+    scores = rank_run(root, k=10, quiet=True)
+    assert scores["noise_z"].notna().mean() > 0.9
+
+
 def test_noise_is_asked_unpaired_when_almost_every_word_moved_more_than_in_the_control(tmp_path):
     """A control whose words barely move (its vectors as steady as 400 times the text would
     make them): hardly any word moved less than in the control, so the paired mirror null has

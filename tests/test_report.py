@@ -267,6 +267,16 @@ def test_report_says_when_there_is_no_control(tmp_path):
     assert "gave no usable null" in report.warnings_html(report.load_run(run))
 
 
+
+def test_report_says_when_the_own_control_is_averaged_over_splits(tmp_path):
+    run = fixture_run_copy(tmp_path / "run")
+    assert "control pairs" not in report.control_html(report.load_run(run))
+    manifest = json.loads(RunPaths(run).manifest.read_text())
+    manifest["stages"]["train"]["control"]["splits"] = 2  # as --control-splits 2 records it
+    RunPaths(run).manifest.write_text(json.dumps(manifest))
+    assert "average over 2 control pairs" in report.control_html(report.load_run(run))
+
+
 def test_report_with_top_zero_writes_only_term_pages(tmp_path):
     import pandas as pd
 

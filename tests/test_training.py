@@ -122,6 +122,34 @@ def test_control_shuffle_is_reproducible_from_its_seed(trained, tmp_path):
     assert training.control_slice_file(paths, "control-a").read_bytes() != before
 
 
+def test_a_second_control_split_is_another_shuffle_trained_alike(trained, tmp_path):
+    """--control-splits 2: control-a-2 and control-b-2 pool the same lines with another
+    shuffle seed; the first split and every slice model are reused, run.json lists both."""
+    root, _ = trained
+    copy = copy_run(root, tmp_path / "copy")
+    table = training.train_run(copy, **TINY, control_splits=2)
+    assert len(table) == (3 + 4) * 2
+    assert set(table.loc[~table["reused"], "label"]) == {"control-a-2", "control-b-2"}
+    paths = RunPaths(copy)
+
+    def lines(name):
+        return training.control_slice_file(paths, name).read_text(encoding="utf-8").splitlines()
+
+    assert Counter(lines("control-a-2") + lines("control-b-2")) == Counter(
+        lines("control-a") + lines("control-b"))
+    assert lines("control-a-2") != lines("control-a")
+    info = training.control_info(copy)
+    assert info["splits"] == 2 and info["labels"] == ["control-a", "control-b"]
+    assert info["more_splits"][0]["labels"] == ["control-a-2", "control-b-2"]
+    assert info["more_splits"][0]["shuffle_seed"] == 1 + training.SPLIT_SEED_STEP
+    assert runfolder.read_manifest(copy)["stages"]["train"]["params"]["control_splits"] == 2
+    assert len(training.load_vectors(copy, "control-b-2", 1, control=True)) > 100
+    again = training.train_run(copy, **TINY, control_splits=2)
+    assert again["reused"].all()
+    with pytest.raises(DriftError, match="--control-splits"):
+        training.train_run(copy, **TINY, control_splits=0)
+
+
 def test_line_index_agrees_with_reading_the_lines(tmp_path):
     text = "a bb ccc\n\nd e\nfff g h i\n" * 40 + "last line no newline"
     path = tmp_path / "s.txt"

@@ -27,7 +27,7 @@ def train(
     typer.echo(
         f"{len(table)} models in {run}: {trained} trained, {reused} reused "
         f"({slices['label'].nunique()} slices x {options.seeds} seeds"
-        f"{', plus the control pair' if options.control else ''})."
+        f"{_control_words(options)})."
     )
     for label, models in slices.groupby("label", sort=False):
         typer.echo(f"  {label}: {int(models['vocabulary'].median())} words")
@@ -35,3 +35,11 @@ def train(
         typer.echo(
             "No control pair (--no-control): 'drift rank' will give no p or q values for this run."
         )
+
+
+def _control_words(options: TrainOptions) -> str:
+    if not options.control:
+        return ""
+    if options.control_splits == 1:
+        return ", plus the control pair"
+    return f", plus {options.control_splits} control pairs"

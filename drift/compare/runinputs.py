@@ -40,11 +40,12 @@ class RunInputs:
 
 
 def _check_models_exist(
-    paths: runfolder.RunPaths, labels: Sequence[str], seeds: Sequence[int], control: bool
+    paths: runfolder.RunPaths, labels: Sequence[str], seeds: Sequence[int],
+    control: Sequence[Sequence[str]],
 ) -> None:
     """Fail early, before any work, when a model file of the run is missing."""
     wanted = [(label, False) for label in labels]
-    wanted += [(name, True) for name in CONTROL_NAMES] if control else []
+    wanted += [(name, True) for names in control for name in names]
     for label, is_control in wanted:
         for seed in seeds:
             locate = paths.control_model_file if is_control else paths.model_file
@@ -69,15 +70,22 @@ def read_run_inputs(run: str | Path) -> RunInputs:
             f"{paths.root} has {len(labels)} slice; ranking needs at least two, so slice the "
             "archive into more periods."
         )
-    from drift.embed.training import control_info, trained_seeds
+    from drift.embed.training import control_info, control_labels_of, trained_seeds
 
     seeds = trained_seeds(paths.root)
     control = control_info(paths.root)
-    _check_models_exist(paths, labels, seeds, bool(control))
+    _check_models_exist(paths, labels, seeds, control_labels_of(control))
     summary = runfolder.read_table(paths.root, "summary")
     tokens = {str(r.label): int(r.tokens) for r in summary.itertuples()}
     counts = runfolder.read_table(paths.root, "counts").set_index("word")
     return RunInputs(paths, labels, seeds, control or None, counts, tokens, manifest)
+
+
+def control_pairs(inputs: RunInputs) -> list[tuple[str, str]]:
+    """The labels of the run's control pairs, one per control split (none without control)."""
+    from drift.embed.training import control_labels_of
+
+    return control_labels_of(inputs.control)
 
 
 def load_slice_vectors(

@@ -9,7 +9,7 @@ turnover, local change and the timeline. The control pair is measured exactly li
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -31,6 +31,7 @@ from drift.compare.runinputs import (
     CONTROL_NAMES,
     RunInputs,
     candidate_words,
+    control_pairs,
     load_slice_vectors,
 )
 from drift.errors import DriftError
@@ -161,6 +162,8 @@ class SeedResult:
     control_instability: np.ndarray | None = None
     #: words x (slices - 1): displacement between each slice and the next (for --compare steps)
     steps: np.ndarray | None = None
+    #: the control pair of every further control split (train --control-splits), in order
+    more_controls: list[PairMeasures] = field(default_factory=list)
 
 
 def _instability_of(first: SliceVectors, other: SliceVectors, words: Sequence[str]) -> np.ndarray:
@@ -250,9 +253,13 @@ def measure_seed(
         )
     del candidates, neighbours
 
-    control, control_instability = None, None
+    control, control_instability, more_controls = None, None, []
     if inputs.control:
         control, models = measure_control(inputs, seed, cand_words, k, anchors, advance, trim)
+        more_controls = [
+            measure_control(inputs, seed, cand_words, k, anchors, None, trim, names)[0]
+            for names in control_pairs(inputs)[1:]
+        ]
         if first_seed is not None:
             control_instability = np.column_stack(
                 [_instability_of(first_seed[name], models[name], control.words)
@@ -260,7 +267,7 @@ def measure_seed(
             )
         slices.update(models)
     result = SeedResult(pair_result, distance, turnover, control, instability,
-                        control_instability, steps)
+                        control_instability, steps, more_controls)
     return result, cand_words, slices, k
 
 
@@ -272,11 +279,13 @@ def measure_control(
     anchors: AnchorSpec,
     advance: Any = None,
     trim: float = DEFAULT_ANCHOR_TRIM,
+    names: Sequence[str] = CONTROL_NAMES,
 ) -> tuple[PairMeasures, dict[str, SliceVectors]]:
-    """The control pair (control-a vs control-b) measured exactly like the compared pair; also
-    returns the two control models."""
+    """The control pair (control-a vs control-b, or another split's ``names``) measured
+    exactly like the compared pair; also returns the two control models (by the first split's
+    names)."""
     first, second = (
-        load_slice_vectors(inputs.paths, name, seed, control=True) for name in CONTROL_NAMES
+        load_slice_vectors(inputs.paths, name, seed, control=True) for name in names
     )
     words = [w for w in first.words if w in second.index]
     ctrl_cands = [w for w in cand_words if w in first.index and w in second.index]

@@ -379,13 +379,19 @@ def own_control_values(
     measured: Measured, measure: str, words: Sequence[str], noise_null: Any,
     count: np.ndarray, noise: np.ndarray | None,
 ) -> np.ndarray:
-    """Each word's own ``measure`` in the control pair (averaged over seeds), for the drift
+    """Each word's own ``measure`` in the control pair (averaged over seeds, then over the
+    control splits where there are several), for the paired noise question and the drift
     null's third covariate. A word the control models lack gets the noise null's centre: the
     control measure expected of a word of its count and seed noise."""
-    controls = [r.control for r in measured.results if r.control is not None]
-    values, _ = mean_and_spread([c.value(measure) for c in controls])
-    lookup = dict(zip(controls[0].words, values.tolist(), strict=True))
-    own = np.array([lookup.get(w, np.nan) for w in words], dtype=float)
+    splits = [[r.control for r in measured.results if r.control is not None]]
+    more = (getattr(r, "more_controls", []) for r in measured.results)  # older caches lack it
+    splits += [list(split) for split in zip(*more, strict=True)]
+    per_split = []
+    for controls in splits:
+        values, _ = mean_and_spread([c.value(measure) for c in controls])
+        lookup = dict(zip(controls[0].words, values.tolist(), strict=True))
+        per_split.append([lookup.get(w, np.nan) for w in words])
+    own = _nanmean(np.array(per_split, dtype=float), 0)
     missing = ~np.isfinite(own)
     if missing.any():
         own[missing] = noise_null.centre(count[missing],

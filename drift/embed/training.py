@@ -40,6 +40,8 @@ if TYPE_CHECKING:
 
 ARCHITECTURES = options.ARCHITECTURES
 CONTROL_LABELS = ("control-a", "control-b")
+#: The shuffle seed of control split j (1, 2, ...) is the base seed plus this times (j - 1).
+SPLIT_SEED_STEP = 7777
 #: Bumped when the way a model is trained or saved changes, so older models are retrained.
 MODEL_FORMAT = 2  # 2: vectors in .npy and vocabulary in .vocab.parquet (1: gensim pickles)
 #: Every model is trained on its slice's lines in a random order drawn from the run's base seed
@@ -186,8 +188,23 @@ def control_slice_file(paths: RunPaths, name: str) -> Path:
     return paths.control_slice_file(name)
 
 
-def _control_record_file(paths: RunPaths) -> Path:
-    return paths.control_record
+def control_split_labels(split: int) -> tuple[str, str]:
+    """The two control models' labels of control split ``split`` (1: control-a, control-b;
+    2: control-a-2, control-b-2; ...)."""
+    if split == 1:
+        return CONTROL_LABELS
+    return (f"{CONTROL_LABELS[0]}-{split}", f"{CONTROL_LABELS[1]}-{split}")
+
+
+def split_shuffle_seed(base_seed: int, split: int) -> int:
+    """The seed that pools and splits the compared slices for control split ``split``."""
+    return int(base_seed) + SPLIT_SEED_STEP * (split - 1)
+
+
+def _control_record_file(paths: RunPaths, split: int = 1) -> Path:
+    if split == 1:
+        return paths.control_record
+    return paths.control_record.with_name(f"control-{split}.json")
 
 
 def line_index(path: Path, chunk_size: int = 1 << 22) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -259,10 +276,10 @@ def _control_sources(paths: RunPaths, pair: list[str], shuffle_seed: int) -> dic
 
 
 def current_control_slices(
-    paths: RunPaths, pair: list[str], shuffle_seed: int
+    paths: RunPaths, pair: list[str], shuffle_seed: int, split: int = 1
 ) -> dict[str, Any] | None:
-    """The record of the control slices when they exist and match ``pair`` and the seed."""
-    record_file = _control_record_file(paths)
+    """The record of a control split's slices when they exist and match ``pair`` and the seed."""
+    record_file = _control_record_file(paths, split)
     try:
         record = json.loads(record_file.read_text(encoding="utf-8"))
     except (OSError, json.JSONDecodeError):
@@ -270,7 +287,7 @@ def current_control_slices(
     expected = _control_sources(paths, pair, shuffle_seed)
     if any(record.get(key) != value for key, value in expected.items()):
         return None
-    for name in CONTROL_LABELS:
+    for name in control_split_labels(split):
         text = control_slice_file(paths, name)
         if not text.is_file() or record.get("outputs", {}).get(name) != runfolder.fingerprint_file(
             text
@@ -279,12 +296,16 @@ def current_control_slices(
     return record
 
 
-def build_control_slices(paths: RunPaths, pair: list[str], shuffle_seed: int) -> dict[str, Any]:
+def build_control_slices(
+    paths: RunPaths, pair: list[str], shuffle_seed: int, split: int = 1
+) -> dict[str, Any]:
     """Pool the lines of the two slices in ``pair``, shuffle, and split them at their sizes.
 
     ``control-a`` gets as many tokens as slice A (to the nearest whole line) and ``control-b``
-    the rest, which is the size of slice B. Only line offsets are held in memory.
+    the rest, which is the size of slice B (``control-a-2``, ``control-b-2`` for ``split`` 2,
+    and so on). Only line offsets are held in memory.
     """
+    names = control_split_labels(split)
     first, second = (line_index(paths.slice_file(label)) for label in pair)
     sizes = [len(first[0]), len(second[0])]
     if min(sizes) == 0:
@@ -296,7 +317,7 @@ def build_control_slices(paths: RunPaths, pair: list[str], shuffle_seed: int) ->
     tokens = np.concatenate([first[2], second[2]])
     order = np.random.default_rng(shuffle_seed).permutation(len(tokens))
     cut = split_point(tokens[order], int(first[2].sum()))
-    picks = {CONTROL_LABELS[0]: order[:cut], CONTROL_LABELS[1]: order[cut:]}
+    picks = {names[0]: order[:cut], names[1]: order[cut:]}
     with ExitStack() as stack:
         texts = []
         for label in pair:
@@ -312,11 +333,10 @@ def build_control_slices(paths: RunPaths, pair: list[str], shuffle_seed: int) ->
         "source_lines": dict(zip(pair, sizes, strict=True)),
         "source_tokens": {pair[0]: int(first[2].sum()), pair[1]: int(second[2].sum())},
         "outputs": {
-            name: runfolder.fingerprint_file(control_slice_file(paths, name))
-            for name in CONTROL_LABELS
+            name: runfolder.fingerprint_file(control_slice_file(paths, name)) for name in names
         },
     }
-    runfolder.write_json_atomic(_control_record_file(paths), record)
+    runfolder.write_json_atomic(_control_record_file(paths, split), record)
     return record
 
 
@@ -574,17 +594,18 @@ def _train_on(
 
 
 def _model_tasks(
-    paths: RunPaths, params: TrainParams, labels: list[str], control: bool
+    paths: RunPaths, params: TrainParams, labels: list[str], control_splits: int
 ) -> list[dict[str, Any]]:
-    """Every model of the run, slices first (time order, then seed), then the control pair."""
-    groups = [("slice", label, paths.slice_file(label), paths.model_file) for label in labels]
-    if control:
+    """Every model of the run, slices first (time order, then seed), then the control pairs
+    (``control_splits`` of them; 0 without control)."""
+    groups = [("slice", label, paths.slice_file(label), paths.model_file, 0) for label in labels]
+    for split in range(1, control_splits + 1):
         groups += [
-            ("control", name, control_slice_file(paths, name), paths.control_model_file)
-            for name in CONTROL_LABELS
+            ("control", name, control_slice_file(paths, name), paths.control_model_file, split)
+            for name in control_split_labels(split)
         ]
     tasks = []
-    for group, label, corpus, locate in groups:
+    for group, label, corpus, locate, split in groups:
         for seed in range(params.seeds):
             output = locate(label, seed)
             tasks.append(
@@ -598,6 +619,7 @@ def _model_tasks(
                     "model": params.model(seed),
                     "threads": 1,
                     "fingerprint": None,
+                    "split": split,
                 }
             )
     return tasks
@@ -672,7 +694,8 @@ class _Plan:
     tasks: list[dict[str, Any]]
     rows: dict[str, dict[str, Any]]
     pending: list[dict[str, Any]]
-    control_record: dict[str, Any] | None
+    #: each control split's record (None: its control slices must be built)
+    control_records: dict[int, dict[str, Any] | None]
 
 
 def _plan_models(
@@ -680,19 +703,25 @@ def _plan_models(
     params: TrainParams,
     labels: list[str],
     pair: list[str] | None,
-    shuffle_seed: int,
+    control_splits: int,
 ) -> _Plan:
     """Split the run's models into finished ones (same slice file, same parameters) and the rest.
 
     Control models whose control slices must be rebuilt are all pending; their fingerprints are
     filled in once the new control slices exist.
     """
-    control_record = current_control_slices(paths, pair, shuffle_seed) if pair else None
-    tasks = _model_tasks(paths, params, labels, control=pair is not None)
+    splits = range(1, control_splits + 1) if pair else range(0)
+    records = {
+        split: current_control_slices(
+            paths, pair, split_shuffle_seed(params.base_seed, split), split
+        )
+        for split in splits
+    }
+    tasks = _model_tasks(paths, params, labels, len(records))
     rows: dict[str, dict[str, Any]] = {}
     pending = []
     for task in tasks:
-        if task["group"] == "control" and control_record is None:
+        if task["group"] == "control" and records[task["split"]] is None:
             pending.append(task)
             continue
         task["fingerprint"] = model_fingerprint(task["model"], Path(task["corpus"]))
@@ -701,14 +730,14 @@ def _plan_models(
             pending.append(task)
         else:
             rows[task["key"]] = _result_row(task, done, reused=True)
-    return _Plan(tasks, rows, pending, control_record)
+    return _Plan(tasks, rows, pending, records)
 
 
 def _train_pending(
     paths: RunPaths,
     plan: _Plan,
     pair: list[str] | None,
-    shuffle_seed: int,
+    base_seed: int,
     *,
     engine: str,
     scheduler: str | None,
@@ -732,10 +761,13 @@ def _train_pending(
                     preload=POOL_PRELOAD,
                 )
             )
-        if pair and plan.control_record is None:
-            progress.update(overall, description="train: pooling the control pair")
-            plan.control_record = build_control_slices(paths, pair, shuffle_seed)
-            progress.update(overall, description="train: models")
+        for split, record in plan.control_records.items():
+            if record is None:
+                progress.update(overall, description="train: pooling the control pair")
+                plan.control_records[split] = build_control_slices(
+                    paths, pair, split_shuffle_seed(base_seed, split), split
+                )
+                progress.update(overall, description="train: models")
         for task in plan.pending:
             if task["fingerprint"] is None:
                 task["fingerprint"] = model_fingerprint(task["model"], Path(task["corpus"]))
@@ -767,6 +799,7 @@ def train_run(
     workers: int | None = _TRAIN.workers,
     between: tuple[str, str] | list[str] | None = None,
     control: bool = True,
+    control_splits: int = _TRAIN.control_splits,
     engine: str = _TRAIN.engine,
     scheduler: str | None = _TRAIN.scheduler,
     base_seed: int = _TRAIN.base_seed,
@@ -844,22 +877,24 @@ def train_run(
         seeds=seeds,
         base_seed=base_seed,
     )
-    TrainOptions(engine=engine, scheduler=scheduler, workers=workers)
+    TrainOptions(engine=engine, scheduler=scheduler, workers=workers,
+                 control_splits=control_splits)
     remote = engine == "dask" and bool(scheduler)
     cores = _resolve_workers(workers)
     paths = runfolder.existing_run(Path(run), needs="slices")
     labels = checked_slice_labels(paths)
     check_more_than_one_slice(paths, labels)
     pair = resolve_between(labels, between) if control else None
-    shuffle_seed = params.base_seed
     stage_params = {**asdict(params), "control": bool(control), "between": pair}
+    if control and control_splits > 1:  # absent for one split, as in runs made before the option
+        stage_params["control_splits"] = int(control_splits)
     inputs = _slices_fingerprint(paths, labels)
 
     with runfolder.run_lock(paths.root):
         if not runfolder.stage_is_current(paths.root, "train", stage_params, inputs):
             runfolder.forget_stage(paths.root, "train")  # never leave a record of other models
         remove_stale_temporaries(paths)
-        plan = _plan_models(paths, params, labels, pair, shuffle_seed)
+        plan = _plan_models(paths, params, labels, pair, control_splits)
         processes, threads = engines.plan_workers(len(plan.pending), cores)
         if remote:  # the cluster decides the processes; --workers is gensim threads per model
             processes, threads = 0, cores if workers else 1
@@ -869,7 +904,7 @@ def train_run(
             paths,
             plan,
             pair,
-            shuffle_seed,
+            params.base_seed,
             engine=engine,
             scheduler=scheduler,
             processes=processes,
@@ -883,7 +918,7 @@ def train_run(
             inputs,
             time.perf_counter() - started,
             extra={
-                "control": _control_summary(pair, shuffle_seed, plan.control_record),
+                "control": _control_summary(pair, params.base_seed, plan.control_records),
                 "labels": labels,
                 "execution": {
                     "engine": engine,
@@ -902,18 +937,42 @@ def train_run(
 
 
 def _control_summary(
-    pair: list[str] | None, shuffle_seed: int, record: dict[str, Any] | None
+    pair: list[str] | None, base_seed: int, records: dict[int, dict[str, Any] | None]
 ) -> dict[str, Any] | None:
-    """What run.json says about the control pair (None with --no-control)."""
-    if not pair or record is None:
+    """What run.json says about the control pair (None with --no-control): the first split's
+    labels, seed and sizes, and with more than one split each further split's."""
+    if not pair or not records or records.get(1) is None:
         return None
-    return {
+    first = records[1]
+    summary = {
         "between": pair,
-        "shuffle_seed": shuffle_seed,
+        "shuffle_seed": split_shuffle_seed(base_seed, 1),
         "labels": list(CONTROL_LABELS),
-        "lines": record["lines"],
-        "tokens": record["tokens"],
+        "lines": first["lines"],
+        "tokens": first["tokens"],
     }
+    if len(records) > 1:
+        summary["splits"] = len(records)
+        summary["more_splits"] = [
+            {
+                "labels": list(control_split_labels(split)),
+                "shuffle_seed": split_shuffle_seed(base_seed, split),
+                "lines": record["lines"],
+                "tokens": record["tokens"],
+            }
+            for split, record in sorted(records.items())
+            if split > 1 and record is not None
+        ]
+    return summary
+
+
+def control_labels_of(record: dict[str, Any] | None) -> list[tuple[str, str]]:
+    """The control pairs of a run's train record's ``control`` entry: one pair per split,
+    the first split first (none with --no-control)."""
+    if not record:
+        return []
+    more = [tuple(split["labels"]) for split in record.get("more_splits", [])]
+    return [tuple(record.get("labels", CONTROL_LABELS)), *more]
 
 
 # ---------------------------------------------------------------------------- reading results
@@ -1000,7 +1059,7 @@ def load_vectors(run: str | Path, label: str, seed: int, control: bool = False) 
     paths = RunPaths(Path(run))
     record = _train_record(run)
     if control:
-        known = list(CONTROL_LABELS) if record.get("control") else []
+        known = [name for names in control_labels_of(record.get("control")) for name in names]
         model_file = paths.control_model_file(label, seed)
     else:
         known = list(record.get("labels", []))

@@ -967,12 +967,18 @@ def control_html(data: RunData) -> str:
             "<p>The time-shuffled control gave no usable null (too few words measured in it), "
             "so z, p and q are not calibrated; treat the ranking as descriptive.</p>"
         )
+    splits = int((train.get("control") or {}).get("splits", 1))
+    averaged = (
+        f" Each word's own control measure is its average over {splits} control pairs, each the "
+        "compared slices pooled and split at random anew; the null is the first pair's."
+        if splits > 1 else ""
+    )
     return (
         f"<p>In the time-shuffled control, where no real change exists, the null flags "
         f"<strong>{fmt(int(flagged))}</strong> words at q ≤ {data.alpha:g}. A count near zero "
         "means the null is well calibrated; many flagged control words mean the q values below "
         f"are optimistic. {fmt(int(data.scores['significant'].fillna(False).astype(bool).sum()))} "
-        "real words are significant.</p>"
+        f"real words are significant.{averaged}</p>"
     )
 
 
