@@ -4,6 +4,10 @@ Run by hand (never in the test suite):
 
     python benchmarks/dask_slice_bench.py                          # 2 GB in 200 .csv.gz files
     python benchmarks/dask_slice_bench.py --megabytes 300 --files 60   # a few minutes on 2 cores
+    python benchmarks/dask_slice_bench.py --megabytes 400 --files 1 --plain  # one large CSV
+
+With ``--plain`` the files are uncompressed CSV; a file over 64 MB is then read in pieces that
+start at a row (one Dask task each), so even one large file spreads over the workers.
 
 It writes ``--files`` gzipped CSV files (id, date, text) of synthetic documents (the generator of
 ``slice_bench.py``) holding ``--megabytes`` MB of CSV text in all into a temporary folder under
@@ -48,9 +52,11 @@ DASK_RUN = (
 )
 
 
-def write_parts(folder: Path, megabytes: float, files: int, pool: list[str]) -> float:
-    """``files`` gzipped CSV files holding about ``megabytes`` MB of CSV text; returns the MB
-    of CSV text written."""
+def write_parts(
+    folder: Path, megabytes: float, files: int, pool: list[str], plain: bool = False
+) -> float:
+    """``files`` gzipped (``plain``: uncompressed) CSV files holding about ``megabytes`` MB of
+    CSV text; returns the MB of CSV text written."""
     folder.mkdir(parents=True, exist_ok=True)
     rng = np.random.default_rng(3)
     per_file = megabytes * 1e6 / files
@@ -68,7 +74,10 @@ def write_parts(folder: Path, megabytes: float, files: int, pool: list[str]) -> 
             size += len(line.encode("utf-8"))
         data = "".join(lines).encode("utf-8")
         total += len(data)
-        (folder / f"part-{number:04d}.csv.gz").write_bytes(gzip.compress(data, compresslevel=6))
+        if plain:
+            (folder / f"part-{number:04d}.csv").write_bytes(data)
+        else:
+            (folder / f"part-{number:04d}.csv.gz").write_bytes(gzip.compress(data, compresslevel=6))
     return total / 1e6
 
 
@@ -144,15 +153,16 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--megabytes", type=float, default=2000, help="MB of CSV text in all")
     parser.add_argument("--files", type=int, default=200, help="number of .csv.gz files")
+    parser.add_argument("--plain", action="store_true", help="uncompressed .csv files")
     args = parser.parse_args()
     with tempfile.TemporaryDirectory(prefix="drift-dask-slice-bench-", dir="/tmp") as folder:
         folder = Path(folder)
         clock = time.perf_counter()
         pool = document_pool(np.random.default_rng(0))
-        csv_mb = write_parts(folder / "parts", args.megabytes, args.files, pool)
+        csv_mb = write_parts(folder / "parts", args.megabytes, args.files, pool, args.plain)
         packed = sum(p.stat().st_size for p in (folder / "parts").iterdir()) / 1e6
         print(
-            f"generated {args.files} files: {csv_mb:.0f} MB of CSV, {packed:.0f} MB gzipped, "
+            f"generated {args.files} files: {csv_mb:.0f} MB of CSV, {packed:.0f} MB on disk, "
             f"in {time.perf_counter() - clock:.0f} s"
         )
         print(f"machine: {os.cpu_count()} CPUs, {psutil.virtual_memory().total / 1e9:.1f} GB")

@@ -805,7 +805,7 @@ def train_run(
     base_seed: int = _TRAIN.base_seed,
     quiet: bool = False,
 ) -> pd.DataFrame:
-    """Train every slice-by-seed model of a run (and the control pair), reusing finished ones.
+    """Train every slice-by-seed model of a run (and the control pairs), reusing finished ones.
 
     One gensim Word2Vec model per slice and seed (seed ``base_seed + k`` for model k), plus the
     time-shuffled control pair that stands for the two compared slices. Models already finished
@@ -832,6 +832,10 @@ def train_run(
         The two slices the control pair stands for (default: the first and the last).
     control : bool
         Train the control pair (without it ranking gives no z, p or q).
+    control_splits : int
+        Control pairs to draw (each a new random split of the pooled compared slices,
+        ``control-a-2``/``control-b-2`` and so on after the first); ranking averages each
+        word's own control measure over them.
     engine : str
         ``local`` (a process pool) or ``dask``.
     scheduler : str, optional
