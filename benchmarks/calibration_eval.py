@@ -184,8 +184,9 @@ CANDIDATES = {
     "local, paired": ("local", dict()),
     "evidence, paired (default)": ("evidence", dict()),
     "evidence, paired noise null only": ("evidence", dict(paired_drift=False)),
-    # on a run trained with --control-splits 2: its first control split only, and both
+    # on a run trained with --control-splits N: its first one or two control splits only
     "evidence, paired, first control split only": ("evidence", dict(control_splits=1)),
+    "evidence, paired, first two control splits": ("evidence", dict(control_splits=2)),
 }
 DEFAULT_CANDIDATE = "evidence, paired (default)"
 
@@ -229,7 +230,14 @@ def candidate_scores(run: Path, trims: list[float]) -> dict[str, pd.DataFrame]:
     )
 
     cache = run.parent / f"candidates-{run.name}"
+    trained = json.loads((run / "run.json").read_text())["stages"]["train"]["outputs"]
+    stamp = cache / "trained-models.txt"  # the models the cache was made from
+    if cache.exists() and (not stamp.exists() or stamp.read_text() != trained):
+        import shutil
+
+        shutil.rmtree(cache)  # the run was trained again since
     cache.mkdir(exist_ok=True)
+    stamp.write_text(trained)
     inputs = read_run_inputs(run)
     pair = (inputs.labels[0], inputs.labels[-1])
     out = {}
