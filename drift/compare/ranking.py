@@ -70,6 +70,7 @@ from drift.compare.runinputs import (
     CONTROL_NAMES,
     RunInputs,
     candidate_words,
+    control_pairs,
     counts_for,
     load_slice_vectors,
     per_million,
@@ -300,7 +301,7 @@ def measure_run(
         raise DriftError(
             f"Slices {slice_from} and {slice_to} share no words; check the slicing and min count."
         )
-    steps = len(inputs.seeds) * (len(inputs.labels) + (2 if inputs.control else 0))
+    steps = len(inputs.seeds) * (len(inputs.labels) + 2 * len(control_pairs(inputs)))
     results: list[SeedResult] = []
     cand_words: list[str] = []
     seed_zero: dict[str, SliceVectors] | None = None

@@ -257,7 +257,7 @@ def measure_seed(
     if inputs.control:
         control, models = measure_control(inputs, seed, cand_words, k, anchors, advance, trim)
         more_controls = [
-            measure_control(inputs, seed, cand_words, k, anchors, None, trim, names)[0]
+            measure_control(inputs, seed, cand_words, k, anchors, advance, trim, names)[0]
             for names in control_pairs(inputs)[1:]
         ]
         if first_seed is not None:

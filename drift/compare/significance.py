@@ -318,8 +318,7 @@ def _paired_calibration(
                         drift_null=drift_null, alpha=alpha, own=drift_own)
     for column in ("noise_z", "noise_p", "noise_q"):
         columns[column] = noise_columns[column].to_numpy()
-    if drift_null is not None:
-        columns = with_headline(columns, alpha)
+    columns = with_headline(columns, alpha, answerable=drift_null is not None)  # paired noise
     return _with_significance(columns, noise, control_null, drift_null, reasons, record), \
         displacement_null, record
 
@@ -384,8 +383,8 @@ def own_control_values(
     null's third covariate. A word the control models lack gets the noise null's centre: the
     control measure expected of a word of its count and seed noise."""
     splits = [[r.control for r in measured.results if r.control is not None]]
-    more = (getattr(r, "more_controls", []) for r in measured.results)  # older caches lack it
-    splits += [list(split) for split in zip(*more, strict=True)]
+    splits += [list(split) for split in zip(*(r.more_controls for r in measured.results),
+                                            strict=True)]
     per_split = []
     for controls in splits:
         values, _ = mean_and_spread([c.value(measure) for c in controls])

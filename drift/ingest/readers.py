@@ -542,6 +542,21 @@ class Reader:
         if piece is not None:
             raise ValueError(f"{self.path.name} cannot be read in parts")
 
+    def _byte_ranges_possible(self, size: int) -> bool:
+        """Whether the file can be read in byte ranges of about ``size``: larger than that,
+        uncompressed, and in UTF-8 or detected but not UTF-16 (a range must start at a whole
+        character that means the same wherever it stands)."""
+        if self.compression or self.encoding not in (None, "utf-8") or self.total_bytes <= size:
+            return False
+        with open(self.path, "rb") as handle:
+            return handle.read(2) not in (b"\xff\xfe", b"\xfe\xff")
+
+    def _byte_ranges(self, starts: list[int]) -> list[tuple[int, int] | None]:
+        """The ranges from each start to the next (the last to the end of the file)."""
+        if len(starts) == 1:
+            return [None]
+        return list(zip(starts, [*starts[1:], self.total_bytes], strict=True))
+
     def batches(self) -> Iterator[DocBatch]:  # pragma: no cover - overridden
         raise NotImplementedError
 
@@ -622,18 +637,12 @@ class CsvReader(Reader):
         """Byte ranges that start at a row (after a line break outside every quoted field), for
         uncompressed files in UTF-8 or detected (not UTF-16) whose quoting is plain (see
         :func:`csv_row_starts`); other files are read whole."""
-        total = self.total_bytes
         delimiter = self._parse.delimiter
-        if (self.compression or self.encoding not in (None, "utf-8") or total <= size
-                or len(delimiter.encode("utf-8")) != 1 or delimiter == '"'):
+        if (not self._byte_ranges_possible(size) or len(delimiter.encode("utf-8")) != 1
+                or delimiter == '"'):
             return [None]
-        with open(self.path, "rb") as handle:
-            if handle.read(2) in (b"\xff\xfe", b"\xfe\xff"):  # UTF-16: read whole
-                return [None]
         starts = csv_row_starts(self.path, delimiter.encode("utf-8"), size)
-        if starts is None or len(starts) == 1:
-            return [None]
-        return list(zip(starts, [*starts[1:], total], strict=True))
+        return [None] if starts is None else self._byte_ranges(starts)
 
     def restrict(self, piece: tuple[int, int] | None) -> None:
         self.byte_range = piece
@@ -757,13 +766,10 @@ class JsonLinesReader(Reader):
     def pieces(self, size: int) -> list[tuple[int, int] | None]:
         """Byte ranges that start at the beginning of a line (a line break never occurs inside
         a JSON string or a UTF-8 character), for uncompressed files in UTF-8 or detected."""
-        total = self.total_bytes
-        if self.compression or self.encoding not in (None, "utf-8") or total <= size:
+        if not self._byte_ranges_possible(size):
             return [None]
-        starts = [0]
+        total, starts = self.total_bytes, [0]
         with open(self.path, "rb") as handle:
-            if handle.read(2) in (b"\xff\xfe", b"\xfe\xff"):  # UTF-16: read whole
-                return [None]
             for guess in range(size, total, size):
                 if guess <= starts[-1]:
                     continue
@@ -771,8 +777,7 @@ class JsonLinesReader(Reader):
                 handle.readline()  # to the start of the next line
                 if handle.tell() < total:
                     starts.append(handle.tell())
-        ends = [*starts[1:], total]
-        return [None] if len(starts) == 1 else list(zip(starts, ends, strict=True))
+        return self._byte_ranges(starts)
 
     def restrict(self, piece: tuple[int, int] | None) -> None:
         self.byte_range = piece
