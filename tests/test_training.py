@@ -451,6 +451,30 @@ def test_a_tampered_model_file_runs_nothing(trained, tmp_path):
     assert not marker.exists()
 
 
+def test_a_vocabulary_from_another_parquet_writer_reads_as_pandas_reads_it(tmp_path):
+    """Counts in several row groups, as int32, read as pandas.read_parquet reads them; a
+    missing count is refused."""
+    import pandas as pd
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    model = tmp_path / "seed-0.npy"
+    words = [f"w{i}" for i in range(250)]
+    training.save_model(model, words, np.ones((250, 4), np.float32), np.arange(250) * 3)
+    vocabulary = training.vocabulary_file(model)
+    table = pa.table({"word": words, "count": pa.array(np.arange(250) * 7, pa.int32())})
+    pq.write_table(table, vocabulary, row_group_size=64)  # four row groups: four chunks
+    read_words, _, counts = training.read_model(model)
+    expected = pd.read_parquet(vocabulary)
+    assert read_words == expected["word"].tolist()
+    np.testing.assert_array_equal(counts, expected["count"].to_numpy())
+    assert counts.dtype == np.int64
+    with_gap = table.set_column(1, "count", pa.array([None] + list(range(1, 250)), pa.int64()))
+    pq.write_table(with_gap, vocabulary)
+    with pytest.raises(DriftError, match="a word without a count"):
+        training.read_model(model)
+
+
 def test_a_run_folder_with_pickled_models_is_refused(tmp_path):
     old = tmp_path / "old"
     old.mkdir()

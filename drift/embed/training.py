@@ -434,8 +434,9 @@ def read_model(model_file: str | Path) -> tuple[list[str], np.ndarray, np.ndarra
         raise _tampered(model_file, str(exc).split("\n")[0][:120]) from None
     if not isinstance(vectors, np.ndarray) or vectors.ndim != 2 or vectors.dtype.kind != "f":
         raise _tampered(model_file, "not a two-dimensional array of floating-point numbers")
-    try:
-        table = pq.read_table(vocab_file)
+    try:  # ParquetFile, not read_table: that imports pyarrow.dataset and pandas (~0.5 s once)
+        with pq.ParquetFile(vocab_file) as parquet:
+            table = parquet.read()
     except (pa.ArrowException, OSError) as exc:
         raise _tampered(vocab_file, str(exc).split("\n")[0][:120]) from None
     schema = table.schema
@@ -448,9 +449,22 @@ def read_model(model_file: str | Path) -> tuple[list[str], np.ndarray, np.ndarra
     if table.num_rows != vectors.shape[0]:
         shape = f"{vectors.shape[0]} vectors for {table.num_rows} words in {vocab_file.name}"
         raise _tampered(model_file, shape)
+    counts = table.column("count").combine_chunks().cast(pa.int64())
+    if counts.null_count:
+        raise _tampered(vocab_file, "a word without a count")
     words = table.column("word").to_pylist()
-    counts = table.column("count").to_numpy().astype(np.int64)
-    return words, vectors, counts
+    return words, vectors, _int64_values(counts)
+
+
+def _int64_values(array: Any) -> np.ndarray:
+    """A copy of a null-free Arrow int64 array as numpy, read from its data buffer.
+
+    ``Array.to_numpy`` would import pandas (about 0.5 s) in a process that has not yet.
+    """
+    data = array.buffers()[1]
+    if data is None:  # an empty array
+        return np.zeros(0, dtype=np.int64)
+    return np.frombuffer(data, dtype=np.int64, count=len(array), offset=array.offset * 8).copy()
 
 
 def _epoch_callback(report: Callable[[int, int], None], total: int) -> Any:
