@@ -123,6 +123,18 @@ def test_parameter_fingerprint_ignores_key_order():
 # ---------------------------------------------------------------------------- manifest
 
 
+def test_recorded_library_versions_are_those_the_libraries_report():
+    """Read from package metadata without importing; each equals the module's __version__."""
+    import gensim
+    import numpy
+    import pandas
+    import scipy
+
+    versions = runfolder.library_versions()
+    for module in (numpy, scipy, pandas, gensim):
+        assert versions[module.__name__] == module.__version__
+
+
 def test_a_stage_is_current_only_with_the_same_params_and_inputs(tmp_path):
     runfolder.record_stage(tmp_path, "train", {"dim": 8}, "inputs-1", 1.23456, {"labels": ["a"]})
     manifest = runfolder.read_manifest(tmp_path)

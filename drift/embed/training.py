@@ -789,8 +789,6 @@ def _train_pending(
         plan.pending.sort(key=lambda task: -Path(task["corpus"]).stat().st_size)
         by_key = {task["key"]: task for task in plan.pending}
         if runner is not None:
-            # run.json records library versions; import them while the workers train
-            threading.Thread(target=runfolder.library_versions, daemon=True).start()
             for result in runner.run(train_one_model, plan.pending):
                 plan.rows[result["key"]] = _result_row(by_key[result["key"]], result, False)
                 bars.done(result["key"])
