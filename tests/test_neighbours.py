@@ -147,3 +147,60 @@ def test_rank_writes_the_table_for_every_measured_word(demo_run):
     scores = pd.read_parquet(RunPaths(demo_run.run).scores_parquet)
     assert table is not None and set(table["word"]) == set(scores["word"])
     assert neighbours.stored_k(table) == neighbours.PAGE_K
+
+
+def seed_lists(models: neighbours.RunModels, words: list[str], width: int) -> list[dict]:
+    """Each seed's best ``width`` candidates of ``words`` per slice, searched in full the way
+    the rank stage searches them (drift.compare.seedmeasures.slice_neighbours)."""
+    from drift.compare.seedmeasures import slice_neighbours
+
+    index = {w: i for i, w in enumerate(models.candidates)}
+    lists = []
+    for seed in models.seeds:
+        per_label = {}
+        for label in models.labels:
+            model = models.slices[(label, seed)]
+            candidates = model.vectors[model.rows(models.candidates)]
+            per_label[label] = slice_neighbours(model, words, candidates, index, width)
+        lists.append(per_label)
+    return lists
+
+
+def test_the_table_from_the_rank_lists_equals_a_full_search(run, monkeypatch):
+    """The threshold algorithm (Fagin, Lotem and Naor 2003) on two seeds' neighbour lists gives
+    the full seed-averaged search's neighbours; words whose lists cannot prove it, or that the
+    lists lack, are searched in full."""
+    models = neighbours.load_run_models(run)
+    words = list(pd.read_parquet(RunPaths(run).scores_parquet)["word"])
+    assert len(models.seeds) == 2
+    full = neighbours.compute_neighbours(models, words)
+    searched: list[int] = []
+    real_search = neighbours.compute_neighbours
+
+    def counted(models, asked, k=neighbours.PAGE_K):
+        searched.append(len(asked))
+        return real_search(models, asked, k)
+
+    monkeypatch.setattr(neighbours, "compute_neighbours", counted)
+    # this fixture's small models agree little between seeds: top-50 lists prove most words
+    from_lists = neighbours.table_from_lists(models, words, words, seed_lists(models, words, 50))
+    assert sum(searched) < len(words) / 10
+    keys = ["word", "slice", "rank"]
+    pd.testing.assert_frame_equal(from_lists[keys], full[keys])
+    np.testing.assert_allclose(from_lists["similarity"], full["similarity"], atol=1e-6)
+    differs = (from_lists["neighbour"] != full["neighbour"]).to_numpy()
+    near_tie = np.abs(np.diff(full["similarity"].to_numpy(), prepend=np.nan)) < 1e-6
+    near_tie |= np.roll(near_tie, -1)
+    assert not (differs & ~near_tie).any()  # only within float32 rounding of a tie
+    # lists of exactly k prove nothing for two seeds: every word is searched in full
+    searched.clear()
+    short = neighbours.table_from_lists(models, words[:30], words, seed_lists(models, words, 10))
+    assert searched == [30]
+    pd.testing.assert_frame_equal(short, real_search(models, words[:30]))
+    # a word the lists lack is searched in full too
+    searched.clear()
+    lists = seed_lists(models, words[1:], 50)
+    mixed = neighbours.table_from_lists(models, words[:5], words[1:], lists)
+    assert searched and searched[0] >= 1
+    expected = full[full["word"].isin(words[:5])].reset_index(drop=True)
+    pd.testing.assert_frame_equal(mixed[keys + ["neighbour"]], expected[keys + ["neighbour"]])

@@ -21,7 +21,7 @@ import pandas as pd
 
 from drift import runfolder
 from drift.compare.alignment import SliceVectors
-from drift.compare.measures import block_rows_for
+from drift.compare.measures import Neighbours, block_rows_for, gathered_similarities
 from drift.errors import DriftError, unknown_word_error
 
 #: Neighbours per slice shown on word pages and stored in neighbours.parquet; the word pages'
@@ -76,12 +76,7 @@ def compute_neighbours(models: RunModels, words: Sequence[str], k: int = PAGE_K)
     Rows ordered by the given word order, then slice (time order), then rank.
     """
     k = check_k(k)
-    cands = models.candidates
-    if len(cands) <= k:
-        raise DriftError(
-            f"Only {len(cands)} words are known to every slice, too few for --k {k} neighbours; "
-            "use a smaller --k or more text per slice."
-        )
+    cands = _check_candidates(models, k)
     cand_index = {w: i for i, w in enumerate(cands)}
     order = {w: i for i, w in enumerate(dict.fromkeys(words))}
     frames = []
@@ -107,19 +102,108 @@ def compute_neighbours(models: RunModels, words: Sequence[str], k: int = PAGE_K)
             rank_order = np.argsort(-sims, axis=1, kind="stable")
             best = np.take_along_axis(best, rank_order, axis=1)
             sims = np.take_along_axis(sims, rank_order, axis=1)
-            frames.append(
-                pd.DataFrame(
-                    {
-                        "word": np.repeat(np.asarray(block, dtype=object), k),
-                        "slice": label,
-                        "rank": np.tile(np.arange(1, k + 1, dtype=np.int64), len(block)),
-                        "neighbour": np.asarray(cands, dtype=object)[best.ravel()],
-                        "similarity": sims.ravel().astype(np.float64),
-                        "_w": np.repeat([order[w] for w in block], k),
-                        "_s": at,
-                    }
-                )
-            )
+            frames.append(_rows_frame(block, label, at, best, sims, cands, order))
+    return _ordered_table(frames)
+
+
+def table_from_lists(
+    models: RunModels,
+    words: Sequence[str],
+    listed_words: Sequence[str],
+    lists: Sequence[dict[str, Neighbours]],
+    k: int = PAGE_K,
+) -> pd.DataFrame:
+    """:func:`compute_neighbours` assembled from neighbour lists the rank stage already found.
+
+    ``lists[i][label]`` holds seed ``i``'s best candidates (rows of ``models.candidates``, best
+    first) for each of ``listed_words`` in slice ``label``. A word's seed-averaged similarity
+    is computed for every candidate in any seed's list, and its best ``k`` are exact when the
+    ``k``-th of them beats the average of the seeds' last listed similarities: a candidate in
+    no list is at most that similar in every seed (the threshold algorithm; Fagin, Lotem and
+    Naor 2003). Words where it does not, and words not listed, are searched in full with
+    :func:`compute_neighbours`. Same rows as it, up to float32 rounding of near ties.
+    """
+    k = check_k(k)
+    cands = _check_candidates(models, k)
+    widths = [found.indices.shape[1] for seed_lists in lists for found in seed_lists.values()]
+    if len(lists) != len(models.seeds) or not widths or min(widths) < k:
+        return compute_neighbours(models, words, k)
+    row_of = {w: i for i, w in enumerate(listed_words)}
+    order = {w: i for i, w in enumerate(dict.fromkeys(words))}
+    unsure = {w for w in order if w not in row_of}
+    frames = []
+    for at, label in enumerate(models.labels):
+        per_seed = [models.slices[(label, seed)] for seed in models.seeds]
+        found = [seed_lists[label] for seed_lists in lists]
+        listed = [w for w in order if w in row_of]
+        rows = np.array([row_of[w] for w in listed], dtype=np.int64)
+        present = np.ones(len(rows), dtype=bool)
+        for one in found:
+            present &= one.indices[rows, 0] >= 0
+        block, rows = [w for w, p in zip(listed, present, strict=True) if p], rows[present]
+        if not block:
+            continue
+        ids = np.sort(np.concatenate([one.indices[rows] for one in found], axis=1), axis=1)
+        repeated = np.zeros(ids.shape, dtype=bool)
+        repeated[:, 1:] = ids[:, 1:] == ids[:, :-1]
+        total = np.zeros(ids.shape, dtype=np.float64)
+        for s in per_seed:
+            total += gathered_similarities(s.vectors[s.rows(block)], s.vectors[s.rows(cands)], ids)
+        total /= len(per_seed)
+        total[repeated] = -np.inf
+        best = np.argsort(-total, axis=1, kind="stable")[:, :k]
+        sims = np.take_along_axis(total, best, axis=1)
+        bound = np.mean([one.similarities[rows, -1] for one in found], axis=0)
+        sure = sims[:, k - 1] > bound + _ROUNDING
+        unsure.update(w for w, ok in zip(block, sure, strict=True) if not ok)
+        frames.append(_rows_frame(block, label, at, np.take_along_axis(ids, best, axis=1),
+                                  sims, cands, order))
+    if not unsure:
+        return _ordered_table(frames)
+    searched = compute_neighbours(models, [w for w in order if w in unsure], k)
+    searched["_w"] = searched["word"].map(order)
+    searched["_s"] = searched["slice"].map({label: at for at, label in enumerate(models.labels)})
+    kept = [frame[~frame["word"].isin(unsure)] for frame in frames]
+    return _ordered_table([*kept, searched])
+
+
+#: float32 similarities computed in two ways (a matrix product, a gathered dot product) differ
+#: by about 1e-7; a list counts as exact only with this margin above its bound
+_ROUNDING = 1e-5
+
+
+def _check_candidates(models: RunModels, k: int) -> list[str]:
+    cands = models.candidates
+    if len(cands) <= k:
+        raise DriftError(
+            f"Only {len(cands)} words are known to every slice, too few for --k {k} neighbours; "
+            "use a smaller --k or more text per slice."
+        )
+    return cands
+
+
+def _rows_frame(
+    block: Sequence[str], label: str, at: int, best: np.ndarray, sims: np.ndarray,
+    cands: Sequence[str], order: dict[str, int],
+) -> pd.DataFrame:
+    """The table rows of ``block``'s words in one slice (with sort keys ``_w`` and ``_s``)."""
+    k = best.shape[1]
+    return pd.DataFrame(
+        {
+            "word": np.repeat(np.asarray(block, dtype=object), k),
+            "slice": label,
+            "rank": np.tile(np.arange(1, k + 1, dtype=np.int64), len(block)),
+            "neighbour": np.asarray(cands, dtype=object)[best.ravel()],
+            "similarity": sims.ravel().astype(np.float64),
+            "_w": np.repeat([order[w] for w in block], k),
+            "_s": at,
+        }
+    )
+
+
+def _ordered_table(frames: list[pd.DataFrame]) -> pd.DataFrame:
+    """The frames' rows by word order, slice and rank, without the sort keys."""
+    frames = [frame for frame in frames if len(frame)]
     if not frames:
         return empty_table()
     table = pd.concat(frames, ignore_index=True).sort_values(["_w", "_s", "rank"], kind="stable")
@@ -139,11 +223,18 @@ def empty_table() -> pd.DataFrame:
 
 
 def write_neighbours_table(
-    run: str | Path, words: Sequence[str], k: int = PAGE_K, models: RunModels | None = None
+    run: str | Path, words: Sequence[str], k: int = PAGE_K, models: RunModels | None = None,
+    listed: tuple[Sequence[str], Sequence[dict[str, Neighbours]]] | None = None,
 ) -> Path:
-    """Compute the neighbours of ``words`` and write RUN/neighbours.parquet; return its path."""
+    """Compute the neighbours of ``words`` and write RUN/neighbours.parquet; return its path.
+
+    ``listed`` (the rank stage's measured words and its per-seed neighbour lists) spares a
+    second full search (:func:`table_from_lists`)."""
     models = models or load_run_models(run)
-    table = compute_neighbours(models, words, k)
+    if listed is None:
+        table = compute_neighbours(models, words, k)
+    else:
+        table = table_from_lists(models, words, listed[0], listed[1], k)
     return runfolder.write_table(Path(run), "neighbours", table)
 
 

@@ -461,7 +461,7 @@ def rank_run(
             note(str(scores["significance_note"].iloc[0]) + ".", quiet)
         for name, table in (("scores", scores), ("timeline", timeline), ("terms", terms)):
             runfolder.write_table(root, name, table)
-        _write_neighbours(root, list(scores["word"]))
+        _write_neighbours(root, list(scores["word"]), measured)
         runfolder.record_stage(
             root, "rank", params, fingerprint, time.perf_counter() - started, extra=extra,
             outputs=[*outputs, paths.scores_csv],
@@ -469,11 +469,16 @@ def rank_run(
     return read_scores(root)  # the same types as a reused result
 
 
-def _write_neighbours(root: Path, words: list[str]) -> None:
-    """neighbours.parquet: each measured word's neighbours per slice at the word pages' k."""
-    from drift.compare.neighbours import write_neighbours_table
+def _write_neighbours(root: Path, words: list[str], measured: Measured) -> None:
+    """neighbours.parquet: each measured word's neighbours per slice at the word pages' k,
+    assembled from the neighbour lists the measures were computed from."""
+    from drift.compare.neighbours import load_run_models, write_neighbours_table
 
-    write_neighbours_table(root, words)
+    models = load_run_models(root)
+    listed = None
+    if models.candidates == measured.cand_words:
+        listed = (measured.words, [result.near for result in measured.results])
+    write_neighbours_table(root, words, models=models, listed=listed)
 
 
 def compute_scores(

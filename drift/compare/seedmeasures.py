@@ -27,6 +27,7 @@ from drift.compare.measures import (
     local_change_rows,
     top_k_neighbours,
 )
+from drift.compare.neighbours import PAGE_K
 from drift.compare.runinputs import (
     CONTROL_NAMES,
     RunInputs,
@@ -39,6 +40,10 @@ from drift.options import RankOptions, default
 
 #: Default share of anchors left out of the refitted alignment (see alignment.align_onto).
 DEFAULT_ANCHOR_TRIM: float = default(RankOptions, "anchor_trim")
+#: Neighbours per word and slice kept from the rank's search for the neighbours table: twice
+#: the word pages' k, so that the seed-averaged top k is found among them (see
+#: :func:`drift.compare.neighbours.table_from_lists`).
+KEPT_NEIGHBOURS: int = 2 * PAGE_K
 
 
 def slice_neighbours(
@@ -164,6 +169,9 @@ class SeedResult:
     steps: np.ndarray | None = None
     #: the control pair of every further control split (train --control-splits), in order
     more_controls: list[PairMeasures] = field(default_factory=list)
+    #: per slice, each measured word's best neighbours among the candidates (best first, cut
+    #: to :data:`KEPT_NEIGHBOURS`): the neighbours table is assembled from them
+    near: dict[str, Neighbours] = field(default_factory=dict)
 
 
 def _instability_of(first: SliceVectors, other: SliceVectors, words: Sequence[str]) -> np.ndarray:
@@ -251,6 +259,9 @@ def measure_seed(
         instability = np.column_stack(
             [_instability_of(first_seed[label], slices[label], words) for label in labels]
         )
+    kept = min(k, KEPT_NEIGHBOURS)
+    near = {label: Neighbours(found.indices[:, :kept].copy(), found.similarities[:, :kept].copy())
+            for label, found in neighbours.items()}
     del candidates, neighbours
 
     control, control_instability, more_controls = None, None, []
@@ -267,7 +278,7 @@ def measure_seed(
             )
         slices.update(models)
     result = SeedResult(pair_result, distance, turnover, control, instability,
-                        control_instability, steps, more_controls)
+                        control_instability, steps, more_controls, near)
     return result, cand_words, slices, k
 
 
