@@ -36,29 +36,23 @@ from pathlib import Path
 
 import numpy as np
 
+DRIFT_LOADER = """
+import sys, time
+from pathlib import Path
+{imports}
+from drift.embed.training import read_model
+started = time.perf_counter()
+models = [read_model(path) for path in sorted(Path(sys.argv[1]).glob("m*/seed-0.npy"))]
+if sys.argv[2] == "read":
+    total = sum(float(vectors.sum(dtype="float64")) for _, vectors, _ in models)
+print(time.perf_counter() - started)
+"""
+
 LOADERS = {
-    "drift": """
-import sys, time
-from pathlib import Path
-import pyarrow.parquet  # imported before the clock starts, as gensim is for the other way
-from drift.embed.training import read_model
-started = time.perf_counter()
-models = [read_model(path) for path in sorted(Path(sys.argv[1]).glob("m*/seed-0.npy"))]
-if sys.argv[2] == "read":
-    total = sum(float(vectors.sum(dtype="float64")) for _, vectors, _ in models)
-print(time.perf_counter() - started)
-""",
-    "drift, pandas imported": """
-import sys, time
-from pathlib import Path
-import pandas, pyarrow.dataset  # what a drift command has imported before it opens models
-from drift.embed.training import read_model
-started = time.perf_counter()
-models = [read_model(path) for path in sorted(Path(sys.argv[1]).glob("m*/seed-0.npy"))]
-if sys.argv[2] == "read":
-    total = sum(float(vectors.sum(dtype="float64")) for _, vectors, _ in models)
-print(time.perf_counter() - started)
-""",
+    # imported before the clock starts, as gensim is for the pickles
+    "drift": DRIFT_LOADER.format(imports="import pyarrow.parquet"),
+    # what every drift command has imported before it opens models
+    "drift, pandas imported": DRIFT_LOADER.format(imports="import pandas, pyarrow.dataset"),
     "pickle": """
 import sys, time
 from pathlib import Path
@@ -125,7 +119,8 @@ def main() -> None:
             for kind in ("drift", "drift, pandas imported"):
                 d = medians[kind]
                 print(f"{label:26s} {kind:22s} {d[0]:7.3f} s, peak {d[1]:6.0f} MB | pickle "
-                      f"{p[0]:7.3f} s, peak {p[1]:6.0f} MB | pickle / drift time {p[0] / d[0]:6.1f}x")
+                      f"{p[0]:7.3f} s, peak {p[1]:6.0f} MB | "
+                      f"pickle / drift time {p[0] / d[0]:6.1f}x")
 
 
 if __name__ == "__main__":
