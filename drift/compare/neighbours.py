@@ -131,16 +131,17 @@ def table_from_lists(
     row_of = {w: i for i, w in enumerate(listed_words)}
     order = {w: i for i, w in enumerate(dict.fromkeys(words))}
     unsure = {w for w in order if w not in row_of}
+    listed = [w for w in order if w in row_of]
+    listed_rows = np.array([row_of[w] for w in listed], dtype=np.int64)
     frames = []
     for at, label in enumerate(models.labels):
         per_seed = [models.slices[(label, seed)] for seed in models.seeds]
         found = [seed_lists[label] for seed_lists in lists]
-        listed = [w for w in order if w in row_of]
-        rows = np.array([row_of[w] for w in listed], dtype=np.int64)
-        present = np.ones(len(rows), dtype=bool)
+        present = np.ones(len(listed_rows), dtype=bool)
         for one in found:
-            present &= one.indices[rows, 0] >= 0
-        block, rows = [w for w, p in zip(listed, present, strict=True) if p], rows[present]
+            present &= one.indices[listed_rows, 0] >= 0
+        block = [w for w, p in zip(listed, present, strict=True) if p]
+        rows = listed_rows[present]
         if not block:
             continue
         ids = np.sort(np.concatenate([one.indices[rows] for one in found], axis=1), axis=1)
