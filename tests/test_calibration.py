@@ -463,3 +463,44 @@ def test_paired_null_needs_words_below_zero():
     ratio = np.abs(np.random.default_rng(1).standard_normal(300)) + 0.1
     with pytest.raises(DriftError, match="moved less than in the control pair"):
         fit_paired_null(ratio, np.full(300, 100.0), np.full(300, 100.0))
+
+
+def test_variance_fit_matches_the_closed_form_likelihood():
+    """With one indicator column per group the normal likelihood's variance is each group's
+    mean square (the closed-form maximum-likelihood estimate of a zero-mean normal's variance,
+    a textbook result); the fit must reach it."""
+    from drift.compare.calibration import _variance_fit
+
+    rng = np.random.default_rng(5)
+    group = rng.integers(0, 3, 3000)
+    residuals = rng.standard_normal(3000) * np.array([0.5, 1.0, 3.0])[group]
+    design = np.column_stack([group == g for g in range(3)]).astype(float)
+    fitted = np.exp(_variance_fit(design, residuals))
+    expected = [np.mean(residuals[group == g] ** 2) for g in range(3)]
+    np.testing.assert_allclose(fitted, expected, rtol=1e-4)
+
+
+def test_paired_null_follows_a_spread_that_rises_steeply_towards_rare_words():
+    """The paired ratio's spread grows faster than log-linearly as the count falls (as on the
+    calibration benchmark's real shuffled text, README; here its variance gains a term in one
+    over the count, as a sampling variance would): the rarest fifth of words keeps its
+    level, about 1% of them below p = 0.01 across seeds (binomial bound, scipy.stats.binomtest),
+    as do the most frequent fifth."""
+    from drift.compare.calibration import fit_paired_null
+
+    rare_below = common_below = rare_total = common_total = 0
+    for seed in SEEDS:
+        rng = np.random.default_rng(700 + seed)
+        ratio, cf, ct, noise, _ = paired_words(rng, 3000)
+        xc = frequency_covariate(cf, ct)
+        ratio = ratio * np.sqrt(1.0 + 60.0 / np.exp(xc))  # a sampling term, like 1 / count
+        null = fit_paired_null(ratio, cf, ct, noise)
+        p = null.p_of_z(null.z(ratio, np.minimum(cf, ct), noise))
+        rare, common = xc <= np.quantile(xc, 0.2), xc >= np.quantile(xc, 0.8)
+        rare_below += int(np.sum(p[rare] <= 0.01))
+        rare_total += int(rare.sum())
+        common_below += int(np.sum(p[common] <= 0.01))
+        common_total += int(common.sum())
+    assert stats.binomtest(rare_below, rare_total, 0.01).pvalue > 0.001, rare_below / rare_total
+    assert stats.binomtest(common_below, common_total, 0.01).pvalue > 0.001, \
+        common_below / common_total
