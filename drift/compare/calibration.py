@@ -353,6 +353,8 @@ class Null:
             "words": self.words,
             "kept_after_trimming": self.kept,
             "tail": self.tail,
+            "spread": "a quadratic surface fitted by the normal likelihood"
+            if self.quadratic_spread else "a plane and the count's square, fitted by medians",
             "residual_sd": round(float(np.std(self.residuals)), 4),
             "residual_max": round(float(self.residuals[-1]), 3) if len(self.residuals) else None,
         }
