@@ -20,11 +20,12 @@ excess kurtosis near 0, while on the measure's own scale they were skewed with a
 centre is a median (least absolute deviation) fit of a quadratic surface of the two covariates,
 the spread a median fit of the log absolute residuals on a plane of the same covariates plus a
 square of the count (a plane bends less at the edges, where a few movers could otherwise widen
-it; the count's square lets the spread rise towards the rarest words, as it does); both are refitted after
-discarding points whose standardised residual exceeds ``TRIM_Z``, and the covariates are
-winsorised at their 1st and 99th percentiles, so that the words that really moved, even the most
-frequent ones, neither pull the centre up nor widen the spread. The spread is rescaled so that the
-median absolute standardised residual is that of a standard normal (0.6745). Then
+it; the count's square lets the spread rise towards the rarest words, as it does); both are
+refitted after discarding points whose standardised residual exceeds ``TRIM_Z``, and the
+covariates are winsorised at their 1st and 99th percentiles, so that the words that really
+moved, even the most frequent ones, neither pull the centre up nor widen the spread. The spread
+is rescaled so that the median absolute standardised residual is that of a standard normal
+(0.6745; the paired null's spread, see :func:`fit_paired_null`, is fitted otherwise). Then
 ``z = (log value - centre) / spread`` and p is one-sided (larger means more change).
 
 The two questions:
