@@ -24,7 +24,11 @@ import numpy as np
 import pandas as pd
 
 from drift.compare.alignment import AnchorSpec, align_onto
-from drift.compare.changepoint import mean_shifts
+from drift.compare.changepoint import (
+    best_boundary,
+    boundary_statistic,
+    slice_centre_and_spread,
+)
 from drift.compare.neighbours import RunModels
 
 #: Redraws of the timeline for the change point range, and the share of them the range covers.
@@ -174,15 +178,10 @@ class ChangeRange:
 
 def slice_standardiser(timeline: pd.DataFrame, labels: Sequence[str]):
     """Each slice's centre and spread of distance across all words, as the rank stage uses them
-    to choose boundaries (:func:`drift.compare.changepoint.standardise_by_slice`)."""
+    to choose boundaries (:func:`drift.compare.changepoint.slice_centre_and_spread`)."""
     wide = timeline.pivot_table(index="word", columns="slice", values="distance")
     wide = wide.reindex(columns=list(labels))
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", category=RuntimeWarning)
-        centre = np.nanmean(wide.to_numpy(dtype=float), axis=0)
-        spread = np.nanstd(wide.to_numpy(dtype=float), axis=0)
-    flat = ~np.isfinite(spread) | (spread <= 1e-9 * np.maximum(1.0, np.abs(centre)))
-    return np.nan_to_num(centre), np.where(flat, np.inf, spread)
+    return slice_centre_and_spread(wide.to_numpy(dtype=float))
 
 
 def change_range(
@@ -224,11 +223,10 @@ def change_range(
     draws[:, free] += rng.normal(size=(redraws, int(free.sum()))) * noise_sd[free]
     draws[:, fixed & observed] = y[fixed & observed]
     centre, spread = standardiser
-    chooser = mean_shifts((draws - centre) / spread)
-    usable = np.isfinite(chooser).any(axis=1)
+    best, usable = best_boundary(boundary_statistic((draws - centre) / spread))
     if not usable.any():
         return None
-    chosen = np.argmax(np.where(np.isfinite(chooser), np.abs(chooser), -1.0), axis=1)[usable] + 1
+    chosen = best[usable] + 1
     tail = (1.0 - coverage) / 2.0
     low = int(min(np.quantile(chosen, tail, method="lower"), at))
     high = int(max(np.quantile(chosen, 1.0 - tail, method="higher"), at))
