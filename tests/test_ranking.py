@@ -233,6 +233,17 @@ def test_rank_reuses_current_results_and_recomputes_on_change(own_geometry_run):
     )
 
 
+def test_rank_ranks_again_under_another_version_of_drift(own_geometry_run, monkeypatch):
+    """Scores depend on drift's own code: results left by another version are not reused."""
+    root, _ = own_geometry_run
+    paths = runfolder.RunPaths(root)
+    rank_run(root, k=10, quiet=True)
+    before = paths.scores_parquet.stat().st_mtime_ns
+    monkeypatch.setattr(runfolder, "package_version", lambda: "0.0.0-another")
+    rank_run(root, k=10, quiet=True)
+    assert paths.scores_parquet.stat().st_mtime_ns != before
+
+
 def test_evidence_combines_the_single_measure_rankings(own_geometry_run):
     """The default measure's z per null is Stouffer's combination of the z that displacement
     and local change get when each ranks the run alone, with the correlation run.json records

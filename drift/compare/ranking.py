@@ -336,6 +336,8 @@ def _inputs_fingerprint(inputs: RunInputs, anchor_words_list: list[str] | None) 
         "counts": runfolder.fingerprint_file(inputs.paths.counts),
         "summary": runfolder.fingerprint_file(inputs.paths.slice_summary),
         "anchors": anchor_words_list,
+        # scores depend on drift's own code too: a new version ranks again instead of reusing
+        "drift": runfolder.package_version(),
     }
     if inputs.control and inputs.paths.control_dir.is_dir():
         parts["control"] = runfolder.fingerprint_path(inputs.paths.control_dir)
