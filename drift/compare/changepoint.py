@@ -21,9 +21,9 @@ distance 0) does not pull every word's change point towards it. Two refinements:
   as one value among the others, so a word that moved right after it is placed there.
 
 The step reported is the mean shift in the raw distances at the chosen boundary. The boundary
-with the largest absolute z wins (the earliest on a tie). Missing values (a word absent from a
-slice) are left out of both means; a boundary is only considered when the slice right after it
-has a value and both sides have at least one value.
+with the largest absolute statistic wins (the earliest on a tie). Missing values (a word absent
+from a slice) are left out of both means; a boundary is only considered when the slice right
+after it has a value and both sides have at least one value.
 """
 
 from __future__ import annotations
@@ -115,10 +115,7 @@ def change_points(series: np.ndarray, standardise: bool = True) -> tuple[np.ndar
     if series.ndim != 2 or series.shape[1] < 2:
         return position, step
     raw = mean_shifts(series)
-    chooser = raw
-    if standardise:
-        centre, spread = slice_centre_and_spread(series)
-        chooser = boundary_statistic((series - centre) / spread)
+    chooser = boundary_statistic(standardise_by_slice(series)) if standardise else raw
     best, has_any = best_boundary(chooser)
     rows = np.flatnonzero(has_any)
     position[rows] = best[rows] + 1
