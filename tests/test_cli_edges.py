@@ -107,3 +107,20 @@ def test_readme_run_folder_listing_matches_a_real_run(demo_run):
     assert not unlisted, f"the README's run-folder listing misses {unlisted}"
     unused = [p for p in patterns if not any(fnmatch.fnmatch(f, p) for f in files)]
     assert not unused, f"the README lists {unused}, which a demo run does not hold"
+
+
+def test_the_command_line_starts_without_the_statistics_stack():
+    """`drift --help` and every command's parsing import neither pandas nor scipy: each stage
+    imports what it needs when it runs (the append benchmark counts every second of start-up as
+    drift's overhead on a year's training)."""
+    import subprocess
+    import sys
+
+    probe = (
+        "import sys, drift.cli; "
+        "print(sorted(m for m in ('pandas', 'scipy', 'scipy.stats', 'gensim', 'plotly') "
+        "if m in sys.modules))"
+    )
+    done = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True,
+                          check=True)
+    assert done.stdout.strip() == "[]"

@@ -10,7 +10,6 @@ from pathlib import Path
 import typer
 
 from drift.cli.options_cli import command, field_option
-from drift.cli.rank_views import print_rows
 from drift.errors import DriftError
 from drift.options import ExamplesOptions, ViewOptions
 
@@ -47,6 +46,7 @@ def examples_command(
 ) -> None:
     """Passages that use WORD in each slice, quoted from the original documents as written, with
     document id, date and metadata (one per document, spread over sources)."""
+    from drift.cli.rank_views import print_rows
     from drift.compare.targets import normalise_words, run_keeps_case
     from drift.publish.evidence import examples_for_words
 

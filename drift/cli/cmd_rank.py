@@ -8,7 +8,6 @@ import typer
 
 from drift.cli.app import QUIET_HELP
 from drift.cli.options_cli import command, field_option
-from drift.cli.rank_views import print_rows
 from drift.errors import DriftError
 from drift.options import (
     VECTOR_FORMATS,
@@ -30,7 +29,7 @@ def rank_command(
     view: ViewOptions = ViewOptions(),
 ) -> None:
     """Rank the words of RUN by how much their meaning moved; write scores, timeline and terms."""
-    from drift.cli.rank_views import scores_table
+    from drift.cli.rank_views import print_rows, scores_table
     from drift.compare.ranking import rank_record, rank_run
 
     scores = rank_run(run, quiet=quiet, **options.kwargs())
@@ -67,7 +66,7 @@ def neighbours_command(
     out: Path = typer.Option(None, "--out", "-o", help=_OUT_HELP, show_default=False),
 ) -> None:
     """List the nearest neighbours of WORD in every slice (similarity averaged over seeds)."""
-    from drift.cli.rank_views import neighbours_table
+    from drift.cli.rank_views import neighbours_table, print_rows
     from drift.compare.ranking import neighbours_by_slice, slice_labels
 
     view = ViewOptions(output_format=output_format)

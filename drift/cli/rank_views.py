@@ -25,7 +25,6 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
-from drift.compare.changepoint import change_warranted
 from drift.options import measure_phrase, measures_judged, score_column_of
 
 #: Neighbours shown per cell in the scores table, strongest first (the files hold up to 10).
@@ -120,6 +119,8 @@ def _q_cell(row: Any) -> Text:
 def _change_cell(row: Any) -> Text:
     """The change point, shown only where the pages show it too (a significant word that moved
     away: :func:`drift.compare.changepoint.change_warranted`)."""
+    from drift.compare.changepoint import change_warranted  # scipy.stats: only when ranking
+
     if not change_warranted(row._asdict()):
         return Text("-")
     return Text(f"{row.change_point} ({row.change_step:+.2f})")
