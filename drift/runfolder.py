@@ -233,7 +233,8 @@ def write_json_atomic(target: Path, data: Any) -> None:
 
 
 def fingerprint_file(path: Path, chunk_size: int = 1 << 20) -> str:
-    """A cheap, stable fingerprint of a file: size, mtime and a hash of its first and last MiB."""
+    """A cheap, stable fingerprint of a file: size, mtime and a hash of its first and last MiB
+    (for the archive's source files, which may be large; inside a run folder: content_print)."""
     path = Path(path)
     stat = path.stat()
     digest = hashlib.sha256(f"{stat.st_size}:{stat.st_mtime_ns}".encode())
@@ -245,17 +246,75 @@ def fingerprint_file(path: Path, chunk_size: int = 1 << 20) -> str:
     return digest.hexdigest()[:16]
 
 
-def fingerprint_content(path: Path, chunk_size: int = 1 << 20) -> str:
-    """A fingerprint of a file's content alone (size, first and last MiB), so that a copied run
-    folder (new modification times) still matches what its stages recorded."""
+#: A run folder's cache of its files' content digests, by path inside the folder:
+#: ``{"slices/1950s.txt": [size, mtime_ns, digest]}``. Only a speed-up: a missing, stale or
+#: unwritable cache means the file is read again.
+DIGEST_CACHE = ".content-digests.json"
+_DIGESTS: dict[Path, dict[str, list]] = {}
+
+
+def _run_root_of(path: Path) -> Path | None:
+    """The run folder that holds ``path`` (the nearest folder above it with a run.json)."""
+    for folder in list(path.parents)[:4]:
+        if (folder / MANIFEST_NAME).is_file():
+            return folder
+    return None
+
+
+def _digest_cache(root: Path) -> dict[str, list]:
+    if root not in _DIGESTS:
+        try:
+            _DIGESTS[root] = json.loads((root / DIGEST_CACHE).read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            _DIGESTS[root] = {}
+    return _DIGESTS[root]
+
+
+def _save_digest(root: Path, key: str, entry: list) -> None:
+    cache = _digest_cache(root)
+    cache[key] = entry
+    try:  # merged with what other processes added since this one read the cache
+        kept = json.loads((root / DIGEST_CACHE).read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        kept = {}
+    cache.update({name: value for name, value in kept.items() if name not in cache})
+    with contextlib.suppress(OSError):  # a read-only run folder: digests are not kept
+        write_text_atomic(root / DIGEST_CACHE, json.dumps(cache, sort_keys=True))
+
+
+def content_print(path: Path, chunk_size: int = 1 << 20) -> str:
+    """A fingerprint of a file's content alone: its size and a BLAKE2b digest of every byte.
+
+    Used for every file inside a run folder, so that a copied run folder (new modification
+    times) still matches what its stages recorded, and a change anywhere in a file shows. The
+    digest is kept in the run folder's :data:`DIGEST_CACHE` under the file's size and
+    modification time, so that a file is read in full only once after it changes.
+    """
     path = Path(path)
-    size = path.stat().st_size
-    digest = hashlib.sha256(str(size).encode())
+    stat = path.stat()
+    root = _run_root_of(path.absolute())
+    key = path.absolute().relative_to(root.absolute()).as_posix() if root else ""
+    if root is not None:
+        entry = _digest_cache(root).get(key)
+        if entry and entry[:2] == [stat.st_size, stat.st_mtime_ns]:
+            return str(entry[2])
+    digest = hashlib.blake2b(str(stat.st_size).encode(), digest_size=8)
     with path.open("rb") as handle:
-        digest.update(handle.read(chunk_size))
-        if size > chunk_size:
-            handle.seek(max(size - chunk_size, chunk_size))
-            digest.update(handle.read(chunk_size))
+        while chunk := handle.read(chunk_size):
+            digest.update(chunk)
+    value = digest.hexdigest()
+    if root is not None:
+        _save_digest(root, key, [stat.st_size, stat.st_mtime_ns, value])
+    return value
+
+
+def content_print_tree(folder: Path) -> str:
+    """:func:`content_print` of every file under ``folder`` (names included), in one hash."""
+    folder = Path(folder)
+    digest = hashlib.sha256()
+    for child in sorted(p for p in folder.rglob("*") if p.is_file()):
+        digest.update(child.relative_to(folder).as_posix().encode())
+        digest.update(content_print(child).encode())
     return digest.hexdigest()[:16]
 
 
@@ -401,7 +460,7 @@ def record_stage(
     }
     if outputs:
         stages[stage]["files"] = {
-            Path(p).name: fingerprint_content(Path(p)) for p in outputs if Path(p).is_file()
+            Path(p).name: content_print(Path(p)) for p in outputs if Path(p).is_file()
         }
     if changed or stage == "rank":  # a rank always rewrites its tables
         _after_change(root, manifest, stage)
@@ -450,7 +509,7 @@ def stale_reason(root: Path, stage: str) -> str | None:
     folder = Path(root)
     for name, recorded in (record.get("files") or {}).items():
         path = next((p for p in (folder / name,) if p.is_file()), None)
-        if path is None or fingerprint_content(path) != recorded:
+        if path is None or content_print(path) != recorded:
             return f"{name} changed after the {stage} stage wrote it"
     return None
 
@@ -486,7 +545,7 @@ def record_export(out: Path, root: Path, files: list[Path], params: dict[str, An
             "run": str(Path(root).resolve()),
             "params": params,
             "made_from": {s: stages.get(s, {}).get("fingerprint") for s in ("slice", "train")},
-            "files": {Path(p).name: fingerprint_content(Path(p)) for p in files},
+            "files": {Path(p).name: content_print(Path(p)) for p in files},
             "written": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
         },
     )

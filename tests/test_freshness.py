@@ -176,6 +176,22 @@ def test_stage_boundaries_are_recorded(run):
         assert runfolder.stale_reason(run, stage) is None
 
 
+def test_a_copied_run_folder_keeps_its_models_and_scores(ranked, tmp_path, capsys):
+    """A run folder copied without its modification times (cp -r, a download) is still current:
+    its stages record what the files hold, not when they were written."""
+    copy = Path(shutil.copytree(ranked, tmp_path / "copy", copy_function=shutil.copyfile))
+    (copy / runfolder.DIGEST_CACHE).unlink()  # as if it had not been copied either
+    tiny = ["--dim", "10", "--epochs", "1", "--seeds", "1", "--min-count", "5", "--workers", "1"]
+    code, out, err = _drift(["train", copy, *tiny], capsys)
+    assert code == 0, err
+    assert " 0 trained" in out
+    code, _, err = _drift(["rank", copy, "--k", "10", "--top", "3"], capsys)
+    assert code == 0, err
+    assert "are current; reusing them" in err
+    for stage in ("train", "rank", "charts"):
+        assert runfolder.stale_reason(copy, stage) is None
+
+
 def test_slice_to_train_boundary(run, small_demo_archive, capsys):
     """New slices make the models stale: rank and neighbours name 'drift train'."""
     code, _, err = _drift(

@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import os
 import re
+import shutil
 import subprocess
 import sys
 import time
@@ -103,6 +104,50 @@ def test_file_fingerprint_sees_changes_at_both_ends(tmp_path):
 
     assert rewrite(0) != first
     assert rewrite(size - 1) != first
+
+
+def _run_with_file(root: Path, size: int) -> Path:
+    root.mkdir(parents=True)
+    (root / runfolder.MANIFEST_NAME).write_text("{}")
+    (root / "slices").mkdir()
+    path = root / "slices" / "a.txt"
+    path.write_bytes(b"a" * size)
+    return path
+
+
+def test_content_print_sees_a_change_anywhere_but_not_a_new_modification_time(tmp_path):
+    size = 3 << 20
+    path = _run_with_file(tmp_path / "run", size)
+    first = runfolder.content_print(path)
+    os.utime(path, ns=(0, 10**18))  # only the modification time changes
+    assert runfolder.content_print(path) == first
+    copy = _run_with_file(tmp_path / "copy", 1)
+    shutil.copyfile(path, copy)  # a copied run folder: same bytes, new times
+    assert runfolder.content_print(copy) == first
+    data = bytearray(path.read_bytes())
+    data[size // 2] = ord("b")  # the middle, beyond the ends that fingerprint_file reads
+    path.write_bytes(bytes(data))
+    assert runfolder.content_print(path) != first
+
+
+def test_content_print_reads_a_file_once_and_survives_a_read_only_folder(tmp_path, monkeypatch):
+    path = _run_with_file(tmp_path / "run", 1000)
+    first = runfolder.content_print(path)
+    kept = json.loads((tmp_path / "run" / runfolder.DIGEST_CACHE).read_text())
+    stat = path.stat()
+    assert kept == {"slices/a.txt": [stat.st_size, stat.st_mtime_ns, first]}
+    runfolder._DIGESTS.clear()  # a new process: the digest comes from the cache, not the bytes
+    monkeypatch.setattr(runfolder.hashlib, "blake2b",
+                        lambda *a, **k: pytest.fail("the file was read again"))
+    assert runfolder.content_print(path) == first
+    monkeypatch.undo()
+
+    def refuse(*args, **kwargs):
+        raise PermissionError("read-only")
+
+    monkeypatch.setattr(runfolder, "write_text_atomic", refuse)
+    path.write_bytes(b"b" * 1000)
+    assert runfolder.content_print(path) != first
 
 
 def test_folder_fingerprint_includes_names(tmp_path):

@@ -332,15 +332,15 @@ def _inputs_fingerprint(inputs: RunInputs, anchor_words_list: list[str] | None) 
     parts = {
         "slice": stages.get("slice", {}).get("fingerprint"),
         "train": stages.get("train", {}).get("fingerprint"),
-        "models": runfolder.fingerprint_path(inputs.paths.models_dir),
-        "counts": runfolder.fingerprint_file(inputs.paths.counts),
-        "summary": runfolder.fingerprint_file(inputs.paths.slice_summary),
+        "models": runfolder.content_print_tree(inputs.paths.models_dir),
+        "counts": runfolder.content_print(inputs.paths.counts),
+        "summary": runfolder.content_print(inputs.paths.slice_summary),
         "anchors": anchor_words_list,
         # scores depend on drift's own code too: a new version ranks again instead of reusing
         "drift": runfolder.package_version(),
     }
     if inputs.control and inputs.paths.control_dir.is_dir():
-        parts["control"] = runfolder.fingerprint_path(inputs.paths.control_dir)
+        parts["control"] = runfolder.content_print_tree(inputs.paths.control_dir)
     return runfolder.fingerprint_params(parts)
 
 

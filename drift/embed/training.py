@@ -271,7 +271,7 @@ def _control_sources(paths: RunPaths, pair: list[str], shuffle_seed: int) -> dic
         "format": CONTROL_FORMAT,
         "between": list(pair),
         "shuffle_seed": int(shuffle_seed),
-        "sources": {label: runfolder.fingerprint_file(paths.slice_file(label)) for label in pair},
+        "sources": {label: runfolder.content_print(paths.slice_file(label)) for label in pair},
     }
 
 
@@ -289,7 +289,7 @@ def current_control_slices(
         return None
     for name in control_split_labels(split):
         text = control_slice_file(paths, name)
-        if not text.is_file() or record.get("outputs", {}).get(name) != runfolder.fingerprint_file(
+        if not text.is_file() or record.get("outputs", {}).get(name) != runfolder.content_print(
             text
         ):
             return None
@@ -333,7 +333,7 @@ def build_control_slices(
         "source_lines": dict(zip(pair, sizes, strict=True)),
         "source_tokens": {pair[0]: int(first[2].sum()), pair[1]: int(second[2].sum())},
         "outputs": {
-            name: runfolder.fingerprint_file(control_slice_file(paths, name)) for name in names
+            name: runfolder.content_print(control_slice_file(paths, name)) for name in names
         },
     }
     runfolder.write_json_atomic(_control_record_file(paths, split), record)
@@ -349,7 +349,7 @@ def sidecar_file(model_file: Path) -> Path:
 
 
 def model_fingerprint(model_params: dict[str, Any], corpus: Path) -> str:
-    corpus_print = runfolder.fingerprint_file(corpus)
+    corpus_print = runfolder.content_print(corpus)
     return runfolder.fingerprint_params(
         {"format": MODEL_FORMAT, "model": model_params, "corpus": corpus_print}
     )
@@ -654,7 +654,7 @@ def _result_row(task: dict[str, Any], result: dict[str, Any], reused: bool) -> d
 
 def _slices_fingerprint(paths: RunPaths, labels: list[str]) -> str:
     return runfolder.fingerprint_params(
-        {label: runfolder.fingerprint_file(paths.slice_file(label)) for label in labels}
+        {label: runfolder.content_print(paths.slice_file(label)) for label in labels}
     )
 
 
@@ -944,7 +944,10 @@ def train_run(
                     "threads_per_model": sorted({row["threads"] for row in rows}),
                 },
                 "outputs": runfolder.fingerprint_params(
-                    {row["path"]: runfolder.fingerprint_file(Path(row["path"])) for row in rows}
+                    {
+                        task["key"]: runfolder.content_print(Path(task["output"]))
+                        for task in plan.tasks
+                    }
                 ),
                 "models": {"total": len(plan.tasks), "trained": len(plan.pending)},
             },

@@ -1501,7 +1501,7 @@ def build_report(
             run,
             "charts",
             {"top": top, "k": k, "examples": examples, "seed": seed},
-            runfolder.fingerprint_path(paths.scores_parquet),
+            runfolder.content_print(paths.scores_parquet),
             time.perf_counter() - started,
             {"pages": len(written)},
         )
