@@ -184,6 +184,7 @@ CANDIDATES = {
     "local, paired": ("local", dict()),
     "evidence, paired (default)": ("evidence", dict()),
     "evidence, paired noise null only": ("evidence", dict(paired_drift=False)),
+    "evidence, paired, drift z count-matched": ("evidence", dict(count_matched=True)),
     # on a run trained with --control-splits N: its first one or two control splits only
     "evidence, paired, first control split only": ("evidence", dict(control_splits=1)),
     "evidence, paired, first two control splits": ("evidence", dict(control_splits=2)),

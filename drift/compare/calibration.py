@@ -643,6 +643,68 @@ def with_headline(table: pd.DataFrame, alpha: float, answerable: bool = True) ->
     return out
 
 
+#: Words per frequency bin of :func:`count_matched_z` (common practice, no source: a few hundred
+#: points give a median and a MAD with a standard error of a few hundredths of a z).
+MATCHED_BIN_WORDS = 250
+#: At most this many bins, however large the vocabulary.
+MATCHED_BINS = 40
+
+
+def count_matched_z(z: Any, count: Any) -> np.ndarray:
+    """``z`` standardised again among words of similar count: minus the median, over the scaled
+    median absolute deviation, of the z of the words in the same frequency bin.
+
+    The bins hold equal numbers of words (:data:`MATCHED_BIN_WORDS` each, at most
+    :data:`MATCHED_BINS` bins) along ``log(count)``; the median and MAD are interpolated
+    linearly between the bins' median log counts, so that neighbouring words get nearly the same
+    correction. Medians keep the few words that truly moved from moving the reference (the
+    empirical-null idea, Efron 2004, from memory); what a regression surface leaves of a
+    frequency trend in the centre or the spread of z is removed. NaN stays NaN.
+
+    >>> rng = np.random.default_rng(0)
+    >>> count = np.exp(rng.uniform(3, 9, 2000))
+    >>> z = 0.1 * np.log(count) + rng.standard_normal(2000)
+    >>> fixed = count_matched_z(z, count)
+    >>> abs(float(stats.spearmanr(fixed, count).statistic)) < 0.05
+    True
+    """
+    z = np.asarray(z, dtype=float).ravel()
+    x = np.log(np.maximum(np.asarray(count, dtype=float).ravel(), 1.0))
+    out = np.full(z.shape, np.nan)
+    ok = np.isfinite(z) & np.isfinite(x)
+    if ok.sum() < MIN_NULL_WORDS:
+        return z.copy()
+    order = np.argsort(x[ok], kind="stable")
+    bins = int(np.clip(ok.sum() // MATCHED_BIN_WORDS, 1, MATCHED_BINS))
+    centres, middles, spreads = [], [], []
+    for part in np.array_split(order, bins):
+        values = z[ok][part]
+        middle = float(np.median(values))
+        mad = float(np.median(np.abs(values - middle))) / HALF_NORMAL_MEDIAN
+        centres.append(float(np.median(x[ok][part])))
+        middles.append(middle)
+        spreads.append(mad if mad > 0 else 1.0)
+    centre = np.interp(x[ok], centres, middles)
+    spread = np.interp(x[ok], centres, spreads)
+    out[ok] = (z[ok] - centre) / spread
+    return out
+
+
+def with_count_matched_drift(table: pd.DataFrame, count: Any, alpha: float) -> pd.DataFrame:
+    """``table`` with its drift null's z replaced by :func:`count_matched_z` of it (p the
+    normal upper tail, q its Benjamini-Hochberg adjustment) and the headline recomputed."""
+    out = table.copy()
+    drift_z = out["drift_z"].to_numpy(dtype=float)
+    if not np.isfinite(drift_z).any():
+        return out
+    matched = count_matched_z(drift_z, count)
+    out["drift_z"] = matched
+    out["drift_p"] = stats.norm.sf(matched)
+    out["drift_q"] = bh_qvalues(out["drift_p"].to_numpy())
+    answerable = out["noise_z"].notna().any()
+    return with_headline(out, alpha, bool(answerable))
+
+
 # ------------------------------------------------------------------ the combined evidence
 
 # The measures the default ranking measure, ``evidence``, combines: EVIDENCE_MEASURES (from

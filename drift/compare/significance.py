@@ -63,6 +63,9 @@ class CalibrationOptions:
     #: (paired only) the drift null takes the word's own control measure as a covariate; off,
     #: only the noise question is paired
     paired_drift: bool = True
+    #: the drift null's z standardised again among words of similar count
+    #: (:func:`drift.compare.calibration.count_matched_z`)
+    count_matched: bool = False
 
 
 def combine_noise(columns: np.ndarray, how: str) -> np.ndarray:
@@ -171,8 +174,18 @@ def calibrate_pair(
     headline) are empty and ``significance`` in run.json says why.
     """
     if measure == "evidence":
-        return _evidence_calibration(measured, scores, alpha, labels, options)
-    return _one_measure_calibration(measured, scores, measure, alpha, labels, options)
+        columns, null, record = _evidence_calibration(measured, scores, alpha, labels, options)
+    else:
+        columns, null, record = _one_measure_calibration(measured, scores, measure, alpha,
+                                                         labels, options)
+    if options.count_matched:
+        from drift.compare.calibration import with_count_matched_drift
+
+        rarer = np.minimum(scores["count_from"].to_numpy(float), scores["count_to"].to_numpy(float))
+        matched = with_count_matched_drift(columns, rarer, alpha)
+        columns = columns.assign(**{c: matched[c] for c in matched.columns})
+        record["drift_null_count_matched"] = True
+    return columns, null, record
 
 
 def _evidence_calibration(
