@@ -674,19 +674,16 @@ def count_matched_z(z: Any, count: Any) -> np.ndarray:
     ok = np.isfinite(z) & np.isfinite(x)
     if ok.sum() < MIN_NULL_WORDS:
         return z.copy()
-    order = np.argsort(x[ok], kind="stable")
-    bins = int(np.clip(ok.sum() // MATCHED_BIN_WORDS, 1, MATCHED_BINS))
+    zs, xs = z[ok], x[ok]
+    bins = int(np.clip(len(zs) // MATCHED_BIN_WORDS, 1, MATCHED_BINS))
     centres, middles, spreads = [], [], []
-    for part in np.array_split(order, bins):
-        values = z[ok][part]
-        middle = float(np.median(values))
-        mad = float(np.median(np.abs(values - middle))) / HALF_NORMAL_MEDIAN
-        centres.append(float(np.median(x[ok][part])))
+    for part in np.array_split(np.argsort(xs, kind="stable"), bins):
+        middle = float(np.median(zs[part]))
+        mad = float(np.median(np.abs(zs[part] - middle))) / HALF_NORMAL_MEDIAN
+        centres.append(float(np.median(xs[part])))
         middles.append(middle)
         spreads.append(mad if mad > 0 else 1.0)
-    centre = np.interp(x[ok], centres, middles)
-    spread = np.interp(x[ok], centres, spreads)
-    out[ok] = (z[ok] - centre) / spread
+    out[ok] = (zs - np.interp(xs, centres, middles)) / np.interp(xs, centres, spreads)
     return out
 
 

@@ -182,8 +182,7 @@ def calibrate_pair(
         from drift.compare.calibration import with_count_matched_drift
 
         rarer = np.minimum(scores["count_from"].to_numpy(float), scores["count_to"].to_numpy(float))
-        matched = with_count_matched_drift(columns, rarer, alpha)
-        columns = columns.assign(**{c: matched[c] for c in matched.columns})
+        columns = with_count_matched_drift(columns, rarer, alpha)
         record["drift_null_count_matched"] = True
     return columns, null, record
 
