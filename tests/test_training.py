@@ -182,6 +182,32 @@ def test_unchanged_models_are_reused_and_changed_ones_retrained(trained, tmp_pat
     assert runfolder.read_manifest(root)["stages"]["train"]["params"]["epochs"] == 2
 
 
+def test_training_from_the_command_line_imports_no_pandas(trained, tmp_path):
+    """`drift train` that trains a model (and writes its Parquet vocabulary) runs without
+    pandas, whose import costs a short run about a quarter second (the append benchmark counts
+    it as drift's overhead); the rows match what train_run returns."""
+    root = copy_run(trained[0], tmp_path / "run")
+    slice_file = RunPaths(root).slice_file("2002")
+    slice_file.write_text(slice_file.read_text(encoding="utf-8") + "one more line here\n")
+    options = {key: value for key, value in TINY.items() if key != "quiet"}
+    probe = (
+        "import sys, json; from drift.embed.training import train_models; "
+        f"rows = train_models({str(root)!r}, quiet=True, **{options!r}); "
+        "print(json.dumps(['pandas' in sys.modules, sum(not r['reused'] for r in rows)]))"
+    )
+    done = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True,
+                          check=True)
+    assert json.loads(done.stdout) == [False, 2]  # two seeds of 2002 retrained
+    import pandas as pd
+
+    model = RunPaths(root).model_file("2002", 0)
+    vocabulary = pd.read_parquet(training.vocabulary_file(model))
+    assert list(vocabulary.columns) == ["word", "count"]
+    assert vocabulary["count"].dtype == np.int64 and vocabulary["word"].is_unique
+    assert len(vocabulary) == len(np.load(model, allow_pickle=False))
+    assert (vocabulary["count"] >= TINY["min_count"]).all()
+
+
 def test_temporary_files_of_a_killed_run_are_cleared(trained, tmp_path):
     root = copy_run(trained[0], tmp_path / "run")
     left = RunPaths(root).model_file("2001", 0).parent / ".seed-0.npy.x1y2.tmp"

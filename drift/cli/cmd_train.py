@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import statistics
 from pathlib import Path
 
 import typer
@@ -18,19 +19,20 @@ def train(
     options: TrainOptions = TrainOptions(),
 ) -> None:
     """Train one Word2Vec model per slice and seed, plus the time-shuffled control pair."""
-    from drift.embed.training import train_run
+    from drift.embed.training import train_models
 
-    table = train_run(run, quiet=quiet, **options.kwargs())
-    reused = int(table["reused"].sum())
-    trained = len(table) - reused
-    slices = table[table["group"] == "slice"]
+    rows = train_models(run, quiet=quiet, **options.kwargs())
+    reused = sum(bool(row["reused"]) for row in rows)
+    vocabularies: dict[str, list[int]] = {}
+    for row in rows:
+        if row["group"] == "slice":
+            vocabularies.setdefault(row["label"], []).append(int(row["vocabulary"]))
     typer.echo(
-        f"{len(table)} models in {run}: {trained} trained, {reused} reused "
-        f"({slices['label'].nunique()} slices x {options.seeds} seeds"
-        f"{_control_words(options)})."
+        f"{len(rows)} models in {run}: {len(rows) - reused} trained, {reused} reused "
+        f"({len(vocabularies)} slices x {options.seeds} seeds{_control_words(options)})."
     )
-    for label, models in slices.groupby("label", sort=False):
-        typer.echo(f"  {label}: {int(models['vocabulary'].median())} words")
+    for label, sizes in vocabularies.items():
+        typer.echo(f"  {label}: {int(statistics.median(sizes))} words")
     if not options.control:
         typer.echo(
             "No control pair (--no-control): 'drift rank' will give no p or q values for this run."

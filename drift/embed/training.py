@@ -20,7 +20,7 @@ import mmap
 import re
 import threading
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from contextlib import ExitStack
 from dataclasses import asdict, dataclass
 from pathlib import Path
@@ -128,9 +128,7 @@ def stable_hash(text: str) -> int:
 
 def checked_slice_labels(paths: RunPaths) -> list[str]:
     """Slice labels in time order (from the slice stage), each with a non-empty slice file."""
-    from drift.ingest.slicing import slice_labels
-
-    labels = [str(label) for label in slice_labels(paths.root)]
+    labels = [str(label) for label in runfolder.slice_labels(paths.root)]
     if not labels:
         raise DriftError(
             f"{paths.root} lists no slices; make them with 'drift slice SOURCE --out {paths.root}'."
@@ -387,13 +385,34 @@ def save_model(target: str | Path, words: list[str], vectors: np.ndarray, counts
     matrix = np.ascontiguousarray(vectors, dtype=np.float32)
     if matrix.ndim != 2 or matrix.shape[0] != len(words):
         raise ValueError(f"{len(words)} words but vectors of shape {matrix.shape}")
-    table = pa.table(
-        {"word": pa.array(list(words), pa.string()), "count": np.asarray(counts, dtype=np.int64)}
+    table = pa.Table.from_arrays(
+        [_string_array(words), _int64_array(counts)], names=["word", "count"]
     )
     with runfolder.atomic_path(vocabulary_file(target)) as tmp:
         pq.write_table(table, tmp)
     with runfolder.atomic_path(target) as tmp, tmp.open("wb") as handle:
         np.save(handle, matrix, allow_pickle=False)
+
+
+def _string_array(words: Sequence[str]) -> Any:
+    """A pyarrow string array of ``words`` built from its buffers: ``pa.array`` on a list
+    imports pandas (about a quarter second) to look for pandas types."""
+    import pyarrow as pa
+
+    encoded = [word.encode("utf-8") for word in words]
+    offsets = np.zeros(len(encoded) + 1, dtype=np.int32)
+    np.cumsum([len(word) for word in encoded], out=offsets[1:])
+    return pa.Array.from_buffers(
+        pa.string(), len(encoded), [None, pa.py_buffer(offsets), pa.py_buffer(b"".join(encoded))]
+    )
+
+
+def _int64_array(values: Any) -> Any:
+    """A pyarrow int64 array of ``values`` from its buffer (see :func:`_string_array`)."""
+    import pyarrow as pa
+
+    column = np.ascontiguousarray(values, dtype=np.int64)
+    return pa.Array.from_buffers(pa.int64(), len(column), [None, pa.py_buffer(column)])
 
 
 def save_keyed_vectors(vectors: Any, target: str | Path) -> None:
@@ -881,6 +900,50 @@ def train_run(
     """
     import pandas as pd  # here, not at the top: pool workers import this module and need no pandas
 
+    rows = train_models(
+        run,
+        architecture=architecture,
+        dim=dim,
+        window=window,
+        negative=negative,
+        sample=sample,
+        epochs=epochs,
+        min_count=min_count,
+        seeds=seeds,
+        workers=workers,
+        between=between,
+        control=control,
+        control_splits=control_splits,
+        engine=engine,
+        scheduler=scheduler,
+        base_seed=base_seed,
+        quiet=quiet,
+    )
+    return pd.DataFrame(rows, columns=RESULT_COLUMNS)
+
+
+def train_models(
+    run: str | Path,
+    *,
+    architecture: str = _TRAIN.architecture,
+    dim: int = _TRAIN.dim,
+    window: int = _TRAIN.window,
+    negative: int = _TRAIN.negative,
+    sample: float = _TRAIN.sample,
+    epochs: int = _TRAIN.epochs,
+    min_count: int = _TRAIN.min_count,
+    seeds: int = _TRAIN.seeds,
+    workers: int | None = _TRAIN.workers,
+    between: tuple[str, str] | list[str] | None = None,
+    control: bool = True,
+    control_splits: int = _TRAIN.control_splits,
+    engine: str = _TRAIN.engine,
+    scheduler: str | None = _TRAIN.scheduler,
+    base_seed: int = _TRAIN.base_seed,
+    quiet: bool = False,
+) -> list[dict[str, Any]]:
+    """:func:`train_run` without pandas: its rows as dicts, keys :data:`RESULT_COLUMNS`
+    (the command line's path; importing pandas costs a short run about a quarter second)."""
     started = time.perf_counter()
     params = validate_params(
         architecture=architecture,
@@ -952,7 +1015,7 @@ def train_run(
                 "models": {"total": len(plan.tasks), "trained": len(plan.pending)},
             },
         )
-    return pd.DataFrame(rows, columns=RESULT_COLUMNS)
+    return rows
 
 
 def _control_summary(
