@@ -185,10 +185,6 @@ CANDIDATES = {
     "evidence, paired (default)": ("evidence", dict()),
     "evidence, paired noise null only": ("evidence", dict(paired_drift=False)),
     "evidence, paired, drift z count-matched": ("evidence", dict(count_matched=True)),
-    "evidence, paired, own control at the pair's count": (
-        "evidence", dict(own_at_pair_count=True)),
-    "evidence, paired, count correction between rarer counts": (
-        "evidence", dict(shift_count="rarer")),
     # on a run trained with --control-splits N: its first one or two control splits only
     "evidence, paired, first control split only": ("evidence", dict(control_splits=1)),
     "evidence, paired, first two control splits": ("evidence", dict(control_splits=2)),

@@ -66,13 +66,6 @@ class CalibrationOptions:
     #: the drift null's z standardised again among words of similar count
     #: (:func:`drift.compare.calibration.count_matched_z`)
     count_matched: bool = False
-    #: (paired only) the drift null's own-control covariate moved to the pair's effective
-    #: count by the control null's centre, as the paired noise question's ratio is: a word
-    #: whose count changed is compared with what its control measure would be at that count
-    own_at_pair_count: bool = False
-    #: (paired only) the count the count-change correction compares on each side:
-    #: 'harmonic' (of the two slices' counts) or 'rarer' (the smaller count)
-    shift_count: str = "harmonic"
 
 
 def combine_noise(columns: np.ndarray, how: str) -> np.ndarray:
@@ -315,9 +308,6 @@ def _paired_calibration(
     # control's balanced halves is close to the rarer count the null was fitted on.
     effective = harmonic_count(count_from, count_to)
     control_effective = own_control_counts(measured, words, effective)
-    if options.shift_count == "rarer":
-        effective = rarer
-        control_effective = own_control_counts(measured, words, rarer, np.minimum)
     frequency_shift = control_null.model_centre(effective, noise) - control_null.model_centre(
         control_effective, noise)
     with np.errstate(invalid="ignore"):
@@ -334,9 +324,6 @@ def _paired_calibration(
         noise_columns = calibrate(values, count_from, count_to, seed_noise=noise,
                                   noise_null=control_null, drift_null=control_null, alpha=alpha)
     drift_own = own if options.paired_drift else None
-    if drift_own is not None and options.own_at_pair_count:
-        shifted = np.where(np.isfinite(frequency_shift), frequency_shift, 0.0)
-        drift_own = own * np.exp(shifted) if control_null.log_scale else own + shifted
     drift_null = _drift_null(measured, values, count_from, count_to, noise, options, drift_own,
                              None, reasons, record)
     columns = calibrate(values, count_from, count_to, seed_noise=noise, noise_null=control_null,
@@ -388,13 +375,12 @@ def harmonic_count(count_from: Any, count_to: Any) -> np.ndarray:
 
 
 def own_control_counts(
-    measured: Measured, words: Sequence[str], fallback: np.ndarray,
-    combine: Any = harmonic_count,
+    measured: Measured, words: Sequence[str], fallback: np.ndarray
 ) -> np.ndarray:
-    """Each word's effective count in the control pair (``combine`` of its two halves' counts,
-    :func:`harmonic_count` by default; ``fallback`` where the control models lack it)."""
+    """Each word's effective count in the control pair (:func:`harmonic_count`; ``fallback``
+    where the control models lack it)."""
     control = next(r.control for r in measured.results if r.control is not None)
-    effective = combine(control.counts_from, control.counts_to)
+    effective = harmonic_count(control.counts_from, control.counts_to)
     lookup = dict(zip(control.words, effective.tolist(), strict=True))
     found = np.array([lookup.get(w, np.nan) for w in words], dtype=float)
     return np.where(np.isfinite(found), found, fallback)
