@@ -41,6 +41,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from real_text import documents as doc_text  # noqa: E402
 from real_text import write_dated_csv  # noqa: E402
 
+from drift.compare.seedmeasures import DEFAULT_ANCHOR_TRIM  # noqa: E402
 from drift.validate.injection import (  # noqa: E402
     InjectedArchive,
     build_archive,
@@ -143,7 +144,9 @@ def main() -> None:
                    help="control pairs per run (drift train --control-splits)")
     e = sub.add_parser("evaluate")
     e.add_argument("--out", type=Path, required=True)
-    e.add_argument("--trim", type=float, default=0.1, help="anchor trim to compare (0: none)")
+    e.add_argument("--trim", type=float, default=0.1,
+                   help="another anchor trim to score the default at, beside drift's default "
+                   "(0: none)")
     e.add_argument("--baseline", type=Path, default=None,
                    help="a checkout of the code before these changes, with its own .venv "
                    "(pip install -e .), to score it too")
@@ -243,9 +246,11 @@ def candidate_scores(run: Path, trims: list[float]) -> dict[str, pd.DataFrame]:
     pair = (inputs.labels[0], inputs.labels[-1])
     out = {}
     for trim in trims:
-        wanted = [c for c in CANDIDATES if not trim or c == DEFAULT_CANDIDATE]
-        names = {c: c + (f", anchor trim {trim}" if trim else "") for c in wanted}
-        files = {name: cache / f"scores-{_slug(full)}.parquet" for name, full in names.items()}
+        usual = trim == DEFAULT_ANCHOR_TRIM
+        wanted = [c for c in CANDIDATES if usual or c == DEFAULT_CANDIDATE]
+        names = {c: c + ("" if usual else f", anchor trim {trim}") for c in wanted}
+        files = {name: cache / f"scores-{_slug(full)}-trim{trim}.parquet"
+                 for name, full in names.items()}
         if all(f.exists() for f in files.values()):
             out.update({names[n]: pd.read_parquet(f) for n, f in files.items()})
             continue
@@ -353,7 +358,7 @@ def _trained(run: Path) -> bool:
 def evaluate(args: argparse.Namespace) -> None:
     out = Path(args.out)
     started = time.perf_counter()
-    trims = [0.0] + ([args.trim] if args.trim else [])
+    trims = list(dict.fromkeys([DEFAULT_ANCHOR_TRIM, args.trim]))
     per_candidate: dict[str, list[dict]] = {}
     folders = [
         f for f in sorted(out.glob("injected-*"))

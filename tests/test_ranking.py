@@ -502,6 +502,25 @@ def test_export_aligned_vectors(geometry_run, tmp_path):
         export_vectors(root, tmp_path / "file", "npz")
 
 
+def test_exported_vectors_are_aligned_as_the_last_rank_aligned_them(own_geometry_run, tmp_path):
+    """A run ranked with --anchor-trim exports (and draws) its slices with that trimmed
+    rotation, not with a rotation over every anchor."""
+    from drift.compare.alignment import align_onto
+    from drift.compare.runinputs import load_slice_vectors
+
+    root, _ = own_geometry_run
+    rank_run(root, k=10, anchor_trim=0.3, quiet=True)
+    npz = export_vectors(root, tmp_path / "npz", "npz")
+    paths = runfolder.RunPaths(root)
+    target, last = load_slice_vectors(paths, "2001", 0), load_slice_vectors(paths, "2003", 0)
+    trimmed, full = align_onto(last, target, None, 0.3), align_onto(last, target)
+    assert np.abs(trimmed - full).max() > 1e-3  # the trim changes the rotation here
+    with np.load(npz[2]) as data:
+        np.testing.assert_allclose(data["vectors"], last.vectors @ trimmed, atol=1e-5)
+    record = json.loads((tmp_path / "npz" / "export.json").read_text())
+    assert record["params"]["anchor_trim"] == 0.3
+
+
 def test_top_rows_filters(geometry_run):
     _, scores = geometry_run
     assert len(top_rows(scores, top=5)) == 5

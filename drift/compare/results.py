@@ -262,6 +262,7 @@ def export_vectors(
     anchors = anchors if anchors is not None else recorded.get("anchors")
     _, _, ref = resolve_slices(inputs.labels, None, reference)
     anchor_spec = parse_anchors(anchors)
+    trim = float(recorded.get("anchor_trim", 0.0))  # as the last rank aligned the slices
     out = runfolder.prepare_export_folder(Path(out))
     seed = inputs.seeds[0]
     target = load_slice_vectors(inputs.paths, ref, seed)
@@ -270,11 +271,12 @@ def export_vectors(
         vectors = target if label == ref else load_slice_vectors(inputs.paths, label, seed)
         aligned = vectors.vectors
         if label != ref:
-            rotation = align_onto(vectors, target, anchor_spec)
+            rotation = align_onto(vectors, target, anchor_spec, trim)
             aligned = (vectors.vectors @ rotation).astype(np.float32)
         written.append(_write_vectors(out, label, vectors, aligned, fmt))
     runfolder.record_export(out, inputs.paths.root, written, {"format": fmt, "reference": ref,
-                                                              "anchors": anchors, "seed": seed})
+                                                              "anchors": anchors, "seed": seed,
+                                                              "anchor_trim": trim})
     return written
 
 

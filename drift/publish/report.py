@@ -706,7 +706,8 @@ def word_views(
         models = neighbours.load_run_models(data.root)
     near = neighbours.neighbours_for(data.root, words, k, models=models)
     shapes = (
-        wordviews.word_geometry(models, words, near, data.reference, _anchors(data))
+        wordviews.word_geometry(models, words, near, data.reference, _anchors(data),
+                                float(data.rank_params.get("anchor_trim", 0.0)))
         if geometry and models is not None
         else {}
     )

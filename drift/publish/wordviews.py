@@ -1,10 +1,11 @@
 """What a word page shows beyond the tables: its path, its self-similarity, its change point range.
 
 - **Path in two dimensions.** Each slice is rotated onto the reference slice (orthogonal
-  Procrustes over the rank stage's anchors, as in the rank stage). The word's aligned vector in
-  every slice and each of its neighbours' aligned vectors (in the slice where that neighbour
-  ranked best) are projected onto their first two principal components (PCA fitted on these
-  points only). Seed 0's models are used, since the seeds' spaces are not aligned to each other.
+  Procrustes over the rank stage's anchors and anchor trim, as in the rank stage). The word's
+  aligned vector in every slice and each of its neighbours' aligned vectors (in the slice where
+  that neighbour ranked best) are projected onto their first two principal components (PCA
+  fitted on these points only). Seed 0's models are used, since the seeds' spaces are not
+  aligned to each other.
 - **Self-similarity.** The cosine similarity of the word's aligned vectors between every two
   slices, averaged over seeds: a block of high values before and another after shows a change.
 - **Change point range.** The rank stage's change point is the mean-shift boundary (after Kulkarni
@@ -51,7 +52,7 @@ class WordGeometry:
     seeds: int
 
 
-def _rotations(models: RunModels, reference: str, anchors: AnchorSpec) -> dict:
+def _rotations(models: RunModels, reference: str, anchors: AnchorSpec, trim: float) -> dict:
     rotations = {}
     for seed in models.seeds:
         ref = models.slices[(reference, seed)]
@@ -59,7 +60,8 @@ def _rotations(models: RunModels, reference: str, anchors: AnchorSpec) -> dict:
             if label == reference:
                 rotations[(label, seed)] = np.eye(ref.vectors.shape[1], dtype=np.float32)
             else:
-                rotations[(label, seed)] = align_onto(models.slices[(label, seed)], ref, anchors)
+                rotations[(label, seed)] = align_onto(models.slices[(label, seed)], ref, anchors,
+                                                      trim)
     return rotations
 
 
@@ -97,9 +99,11 @@ def word_geometry(
     neighbours: pd.DataFrame,
     reference: str,
     anchors: AnchorSpec = None,
+    trim: float = 0.0,
 ) -> dict[str, WordGeometry]:
-    """The path and self-similarity of each of ``words`` (rotations fitted once for all)."""
-    rotations = _rotations(models, reference, anchors)
+    """The path and self-similarity of each of ``words`` (rotations fitted once for all, with
+    the rank stage's anchors and anchor trim)."""
+    rotations = _rotations(models, reference, anchors, trim)
     labels = models.labels
     out = {}
     for word in words:
