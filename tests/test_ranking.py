@@ -341,6 +341,17 @@ def test_several_control_splits_average_each_word_s_own_control_measure(tmp_path
     own = own_control_values(measured, "displacement", kept, None, np.ones(len(kept)), None)
     np.testing.assert_allclose(own, expected[:, found].mean(axis=0))
     assert np.abs(own - expected[0, found]).mean() > 0.01  # not the first split's alone
+    # the count-change correction's control counts are averaged over the splits the same way
+    from drift.compare.significance import harmonic_count, own_control_counts
+
+    halves = []
+    for split in (measured.results[0].control, measured.results[0].more_controls[0]):
+        effective = harmonic_count(split.counts_from, split.counts_to)
+        lookup = dict(zip(split.words, effective.tolist(), strict=True))
+        halves.append([lookup[w] for w in kept])
+    counts = own_control_counts(measured, kept, np.full(len(kept), -1.0))
+    np.testing.assert_allclose(counts, np.mean(halves, axis=0))
+    assert np.abs(counts - np.array(halves[0])).max() > 0  # the splits' halves differ
     scores = rank_run(root, k=10, quiet=True)
     assert scores["noise_z"].notna().mean() > 0.9
 

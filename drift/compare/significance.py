@@ -377,12 +377,16 @@ def harmonic_count(count_from: Any, count_to: Any) -> np.ndarray:
 def own_control_counts(
     measured: Measured, words: Sequence[str], fallback: np.ndarray
 ) -> np.ndarray:
-    """Each word's effective count in the control pair (:func:`harmonic_count`; ``fallback``
-    where the control models lack it)."""
-    control = next(r.control for r in measured.results if r.control is not None)
-    effective = harmonic_count(control.counts_from, control.counts_to)
-    lookup = dict(zip(control.words, effective.tolist(), strict=True))
-    found = np.array([lookup.get(w, np.nan) for w in words], dtype=float)
+    """Each word's effective count in the control pair (:func:`harmonic_count` of its counts
+    in the two halves, averaged over the control splits as its own control measure is;
+    ``fallback`` where the control models lack it)."""
+    first = next(r for r in measured.results if r.control is not None)
+    per_split = []
+    for control in (first.control, *first.more_controls):
+        effective = harmonic_count(control.counts_from, control.counts_to)
+        lookup = dict(zip(control.words, effective.tolist(), strict=True))
+        per_split.append([lookup.get(w, np.nan) for w in words])
+    found = _nanmean(np.array(per_split, dtype=float), 0)
     return np.where(np.isfinite(found), found, fallback)
 
 
