@@ -246,16 +246,32 @@ def test_rank_ranks_again_under_another_version_of_drift(own_geometry_run, monke
 
 def test_evidence_combines_the_single_measure_rankings(own_geometry_run):
     """The default measure's z per null is Stouffer's combination of the z that displacement
-    and local change get when each ranks the run alone, with the correlation run.json records
-    (z = (z_d + z_l) / sqrt(2 + 2r))."""
-    root, evidence = own_geometry_run
+    and local change get when each is calibrated alone, with the correlation run.json records
+    (z = (z_d + z_l) / sqrt(2 + 2r)); the drift question's z is then standardised again among
+    words of similar count (count_matched_z), as each single measure's is."""
+    from drift.compare.alignment import parse_anchors
+    from drift.compare.calibration import count_matched_z
+    from drift.compare.ranking import CalibrationOptions, assemble_scores, measure_run
+    from drift.compare.runinputs import read_run_inputs
+
+    root, default = own_geometry_run
     record = runfolder.read_manifest(root)["stages"]["rank"]
     assert record["params"]["measure"] == "evidence"
+    assert record["drift_null_count_matched"] is True
     correlation = record["evidence"]["correlation"]
     assert record["evidence"]["measures"] == ["displacement", "local"]
-    single = {m: rank_run(root, k=10, measure=m, quiet=True).set_index("word")
+    inputs = read_run_inputs(root)
+    measured = measure_run(inputs, (LABELS[0], LABELS[-1]), LABELS[0], 10, parse_anchors(None),
+                           quiet=True)
+    unmatched = CalibrationOptions(count_matched=False)
+    single = {m: assemble_scores(inputs, measured, m, 0.05, unmatched)[0].set_index("word")
               for m in ("displacement", "local")}
-    evidence = evidence.set_index("word")
+    evidence = assemble_scores(inputs, measured, "evidence", 0.05, unmatched)[0].set_index("word")
+    default = default.set_index("word").loc[evidence.index]
+    rarer = np.minimum(default["count_from"], default["count_to"])
+    np.testing.assert_allclose(default["drift_z"], count_matched_z(evidence["drift_z"], rarer),
+                               rtol=1e-6)
+    np.testing.assert_allclose(default["noise_z"], evidence["noise_z"], rtol=1e-6)
     np.testing.assert_allclose(evidence["score"], evidence["displacement"])
     for null in ("noise", "drift"):
         # away from the floats' floor and ceiling in both measures

@@ -65,7 +65,7 @@ class CalibrationOptions:
     paired_drift: bool = True
     #: the drift null's z standardised again among words of similar count
     #: (:func:`drift.compare.calibration.count_matched_z`)
-    count_matched: bool = False
+    count_matched: bool = True
 
 
 def combine_noise(columns: np.ndarray, how: str) -> np.ndarray:
