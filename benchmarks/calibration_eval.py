@@ -187,7 +187,8 @@ CANDIDATES = {
     "local, paired": ("local", dict()),
     "evidence, paired (default)": ("evidence", dict()),
     "evidence, paired noise null only": ("evidence", dict(paired_drift=False)),
-    "evidence, paired, drift z count-matched": ("evidence", dict(count_matched=True)),
+    "evidence, paired, drift z not count-matched (default before)": (
+        "evidence", dict(count_matched=False)),
     # on a run trained with --control-splits N: its first one or two control splits only
     "evidence, paired, first control split only": ("evidence", dict(control_splits=1)),
     "evidence, paired, first two control splits": ("evidence", dict(control_splits=2)),
