@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import logging
 import shutil
@@ -18,6 +19,7 @@ from drift import runfolder
 from drift.compare.ranking import (
     SCORE_COLUMNS,
     TIMELINE_COLUMNS,
+    CalibrationOptions,
     export_vectors,
     neighbours_by_slice,
     rank_run,
@@ -109,8 +111,33 @@ def test_scores_follow_the_contract(geometry_run):
         "between": ["2001", "2003"], "reference": "2001", "measure": "evidence", "k": 10,
         "alpha": 0.05, "anchors": None, "term_count": 20, "term_ratio": 10.0,
         "anchor_trim": 0.0, "compare": "pair",
+        "calibration": dataclasses.asdict(CalibrationOptions()),
     }
+    assert params["params"]["calibration"]["count_matched"] is True
     assert isinstance(params["control_flagged"], int)
+
+
+def test_a_run_ranked_with_other_calibration_defaults_is_ranked_again(own_geometry_run, caplog):
+    """Scores made by a drift whose calibration defaults differed (as after an upgrade) are
+    not reused: run.json's rank parameters include the calibration options."""
+    root, _ = own_geometry_run
+    manifest = runfolder.read_manifest(root)
+    before = manifest["stages"]["rank"]["finished"]
+    with caplog.at_level(logging.INFO, logger="drift"):
+        rank_run(root, k=10)
+    assert "are current; reusing them" in caplog.text
+    recorded = manifest["stages"]["rank"]
+    recorded["params"]["calibration"]["count_matched"] = False
+    recorded["fingerprint"] = runfolder.fingerprint_params(
+        {"params": recorded["params"], "inputs": recorded["inputs"]})
+    runfolder.write_json_atomic(runfolder.RunPaths(root).manifest, manifest)
+    caplog.clear()
+    with caplog.at_level(logging.INFO, logger="drift"):
+        rank_run(root, k=10)
+    assert "reusing" not in caplog.text
+    again = runfolder.read_manifest(root)["stages"]["rank"]
+    assert again["params"]["calibration"]["count_matched"] is True
+    assert again["finished"] >= before
 
 
 def test_moved_words_rank_first_and_are_significant(geometry_run):

@@ -36,7 +36,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -437,6 +437,8 @@ def rank_run(
         "term_ratio": float(term_ratio),
         "anchor_trim": float(anchor_trim),
         "compare": compare,
+        # how the nulls are fitted: a drift whose defaults changed ranks an old run again
+        "calibration": asdict(CalibrationOptions()),
     }
     fingerprint = _inputs_fingerprint(
         inputs, list(anchor_spec) if isinstance(anchor_spec, list) else None
