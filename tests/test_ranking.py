@@ -671,7 +671,18 @@ def test_whole_timeline_finds_the_step_where_words_moved(geometry_run, tmp_path)
     assert (scores["p"] >= scores[["noise_p", "drift_p"]].max(axis=1) - 1e-12).all()
     stable = scores[scores["word"].str.startswith("w")]
     assert stable["significant"].sum() <= 2
-    assert runfolder.read_manifest(copy)["stages"]["rank"]["params"]["compare"] == "steps"
+    record = runfolder.read_manifest(copy)["stages"]["rank"]
+    assert record["params"]["compare"] == "steps"
+    assert record["drift_null_count_matched"] is True  # each step's drift z, as the pair's
+    # each step's drift z is centred within count bins (count_matched_z), so the chosen
+    # step's drift z shows no trend along the counts: its median is the same in every third of
+    # the stable words' counts (all shifted alike by taking the better of two steps: the mean
+    # of the larger of two standard normals is 1/sqrt(pi), about 0.56, from memory)
+    rarer = np.minimum(stable["count_from"], stable["count_to"])
+    thirds = pd.qcut(rarer.rank(method="first"), 3, labels=False)
+    medians = stable.groupby(thirds)["drift_z"].median()
+    assert medians.max() - medians.min() < 0.3
+    assert medians.between(0.0, 1.0).all()
 
 
 def test_steps_needs_displacement(geometry_run):

@@ -424,11 +424,16 @@ def calibrate_steps(
 
     Every adjacent pair of slices is a step; a word's displacement over each step is judged by
     the control pair's noise null (at that step's counts and seed noise) and by a drift null
-    fitted on that step's own words. The word's step is the one with the smallest headline p;
-    its p values are multiplied by the number of steps measured (Bonferroni, capped at 1), then
-    Benjamini-Hochberg runs over the words.
+    fitted on that step's own words (its z count-matched as the pair's is). The word's step is
+    the one with the smallest headline p; its p values are multiplied by the number of steps
+    measured (Bonferroni, capped at 1), then Benjamini-Hochberg runs over the words.
     """
-    from drift.compare.calibration import bh_qvalues, calibrate, fit_null
+    from drift.compare.calibration import (
+        bh_qvalues,
+        calibrate,
+        fit_null,
+        with_count_matched_drift,
+    )
 
     labels, words = inputs.labels, measured.words
     step_values, _ = mean_and_spread([r.steps for r in measured.results])
@@ -458,8 +463,13 @@ def calibrate_steps(
             reasons.append(f"no drift null for step {labels[j]}-{labels[j + 1]}: {exc}")
         table = calibrate(values, counts[:, j], counts[:, j + 1], seed_noise=noise,
                           noise_null=noise_null, drift_null=drift_null, alpha=alpha)
+        if options.count_matched and drift_null is not None:
+            rarer = np.minimum(counts[:, j], counts[:, j + 1]).astype(float)
+            table = with_count_matched_drift(table, rarer, alpha)
         table.insert(0, "seed_noise", noise if noise is not None else np.nan)
         tables.append(table)
+    if options.count_matched:
+        record["drift_null_count_matched"] = True
     headline = np.column_stack([t["p"].to_numpy(dtype=float) for t in tables])
     fallback = np.column_stack([t["drift_p"].to_numpy(dtype=float) for t in tables])
     chooser = np.where(np.isfinite(headline), headline, np.inf)
