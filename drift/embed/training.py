@@ -898,27 +898,10 @@ def train_run(
     >>> bool(models["reused"].all())  # the run was trained with these options already
     True
     """
+    given = dict(locals())  # first: the arguments as given, passed on unchanged
     import pandas as pd  # here, not at the top: pool workers import this module and need no pandas
 
-    rows = train_models(
-        run,
-        architecture=architecture,
-        dim=dim,
-        window=window,
-        negative=negative,
-        sample=sample,
-        epochs=epochs,
-        min_count=min_count,
-        seeds=seeds,
-        workers=workers,
-        between=between,
-        control=control,
-        control_splits=control_splits,
-        engine=engine,
-        scheduler=scheduler,
-        base_seed=base_seed,
-        quiet=quiet,
-    )
+    rows = train_models(**given)
     return pd.DataFrame(rows, columns=RESULT_COLUMNS)
 
 
