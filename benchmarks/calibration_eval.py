@@ -97,6 +97,8 @@ def build(args: argparse.Namespace) -> None:
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
     train = dict(workers=args.workers, quiet=True, control_splits=args.control_splits)
+    if args.dim is not None:
+        train["dim"] = args.dim
     started = time.perf_counter()
     if not args.skip_real:
         source = out / "real.csv"
@@ -142,6 +144,8 @@ def main() -> None:
     b.add_argument("--skip-real", action="store_true")
     b.add_argument("--control-splits", type=int, default=1,
                    help="control pairs per run (drift train --control-splits)")
+    b.add_argument("--dim", type=int, default=None,
+                   help="vector size of every model (drift train --dim; default: drift's)")
     e = sub.add_parser("evaluate")
     e.add_argument("--out", type=Path, required=True)
     e.add_argument("--trim", type=float, default=0.1,

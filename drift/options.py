@@ -591,7 +591,9 @@ class RankOptions(StageOptions):
     higher average precision than 25 or 10 (local change was about even). ``measure`` =
     evidence (displacement and local change, each calibrated, combined by Stouffer's method)
     had the highest average precision on the calibration benchmark, 0.365 against
-    displacement's 0.288, better on each of the 4 seeds (README: the calibration benchmark).
+    displacement's 0.288 when it was chosen, better on each of the 4 seeds
+    (benchmarks/CALIBRATION_HISTORY.md); with the current calibration 0.55 against 0.40 and
+    local change's 0.51 (README: the calibration benchmark).
     """
 
     between: tuple[str, str] | None = _between()

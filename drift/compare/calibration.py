@@ -705,9 +705,9 @@ def with_count_matched_drift(table: pd.DataFrame, count: Any, alpha: float) -> p
 # ------------------------------------------------------------------ the combined evidence
 
 # The measures the default ranking measure, ``evidence``, combines: EVIDENCE_MEASURES (from
-# drift.options). On the calibration benchmark (README) displacement with local change ranked
-# injected changes best of every combination of displacement, local and turnover; adding
-# turnover lowered it.
+# drift.options). On the calibration benchmark (README; every combination's figures in
+# benchmarks/CALIBRATION_HISTORY.md) displacement with local change ranked injected changes
+# best of every combination of displacement, local and turnover; adding turnover lowered it.
 #: Words whose z exceeds this in any measure are left out of the correlation between the
 #: measures' z (the movers would raise it; common practice, no source for the value).
 CORRELATION_TRIM_Z = 3.0
