@@ -212,6 +212,68 @@ def test_a_piece_that_is_not_utf8_or_fails_reads_the_file_whole(tmp_path, cluste
                           engine=engine, **extra)
 
 
+def test_large_compressed_files_in_pieces_equal_the_local_engine(tmp_path, cluster,
+                                                                  small_pieces, monkeypatch):
+    """A compressed CSV (gzip) and JSON Lines file (xz) larger than INFLATE_BYTES are
+    decompressed once and read in pieces: the run folder is the local engine's, byte for byte,
+    documents keep their file's name, and no decompressed copy is left; a bad row in a later
+    piece is named by its line in the original file, as the local engine names it."""
+    import gzip
+    import lzma
+
+    from test_readers import awkward_csv
+
+    monkeypatch.setattr(dask_slicing, "INFLATE_BYTES", 10_000)
+    folder = tmp_path / "packed"
+    folder.mkdir()
+    plain = awkward_csv(tmp_path / "news.csv", rows=900)
+    (folder / "news.csv.gz").write_bytes(gzip.compress(plain.read_bytes()))
+    write_pieced_sources(tmp_path / "json", lee_frame())
+    lines = (tmp_path / "json" / "a.jsonl").read_bytes()
+    (folder / "wire.jsonl.xz").write_bytes(lzma.compress(lines))
+    reader, _ = __import__("drift.ingest.sources", fromlist=["open_sources"]).open_sources(folder)
+    tasks = dask_slicing.plan_tasks(reader, tmp_path / "work" / "pass", None, fmt=None,
+                                    encoding=None, delimiter=None)
+    assert {t["file"] for t in tasks} == {0, 1} and len(tasks) > 6
+    assert all(t["original"].endswith((".gz", ".xz")) for t in tasks)
+    for options in ({"by": "5y"}, {"by": "even:2", "balance": "smallest"}):
+        slice_archive(folder, tmp_path / "local", quiet=True, **options)
+        slice_archive(folder, tmp_path / "dask", quiet=True, engine="dask",
+                      scheduler=cluster.scheduler_address, **options)
+        assert_same_run(tmp_path / "local", tmp_path / "dask")
+        assert not (tmp_path / "dask" / "slices" / ".dask-parts").exists()
+    data = plain.read_bytes()
+    cut = [t for t in tasks if t["file"] == 0][-2]["piece"][0]
+    (folder / "news.csv.gz").write_bytes(
+        gzip.compress(data[:cut] + b"1995,one,two,three\n" + data[cut:]))
+    messages = []
+    for engine in ("local", "dask"):
+        extra = {"scheduler": cluster.scheduler_address} if engine == "dask" else {}
+        with pytest.raises(DriftError) as failed:
+            slice_archive(folder, tmp_path / f"bad-{engine}", by="5y", quiet=True,
+                          engine=engine, **extra)
+        messages.append(str(failed.value))
+    assert messages[0] == messages[1] and "news.csv.gz" in messages[0]
+
+
+def test_a_damaged_compressed_file_is_not_decompressed(tmp_path, monkeypatch):
+    """A packed file that breaks off after its first megabytes is not decompressed for pieces
+    (no copy is left); it is read whole, so its error is the local engine's."""
+    import gzip
+    import os
+
+    from drift.ingest.readers import open_source
+
+    monkeypatch.setattr(dask_slicing, "INFLATE_BYTES", 100)
+    text = os.urandom(2_000_000).hex()  # does not compress: the break lies past the header
+    rows = "".join(f"199{i % 10},{text[i * 40:(i + 1) * 40]}\n" for i in range(100_000))
+    packed = gzip.compress(("date,text\n" + rows).encode())
+    (tmp_path / "x.csv.gz").write_bytes(packed[: len(packed) // 2])
+    one = open_source(tmp_path / "x.csv.gz")
+    assert dask_slicing._inflated(one, tmp_path / "inflated", None, None, None) is None
+    assert not list((tmp_path / "inflated").iterdir())
+
+
 def test_a_folder_of_text_files_on_dask_equals_local(tmp_path, cluster):
     """A folder of .txt documents is one task; file names, dates and notes come through."""
     lines = lee_frame()["text"].tolist()
