@@ -256,6 +256,27 @@ def test_large_compressed_files_in_pieces_equal_the_local_engine(tmp_path, clust
     assert messages[0] == messages[1] and "news.csv.gz" in messages[0]
 
 
+def test_a_local_cluster_gets_a_worker_per_task_not_per_file(tmp_path, small_pieces, parts,
+                                                             monkeypatch):
+    """One large file read in pieces keeps more than one worker busy: the LocalCluster's size
+    is capped by the tasks the archive can have (at least as many as plan_tasks makes), not by
+    its files."""
+    from drift.ingest.sources import open_sources
+
+    for source in (tmp_path / "big", parts):
+        if source.name == "big":
+            write_pieced_sources(source, lee_frame())
+        reader, _ = open_sources(source)
+        tasks = dask_slicing.plan_tasks(reader, tmp_path / "work" / source.name, None,
+                                        fmt=None, encoding=None, delimiter=None)
+        files = len(reader.readers) if hasattr(reader, "readers") else 1
+        assert len(tasks) <= dask_slicing.most_tasks(reader)
+        assert dask_slicing.most_tasks(reader) >= files
+    assert dask_slicing.most_tasks(reader) > files  # pieces of 40 kB: several per part
+    monkeypatch.setattr(dask_slicing, "PIECE_BYTES", 64 << 20)
+    assert dask_slicing.most_tasks(reader) == files  # pieces of 64 MB: one task per part
+
+
 def test_a_damaged_compressed_file_is_not_decompressed(tmp_path, monkeypatch):
     """A packed file that breaks off after its first megabytes is not decompressed for pieces
     (no copy is left); it is read whole, so its error is the local engine's."""

@@ -31,11 +31,11 @@ bytes that are not UTF-8 is read again as one task, so that decoding and error m
 local engine's. A compressed CSV, TSV or JSON Lines file larger than :data:`INFLATE_BYTES` is
 first decompressed once by the client into the kept parts (``.dask-parts/inflated/``, removed
 with them) and its copy read in pieces like an uncompressed file; its documents keep the original
-file's name, and a piece that fails reads the original file whole. A compressed stream can only be
-read from its start, so one process decompresses it (gzip about 140 MB/s on a busy 2-core
-machine, several times the speed of tokenizing); the tokenizing is what is spread. Smaller compressed files, damaged
-ones, and CSV files whose quoting is not plain (:func:`drift.ingest.readers.csv_row_starts`), are
-one task each.
+file's name, and a piece that fails reads the original file whole. A compressed stream can only
+be read from its start, so one process decompresses it (gzip about 140 MB/s on a busy 2-core
+machine, several times the speed of tokenizing); the tokenizing is what is spread. Smaller
+compressed files, damaged ones, and CSV files whose quoting is not plain
+(:func:`drift.ingest.readers.csv_row_starts`), are one task each.
 """
 
 from __future__ import annotations
@@ -373,6 +373,19 @@ def _inflated(
     return copy
 
 
+def most_tasks(reader: Reader) -> int:
+    """How many tasks :func:`plan_tasks` can make of ``reader`` at most, before any file is
+    split or decompressed: one per file, and for a file that may be read in pieces one per
+    :data:`PIECE_BYTES` (a packed file counted at five times its size, more than text usually
+    packs), so that a LocalCluster has no more workers than tasks and no fewer."""
+    readers = reader.readers if isinstance(reader, MultiReader) else [reader]
+    total = 0
+    for one in readers:
+        size = one.total_bytes * (5 if one.compression else 1)
+        total += max(1, -(-size // PIECE_BYTES))
+    return total
+
+
 def _with_folder(task: dict[str, Any], work: Path) -> dict[str, Any]:
     """``task`` with its fingerprint and its part folder under ``work`` named by it."""
     task["fingerprint"] = partstore.task_fingerprint(task)
@@ -392,9 +405,9 @@ def feeds(
     quiet: bool = True,
 ) -> Iterator[Any]:
     """A feed maker for :func:`drift.ingest.slicing._run` that slices on a Dask cluster: the
-    scheduler at ``scheduler``, or a LocalCluster of ``workers`` processes (default: the cores,
-    at most one per file)."""
-    parts = len(reader.readers) if isinstance(reader, MultiReader) else 1
+    scheduler at ``scheduler``, or a LocalCluster of ``workers`` processes (default: the cores;
+    at most one per task the archive can have, :func:`most_tasks`)."""
+    parts = most_tasks(reader)
     cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
     size = max(1, min(workers or cores or 1, parts))
     with dask_client(scheduler, size) as client:

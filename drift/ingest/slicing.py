@@ -1216,7 +1216,8 @@ def slice_archive(
     scheduler : str, optional
         With ``engine="dask"``: the scheduler's address (default: a LocalCluster).
     dask_workers : int, optional
-        Workers of that LocalCluster (default: the cores, at most one per file).
+        Workers of that LocalCluster (default: the cores, at most one per task: per file,
+        or per piece of a large file).
 
     Returns
     -------
