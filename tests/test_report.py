@@ -268,6 +268,31 @@ def test_report_says_when_there_is_no_control(tmp_path):
 
 
 
+def test_pages_carry_the_slice_stages_warning_of_a_changing_mix(tmp_path):
+    """A metadata column whose token mix changes strongly between the compared slices is a
+    warning on the pages as on the terminal (the same sentence as drift.composition gives),
+    and a mix that hardly changes is none."""
+    import pandas as pd
+
+    from drift.ingest.documents import composition_shifts
+
+    data = report.load_run(fixture_run_copy(tmp_path / "run"))
+    first, last = data.between
+    rows = []
+    for label, sport in ((first, 900), (last, 100)):
+        for value, tokens in (("sport", sport), ("news", 1000 - sport)):
+            rows.append({"slice": label, "column": "desk", "value": value, "documents": 1,
+                         "tokens": tokens, "share": tokens / 1000})
+    data.composition = pd.DataFrame(rows)
+    expected = composition_shifts(data.composition, [(first, last)])[1]
+    assert len(expected) == 1 and "the mix of 'desk' changes strongly" in expected[0]
+    assert report.mix_warnings(data) == expected
+    assert report.esc(expected[0][1:]) in report.warnings_html(data)
+    data.composition["tokens"] = 500
+    assert report.mix_warnings(data) == []
+    assert "mix of" not in report.warnings_html(data)
+
+
 def test_report_says_when_the_own_control_is_averaged_over_splits(tmp_path):
     run = fixture_run_copy(tmp_path / "run")
     assert "control pairs" not in report.control_html(report.load_run(run))

@@ -784,13 +784,30 @@ def _control_without_null(data: RunData) -> bool:
     return trained and data.rank_record.get("control_flagged", 0) is None
 
 
+def mix_warnings(data: RunData) -> list[str]:
+    """What ``drift slice`` warned of the slices' mix (:func:`drift.composition`): a metadata
+    column whose token mix changes strongly between the compared slices or two neighbouring
+    ones; none without a composition table."""
+    if data.composition is None or data.composition.empty:
+        return []
+    from drift.ingest.documents import composition_shifts
+
+    pair = tuple(data.between)
+    pairs = [pair] + [
+        (a, b) for a, b in zip(data.labels, data.labels[1:], strict=False) if (a, b) != pair
+    ]
+    return composition_shifts(data.composition, pairs)[1]
+
+
 def warnings_html(data: RunData) -> str:
-    """Warnings the terminal prints, for the pages: small slices, a weak or missing null."""
+    """Warnings the terminal prints, for the pages: small slices, a mix of sources that
+    changes strongly, a weak or missing null."""
     from drift.ingest.slicing import slice_warnings
 
     messages = []
     if "tokens" in data.summary:
         messages += [m[0].upper() + m[1:] for m in slice_warnings(data.summary)]
+    messages += [m[0].upper() + m[1:] for m in mix_warnings(data)]
     sig = data.significance
     if sig and sig.get("status") in ("weak", "unavailable"):
         what = ("Significance is weak" if sig["status"] == "weak"
