@@ -193,6 +193,8 @@ CANDIDATES = {
     "evidence, paired noise null only": ("evidence", dict(paired_drift=False)),
     "evidence, paired, drift z not count-matched (default before)": (
         "evidence", dict(count_matched=False)),
+    "evidence, paired, drift z count-matched on the rarer count": (
+        "evidence", dict(matched_on="rarer")),
     # on a run trained with --control-splits N: its first one or two control splits only
     "evidence, paired, first control split only": ("evidence", dict(control_splits=1)),
     "evidence, paired, first two control splits": ("evidence", dict(control_splits=2)),
@@ -352,6 +354,7 @@ def real_row(first: pd.DataFrame, second: pd.DataFrame) -> dict:
         "documented found": f"{len(documented)}/{len(DOCUMENTED)}",
         "top-50 shared across seeds": len(top_a & top_b),
         "real rho(z,freq)": _frequency_rho(first),
+        "real rho(z,freq), second seed": _frequency_rho(second),
     }
 
 

@@ -275,7 +275,8 @@ def test_evidence_combines_the_single_measure_rankings(own_geometry_run):
     """The default measure's z per null is Stouffer's combination of the z that displacement
     and local change get when each is calibrated alone, with the correlation run.json records
     (z = (z_d + z_l) / sqrt(2 + 2r)); the drift question's z is then standardised again among
-    words of similar count (count_matched_z), as each single measure's is."""
+    words of similar count, the two slices' counts summed (count_matched_z), as each single
+    measure's is; CalibrationOptions(matched_on="rarer") matches on the rarer count instead."""
     from drift.compare.alignment import parse_anchors
     from drift.compare.calibration import count_matched_z
     from drift.compare.ranking import CalibrationOptions, assemble_scores, measure_run
@@ -295,9 +296,14 @@ def test_evidence_combines_the_single_measure_rankings(own_geometry_run):
               for m in ("displacement", "local")}
     evidence = assemble_scores(inputs, measured, "evidence", 0.05, unmatched)[0].set_index("word")
     default = default.set_index("word").loc[evidence.index]
-    rarer = np.minimum(default["count_from"], default["count_to"])
-    np.testing.assert_allclose(default["drift_z"], count_matched_z(evidence["drift_z"], rarer),
+    total = default["count_from"] + default["count_to"]
+    np.testing.assert_allclose(default["drift_z"], count_matched_z(evidence["drift_z"], total),
                                rtol=1e-6)
+    on_rarer = assemble_scores(inputs, measured, "evidence", 0.05,
+                               CalibrationOptions(matched_on="rarer"))[0].set_index("word")
+    rarer = np.minimum(default["count_from"], default["count_to"])
+    np.testing.assert_allclose(on_rarer.loc[evidence.index, "drift_z"],
+                               count_matched_z(evidence["drift_z"], rarer), rtol=1e-6)
     np.testing.assert_allclose(default["noise_z"], evidence["noise_z"], rtol=1e-6)
     np.testing.assert_allclose(evidence["score"], evidence["displacement"])
     for null in ("noise", "drift"):
