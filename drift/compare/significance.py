@@ -78,7 +78,9 @@ def matching_count(count_from: np.ndarray, count_to: np.ndarray, how: str) -> np
     """The count the drift z is matched on (:attr:`CalibrationOptions.matched_on`)."""
     if how == "total":
         return count_from + count_to
-    return np.minimum(count_from, count_to)
+    if how == "rarer":
+        return np.minimum(count_from, count_to)
+    raise ValueError(f"matched_on must be 'total' or 'rarer', not {how!r}")
 
 
 def combine_noise(columns: np.ndarray, how: str) -> np.ndarray:

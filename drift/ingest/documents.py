@@ -446,6 +446,15 @@ def total_variation(p: pd.Series, q: pd.Series) -> float:
     return float(0.5 * (p - q).abs().sum())
 
 
+def mix_pairs(labels: Sequence[str], between: Sequence[str] | None = None) -> list[tuple[str, str]]:
+    """The pairs of slices whose mix is compared: the compared pair (default: the first and the
+    last slice), then each pair of neighbouring slices that is not it."""
+    pair = tuple(between) if between else (labels[0], labels[-1])
+    return [pair] + [
+        (a, b) for a, b in zip(labels, labels[1:], strict=False) if (a, b) != pair
+    ]
+
+
 def composition_shifts(
     composition: pd.DataFrame,
     pairs: Iterable[tuple[str, str]],
@@ -554,8 +563,5 @@ def composition(
     if between is None:
         rank = runfolder.read_manifest(Path(run)).get("stages", {}).get("rank", {})
         between = rank.get("params", {}).get("between") or [labels[0], labels[-1]]
-    pairs = [tuple(between)] + [
-        (a, b) for a, b in zip(labels, labels[1:], strict=False) if (a, b) != tuple(between)
-    ]
-    shifts, warnings = composition_shifts(table, pairs)
+    shifts, warnings = composition_shifts(table, mix_pairs(labels, between))
     return table, shifts, warnings

@@ -1346,12 +1346,8 @@ def slice_archive(
     )
     labels = summary["label"].tolist()
     if len(labels) > 1 and spec.meta:
-        pairs = [(labels[0], labels[-1])] + [
-            (a, b)
-            for a, b in zip(labels, labels[1:], strict=False)
-            if (a, b) != (labels[0], labels[-1])
-        ]
-        messages += documents.composition_shifts(summary.attrs["composition"], pairs)[1]
+        messages += documents.composition_shifts(summary.attrs["composition"],
+                                                 documents.mix_pairs(labels))[1]
     if totals.get("left_out_by_where"):
         messages.append(
             f"{_count(totals['left_out_by_where'], 'document')} left out by "

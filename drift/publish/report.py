@@ -790,13 +790,9 @@ def mix_warnings(data: RunData) -> list[str]:
     ones; none without a composition table."""
     if data.composition is None or data.composition.empty:
         return []
-    from drift.ingest.documents import composition_shifts
+    from drift.ingest.documents import composition_shifts, mix_pairs
 
-    pair = tuple(data.between)
-    pairs = [pair] + [
-        (a, b) for a, b in zip(data.labels, data.labels[1:], strict=False) if (a, b) != pair
-    ]
-    return composition_shifts(data.composition, pairs)[1]
+    return composition_shifts(data.composition, mix_pairs(data.labels, data.between))[1]
 
 
 def warnings_html(data: RunData) -> str:
