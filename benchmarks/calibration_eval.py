@@ -337,6 +337,33 @@ def shuffled_row(scores: pd.DataFrame) -> dict:
     }
 
 
+def _stability(first: pd.DataFrame, second: pd.DataFrame, runs: int = 200) -> dict:
+    """How far the two training runs' z differ, and the top-50 overlap that noise of that size
+    around the runs' mean z gives (simulated), at the measured noise and at half of it."""
+    from scipy import stats
+
+    both = first.merge(second, on="word", suffixes=("_a", "_b")).dropna(subset=["z_a", "z_b"])
+    gap = both["z_a"] - both["z_b"]
+    per_run = float(gap.std() / np.sqrt(2))
+    mean = ((both["z_a"] + both["z_b"]) / 2).to_numpy()
+    rng = np.random.default_rng(0)
+
+    def overlap(noise: float) -> float:
+        shared = []
+        for _ in range(runs):
+            a = mean + rng.normal(0, noise, len(mean))
+            b = mean + rng.normal(0, noise, len(mean))
+            shared.append(len(set(np.argsort(-a)[:50]) & set(np.argsort(-b)[:50])))
+        return float(np.mean(shared))
+
+    return {
+        "z sd between runs": float(gap.std()),
+        "Spearman of z between runs": float(stats.spearmanr(both["z_a"], both["z_b"]).statistic),
+        "top-50 shared, simulated at that noise": overlap(per_run),
+        "top-50 shared, simulated at half": overlap(per_run / 2),
+    }
+
+
 def real_row(first: pd.DataFrame, second: pd.DataFrame) -> dict:
     n = len(first)
     ranks = dict(zip(first["word"], first["rank"], strict=True))
@@ -355,6 +382,7 @@ def real_row(first: pd.DataFrame, second: pd.DataFrame) -> dict:
         "top-50 shared across seeds": len(top_a & top_b),
         "real rho(z,freq)": _frequency_rho(first),
         "real rho(z,freq), second seed": _frequency_rho(second),
+        **_stability(first, second),
     }
 
 
