@@ -159,6 +159,18 @@ def test_large_files_in_pieces_equal_the_local_engine(tmp_path, cluster, small_p
         assert_same_run(tmp_path / "local", tmp_path / "dask")
 
 
+def errors_of_both_engines(source: Path, tmp_path: Path, cluster) -> list[str]:
+    """The error each engine stops with when slicing ``source`` by 5 years (local, then dask)."""
+    messages = []
+    for engine in ("local", "dask"):
+        extra = {"scheduler": cluster.scheduler_address} if engine == "dask" else {}
+        with pytest.raises(DriftError) as failed:
+            slice_archive(source, tmp_path / f"bad-{engine}", by="5y", quiet=True,
+                          engine=engine, **extra)
+        messages.append(str(failed.value))
+    return messages
+
+
 def test_large_csv_in_pieces_equals_the_local_engine(tmp_path, cluster, small_pieces):
     """A CSV whose quoted fields hold commas, line breaks and doubled quotes is split at rows
     (readers.csv_row_starts), and the run folder is the local engine's, byte for byte; a bad
@@ -179,13 +191,7 @@ def test_large_csv_in_pieces_equals_the_local_engine(tmp_path, cluster, small_pi
     data = path.read_bytes()
     cut = tasks[-2]["piece"][0]
     path.write_bytes(data[:cut] + b"1995,one,two,three\n" + data[cut:])
-    messages = []
-    for engine in ("local", "dask"):
-        extra = {"scheduler": cluster.scheduler_address} if engine == "dask" else {}
-        with pytest.raises(DriftError) as failed:
-            slice_archive(path, tmp_path / f"bad-{engine}", by="5y", quiet=True,
-                          engine=engine, **extra)
-        messages.append(str(failed.value))
+    messages = errors_of_both_engines(path, tmp_path, cluster)
     assert messages[0] == messages[1]
 
 
@@ -246,13 +252,7 @@ def test_large_compressed_files_in_pieces_equal_the_local_engine(tmp_path, clust
     cut = [t for t in tasks if t["file"] == 0][-2]["piece"][0]
     (folder / "news.csv.gz").write_bytes(
         gzip.compress(data[:cut] + b"1995,one,two,three\n" + data[cut:]))
-    messages = []
-    for engine in ("local", "dask"):
-        extra = {"scheduler": cluster.scheduler_address} if engine == "dask" else {}
-        with pytest.raises(DriftError) as failed:
-            slice_archive(folder, tmp_path / f"bad-{engine}", by="5y", quiet=True,
-                          engine=engine, **extra)
-        messages.append(str(failed.value))
+    messages = errors_of_both_engines(folder, tmp_path, cluster)
     assert messages[0] == messages[1] and "news.csv.gz" in messages[0]
 
 

@@ -40,11 +40,8 @@ compressed files, damaged ones, and CSV files whose quoting is not plain
 
 from __future__ import annotations
 
-import bz2
 import contextlib
-import gzip
 import logging
-import lzma
 import os
 import shutil
 from collections.abc import Iterator
@@ -55,11 +52,11 @@ from drift.cluster import connect_dask, import_distributed, main_module_kept_fro
 from drift.errors import DriftError
 from drift.ingest import partstore, slicing
 from drift.ingest.readers import (
-    _DAMAGED,
     CsvReader,
     JsonLinesReader,
     Reader,
     _strip_compression_suffix,
+    decompress_file,
     open_source,
 )
 from drift.ingest.sources import MultiReader
@@ -359,12 +356,10 @@ def _inflated(
 
     target = folder / f"{fingerprint_file(one.path)}-{_strip_compression_suffix(one.path.name)}"
     if not target.exists():  # a rerun after a failed pass finds it
-        opener = {"gzip": gzip.open, "bzip2": bz2.open, "xz": lzma.open}[one.compression]
         try:
-            with atomic_path(target) as tmp, opener(one.path, "rb") as packed, \
-                    tmp.open("wb") as plain:
-                shutil.copyfileobj(packed, plain, 1 << 20)
-        except _DAMAGED:
+            with atomic_path(target) as tmp:
+                decompress_file(one.path, one.compression, tmp)
+        except DriftError:
             return None
     copy = open_source(target, fmt, one.time_col, one.text_col, encoding=encoding,
                        delimiter=delimiter)

@@ -163,6 +163,20 @@ def _strip_compression_suffix(name: str) -> str:
     return name
 
 
+def decompress_file(path: Path, compression: str, target: Path) -> None:
+    """Write the decompressed bytes of ``path`` (``compression``: gzip, bzip2 or xz) to
+    ``target``; a truncated or damaged file is a DriftError naming it."""
+    opener = {"gzip": gzip.open, "bzip2": bz2.open, "xz": lzma.open}[compression]
+    try:
+        with opener(path, "rb") as source, open(target, "wb") as out:
+            shutil.copyfileobj(source, out, 1 << 20)
+    except _DAMAGED as exc:
+        raise DriftError(
+            f"{path} is truncated or damaged ({compression}: {printable(str(exc))}); copy the "
+            "file again."
+        ) from None
+
+
 def detect_format(path: Path, fmt: str | None = None) -> str:
     """The table format of ``path``: ``fmt`` when given, else from the extension (folders: txt)."""
     path = Path(path)
@@ -899,15 +913,7 @@ class ParquetReader(Reader):
         if self.compression:
             self._tmpdir = tempfile.TemporaryDirectory(prefix="drift-parquet-")
             target = Path(self._tmpdir.name) / "source.parquet"
-            opener = {"gzip": gzip.open, "bzip2": bz2.open, "xz": lzma.open}[self.compression]
-            try:
-                with opener(self.path, "rb") as source, open(target, "wb") as out:
-                    shutil.copyfileobj(source, out, 1 << 20)
-            except _DAMAGED as exc:
-                raise DriftError(
-                    f"{self.path} is truncated or damaged ({self.compression}: "
-                    f"{printable(str(exc))}); copy the file again."
-                ) from None
+            decompress_file(self.path, self.compression, target)
         if target.stat().st_size == 0:
             raise DriftError(f"{self.path} is empty; give a Parquet file with documents.")
         try:
