@@ -54,6 +54,7 @@ from drift.ingest import partstore, slicing
 from drift.ingest.readers import (
     CsvReader,
     JsonLinesReader,
+    ParquetReader,
     Reader,
     _strip_compression_suffix,
     decompress_file,
@@ -376,8 +377,13 @@ def most_tasks(reader: Reader) -> int:
     readers = reader.readers if isinstance(reader, MultiReader) else [reader]
     total = 0
     for one in readers:
-        size = one.total_bytes * (5 if one.compression else 1)
-        total += max(1, -(-size // PIECE_BYTES))
+        table = isinstance(one, CsvReader | JsonLinesReader | ParquetReader)
+        inflated = isinstance(one, CsvReader | JsonLinesReader) and one.total_bytes > INFLATE_BYTES
+        if table and (not one.compression or inflated):  # may be read in pieces
+            size = one.total_bytes * (5 if one.compression else 1)
+            total += max(1, -(-size // PIECE_BYTES))
+        else:
+            total += 1
     return total
 
 
