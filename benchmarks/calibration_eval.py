@@ -191,8 +191,9 @@ CANDIDATES = {
     "local, paired": ("local", dict()),
     "evidence, paired (default)": ("evidence", dict()),
     "evidence, paired noise null only": ("evidence", dict(paired_drift=False)),
-    "evidence, paired, drift z not count-matched (default before)": (
-        "evidence", dict(count_matched=False)),
+    "evidence, paired, words the control lacks not a class of their own (default before)": (
+        "evidence", dict(separate_unpaired=False)),
+    "evidence, paired, drift z not count-matched": ("evidence", dict(count_matched=False)),
     "evidence, paired, drift z count-matched on the rarer count": (
         "evidence", dict(matched_on="rarer")),
     # on a run trained with --control-splits N: its first one or two control splits only

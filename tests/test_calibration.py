@@ -19,6 +19,7 @@ from drift.compare.calibration import (
     CALIBRATION_COLUMNS,
     bh_qvalues,
     calibrate,
+    class_spread,
     combine_evidence,
     count_matched_z,
     evidence_correlation,
@@ -26,6 +27,7 @@ from drift.compare.calibration import (
     frequency_covariate,
     noise_covariate,
     stouffer_z,
+    with_class_spread,
     with_count_matched_drift,
 )
 from drift.errors import DriftError
@@ -535,3 +537,60 @@ def test_with_count_matched_drift_recomputes_p_q_and_headline():
     assert np.allclose(matched["drift_p"], stats.norm.sf(matched["drift_z"]))
     assert np.allclose(matched["p"], np.fmax(matched["noise_p"], matched["drift_p"]))
     assert matched["noise_z"].equals(table["noise_z"])
+
+
+def _two_class_table(rng: np.random.Generator, wider: float, in_class: int = 300,
+                     movers: int = 5) -> tuple[pd.DataFrame, np.ndarray]:
+    """Both questions' z for 3,000 words: most N(0, 1), a class of ``in_class`` words
+    N(0, wider^2) whose first ``movers`` sit 8 spreads up; p from scipy.stats.norm."""
+    z = rng.standard_normal(3000)
+    chosen = np.zeros(3000, dtype=bool)
+    chosen[:in_class] = True
+    z[chosen] *= wider
+    z[:movers] = 8.0 * wider
+    columns = {}
+    for question in ("noise", "drift"):
+        columns[f"{question}_z"] = z
+        columns[f"{question}_p"] = stats.norm.sf(z)
+        columns[f"{question}_q"] = bh_qvalues(stats.norm.sf(z))
+    return pd.DataFrame(columns), chosen
+
+
+def test_with_class_spread_gives_a_wider_class_its_own_spread_across_seeds():
+    """A class whose z are 1.5 times as spread as the rest (on the calibration benchmark's
+    shuffled text, the words the control models lack: README) is brought back to unit spread:
+    its non-movers' false positives at p <= 0.01 match the level (scipy.stats.binomtest over 10
+    seeds), p is scipy.stats.norm.sf of the new z, the other words keep theirs, the movers stay
+    far in the tail."""
+    flagged = total = flagged_before = 0
+    for seed in range(10):
+        rng = np.random.default_rng(seed)
+        table, chosen = _two_class_table(rng, wider=1.5)
+        out, factors = with_class_spread(table, chosen, 0.05)
+        assert 1.3 < factors["noise"] == factors["drift"] < 1.7
+        np.testing.assert_allclose(out["noise_p"], stats.norm.sf(out["noise_z"]))
+        np.testing.assert_allclose(out["p"], np.fmax(out["noise_p"], out["drift_p"]))
+        np.testing.assert_array_equal(out["z"][~chosen], table["noise_z"][~chosen])
+        assert (out["z"][:5] > 6.0).all()
+        rest = chosen.copy()
+        rest[:5] = False
+        flagged += int((out["p"][rest] <= 0.01).sum())
+        flagged_before += int((table["noise_p"][rest] <= 0.01).sum())
+        total += int(rest.sum())
+    assert stats.binomtest(flagged, total, 0.01).pvalue > 0.001, flagged / total
+    assert flagged_before / total > 0.03  # 1.5 x 2.33 = 3.5 sd: about 5% before
+
+
+def test_with_class_spread_keeps_a_narrow_or_small_class_as_it_is():
+    """A class no wider than the rest is not made more significant, and a class with fewer than
+    MIN_CLASS_BELOW z below 0 has no spread of its own (NaN) and keeps its z."""
+    rng = np.random.default_rng(7)
+    narrow, chosen = _two_class_table(rng, wider=0.8)
+    out, factors = with_class_spread(narrow, chosen, 0.05)
+    assert factors == {"noise": 1.0, "drift": 1.0}
+    np.testing.assert_array_equal(out["noise_z"], narrow["noise_z"])
+    small, chosen = _two_class_table(rng, wider=2.0, in_class=40, movers=0)
+    assert np.isnan(class_spread(small["noise_z"][chosen]))
+    out, factors = with_class_spread(small, chosen, 0.05)
+    assert factors == {"noise": 1.0, "drift": 1.0}
+    np.testing.assert_array_equal(out["drift_z"], small["drift_z"])

@@ -695,3 +695,42 @@ def test_steps_needs_displacement(geometry_run):
     root, _ = geometry_run
     with pytest.raises(DriftError, match="--compare steps judges displacement"):
         rank_run(root, compare="steps", measure="turnover", quiet=True)
+
+
+def test_words_the_control_lacks_get_their_class_spread(own_geometry_run):
+    """Words no control model has (simulated by renaming a third of the control's words) form
+    their own class: with the default options their z per question is the z they get without
+    the class (separate_unpaired=False) divided by the spread run.json records for it, before
+    the drift z is count-matched; every other word's noise z is unchanged."""
+    from drift.compare.alignment import parse_anchors
+    from drift.compare.ranking import CalibrationOptions, assemble_scores, measure_run
+    from drift.compare.runinputs import read_run_inputs
+    from drift.compare.significance import lacks_own_control
+
+    root, _ = own_geometry_run
+    inputs = read_run_inputs(root)
+    measured = measure_run(inputs, (LABELS[0], LABELS[-1]), LABELS[0], 10, parse_anchors(None),
+                           quiet=True)
+    assert not lacks_own_control(measured, measured.words).any()
+    for result in measured.results:
+        result.control.words = [f"{w}#absent" if i % 3 == 0 else w
+                                for i, w in enumerate(result.control.words)]
+    lacking = lacks_own_control(measured, measured.words)
+    assert 100 < lacking.sum() < 150
+    plain = CalibrationOptions(count_matched=False)
+    single = dataclasses.replace(plain, separate_unpaired=False)
+    with_class, _, _, record = assemble_scores(inputs, measured, "evidence", 0.05, plain)
+    without, *_ = assemble_scores(inputs, measured, "evidence", 0.05, single)
+    with_class = with_class.set_index("word").loc[measured.words]
+    without = without.set_index("word").loc[measured.words]
+    entry = record["unpaired_class"]
+    assert entry["words"] == int(lacking.sum())
+    assert max(entry["noise_spread"], entry["drift_spread"]) > 1.0  # the class is wider here
+    chosen = lacking
+    for question in ("noise", "drift"):
+        factor = entry[f"{question}_spread"]
+        assert factor >= 1.0
+        np.testing.assert_allclose(with_class[f"{question}_z"][chosen],
+                                   without[f"{question}_z"][chosen] / factor, rtol=1e-4)
+        np.testing.assert_allclose(with_class[f"{question}_z"][~chosen],
+                                   without[f"{question}_z"][~chosen], rtol=1e-6)

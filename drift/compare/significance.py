@@ -72,6 +72,11 @@ class CalibrationOptions:
     #: Spearman(z, larger count) at 0.12 and 0.14; 'total' brought all three counts' |rho| to
     #: 0.08 or less (README)
     matched_on: str = "total"
+    #: (paired only) the words the control models lack, whose own control measure is only the
+    #: null's expectation, get their z divided by their class's own spread
+    #: (:func:`drift.compare.calibration.with_class_spread`): on the calibration benchmark's
+    #: shuffled text that class's z had a standard deviation of about 1.4 against 1.0 (README)
+    separate_unpaired: bool = True
 
 
 def matching_count(count_from: np.ndarray, count_to: np.ndarray, how: str) -> np.ndarray:
@@ -193,6 +198,17 @@ def calibrate_pair(
     else:
         columns, null, record = _one_measure_calibration(measured, scores, measure, alpha,
                                                          labels, options)
+    if options.paired and options.separate_unpaired:
+        from drift.compare.calibration import with_class_spread
+
+        lacking = lacks_own_control(measured, scores["word"].tolist())
+        if lacking is not None and lacking.any():
+            columns, factors = with_class_spread(columns, lacking, alpha)
+            record["unpaired_class"] = {
+                "words": int(lacking.sum()),
+                "noise_spread": round(factors["noise"], 4),
+                "drift_spread": round(factors["drift"], 4),
+            }
     if options.count_matched:
         from drift.compare.calibration import with_count_matched_drift
 
@@ -404,6 +420,19 @@ def own_control_counts(
         per_split.append([lookup.get(w, np.nan) for w in words])
     found = _nanmean(np.array(per_split, dtype=float), 0)
     return np.where(np.isfinite(found), found, fallback)
+
+
+def lacks_own_control(measured: Measured, words: Sequence[str]) -> np.ndarray | None:
+    """Which ``words`` no control model has (in any control split): their own control measure
+    is the null's expectation, not a measurement. None without a control pair."""
+    controls = [r.control for r in measured.results if r.control is not None]
+    if not controls:
+        return None
+    known = set(controls[0].words)
+    for result in measured.results:
+        for more in result.more_controls:
+            known.update(more.words)
+    return np.array([w not in known for w in words], dtype=bool)
 
 
 def own_control_values(
