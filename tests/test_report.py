@@ -539,11 +539,41 @@ def test_both_nulls_are_shown_where_the_run_has_them(tmp_path):
     run = edited_run(tmp_path, noise_z=7.5, noise_p=0.0004, noise_q=0.002, drift_z=2.25,
                      drift_p=0.03, drift_q=0.25)
     numbers = report.chart_word(run, WORD).read_text(encoding="utf-8").split('id="numbers"')[1]
-    assert "beyond noise? (more than the word itself moved in the control pair)" in numbers
+    # the fixture's null is a plain frequency-bin null, not the paired test
+    assert "beyond noise? (more than control words of its frequency and noise moved)" in numbers
     assert "z = 7.5, p = 0.0004, q = 0.002" in numbers
     assert "more than typical words of its frequency? (this corpus)" in numbers
     assert "z = 2.25, p = 0.03, q = 0.25" in numbers
     assert "headline (the more conservative)" in numbers
+
+
+def _with_rank_params(run: Path, **params) -> None:
+    manifest = json.loads(RunPaths(run).manifest.read_text())
+    manifest["stages"]["rank"]["params"].update(params)
+    RunPaths(run).manifest.write_text(json.dumps(manifest))
+
+
+def test_the_noise_question_says_what_the_word_was_compared_with(tmp_path):
+    """Paired (the default calibration, --compare pair): against the word's own control
+    measure, or, for a word no control model has (own_control empty), against control words
+    like it with the spread of such words; --compare steps is unpaired."""
+    paired = {"compare": "pair", "calibration": {"paired": True}}
+    cases = [
+        ({"own_control": 0.2}, paired, "more than the word itself moved in the control pair",
+         "its own distance between the control pair's halves."),
+        ({"own_control": None}, paired, "it is in no control model",
+         "but no control model has this word"),
+        ({"own_control": 0.2}, {**paired, "compare": "steps"},
+         "more than control words of its frequency and noise moved",
+         "with control words of the same frequency and seed-to-seed noise."),
+    ]
+    for number, (row, params, label, sentence) in enumerate(cases):
+        run = edited_run(tmp_path / str(number), noise_z=3.0, noise_p=0.001, noise_q=0.01,
+                         **row)
+        _with_rank_params(run, **params)
+        page = report.chart_word(run, WORD).read_text(encoding="utf-8")
+        assert f"beyond noise? ({label}" in page.split('id="numbers"')[1]
+        assert sentence in page
 
 
 def test_a_weak_significance_record_reaches_every_page(tmp_path):

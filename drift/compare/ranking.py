@@ -95,6 +95,7 @@ from drift.compare.significance import (
     calibrate_steps,
     combine_noise,
     mean_instability,
+    own_control_measure,
     pair_seed_noise,
 )
 from drift.errors import DriftError
@@ -535,6 +536,7 @@ def assemble_scores(
         )
         for column in calibration.columns:
             scores[column] = calibration[column].to_numpy()
+    scores["own_control"] = own_control_measure(measured, "displacement", words)
     if compare == "steps":
         pass  # change_point and change_step are the word's largest calibrated step
     elif len(inputs.labels) > 2:

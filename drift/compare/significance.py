@@ -435,15 +435,14 @@ def lacks_own_control(measured: Measured, words: Sequence[str]) -> np.ndarray | 
     return np.array([w not in known for w in words], dtype=bool)
 
 
-def own_control_values(
-    measured: Measured, measure: str, words: Sequence[str], noise_null: Any,
-    count: np.ndarray, noise: np.ndarray | None,
-) -> np.ndarray:
-    """Each word's own ``measure`` in the control pair (averaged over seeds, then over the
-    control splits where there are several), for the paired noise question and the drift
-    null's third covariate. A word the control models lack gets the noise null's centre: the
-    control measure expected of a word of its count and seed noise."""
+def own_control_measure(measured: Measured, measure: str, words: Sequence[str]) -> np.ndarray:
+    """Each word's own ``measure`` in the control pair, averaged over seeds, then over the
+    control splits where there are several; NaN where no control model has the word, and for
+    every word of a run without a control pair (the scores table's ``own_control``, of
+    displacement)."""
     splits = [[r.control for r in measured.results if r.control is not None]]
+    if not splits[0]:
+        return np.full(len(words), np.nan)
     splits += [list(split) for split in zip(*(r.more_controls for r in measured.results),
                                             strict=True)]
     per_split = []
@@ -451,7 +450,17 @@ def own_control_values(
         values, _ = mean_and_spread([c.value(measure) for c in controls])
         lookup = dict(zip(controls[0].words, values.tolist(), strict=True))
         per_split.append([lookup.get(w, np.nan) for w in words])
-    own = _nanmean(np.array(per_split, dtype=float), 0)
+    return _nanmean(np.array(per_split, dtype=float), 0)
+
+
+def own_control_values(
+    measured: Measured, measure: str, words: Sequence[str], noise_null: Any,
+    count: np.ndarray, noise: np.ndarray | None,
+) -> np.ndarray:
+    """:func:`own_control_measure`, for the paired noise question and the drift null's third
+    covariate: a word the control models lack gets the noise null's centre, the control measure
+    expected of a word of its count and seed noise."""
+    own = own_control_measure(measured, measure, words)
     missing = ~np.isfinite(own)
     if missing.any():
         own[missing] = noise_null.centre(count[missing],

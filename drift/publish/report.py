@@ -127,6 +127,21 @@ class RunData:
     def measure(self) -> str:
         return str(self.rank_params.get("measure") or "displacement")
 
+    @property
+    def noise_paired(self) -> bool:
+        """Whether the noise question compared each word with its own measure in the control
+        pair: ``--compare pair`` with the paired calibration, and no null that fell back to
+        the unpaired test (``not paired`` in run.json)."""
+        calibration = self.rank_params.get("calibration") or {}
+        if self.rank_params.get("compare", "pair") != "pair" or not calibration.get("paired"):
+            return False
+        record = self.rank_record
+        nulls = [record.get("noise_null")] + [
+            entry.get("noise_null")
+            for entry in ((record.get("evidence") or {}).get("nulls") or {}).values()
+        ]
+        return not any(isinstance(n, dict) and "not paired" in n for n in nulls)
+
     def change_range(self, word: str) -> wordviews.ChangeRange | None:
         """The word's change point with its range, when one is warranted (see
         :func:`change_warranted`), else None."""
@@ -466,6 +481,16 @@ def verdict_html(data: RunData, row: pd.Series) -> str:
     )
 
 
+def _noise_question(data: RunData, row: pd.Series) -> str:
+    """What the word's noise question compared it with (see :attr:`RunData.noise_paired`)."""
+    if not data.noise_paired:
+        return "more than control words of its frequency and noise moved"
+    if pd.isna(row.get("own_control")):
+        return ("it is in no control model, so against control words of its frequency and "
+                "noise, with the spread of the words the control lacks")
+    return "more than the word itself moved in the control pair"
+
+
 def word_summary_html(data: RunData, view: WordView) -> str:
     """The lead: how the word changed (from which neighbours to which, and when), or that it
     did not move more than words of its frequency do."""
@@ -568,8 +593,7 @@ def word_facts_html(data: RunData, view: WordView) -> str:
                       fmt(row.get("score"))))
     facts.append((f"neighbour turnover ({k} nearest, {a} vs {b})", fmt(view.turnover(data))))
     if "noise_z" in row.index and pd.notna(row.get("noise_z")):
-        facts.append(("beyond noise? (more than the word itself moved in the control pair)",
-                      _triple(row, "noise_")))
+        facts.append((f"beyond noise? ({_noise_question(data, row)})", _triple(row, "noise_")))
     if "drift_z" in row.index and pd.notna(row.get("drift_z")):
         facts.append(("more than typical words of its frequency? (this corpus)",
                       _triple(row, "drift_")))
@@ -876,8 +900,7 @@ averaged over seeds); gained, lost and turnover are counted among these {k}.</p>
 the control pair ({esc(a)} and {esc(b)} pooled and split at random, so without real change): 95%
 of control words this frequent moved less than its top edge. It is a per-slice line, not corrected
 for testing {len(data.scores):,} words at once, so a point above it is not by itself significant;
-the verdict uses q, which is corrected (Benjamini-Hochberg). The noise question compares the log
-of the word's distance with the log of its own distance between the control pair's halves; the
+the verdict uses q, which is corrected (Benjamini-Hochberg). {_noise_sentence(data, view)} The
 drift question compares it with words of the same frequency, seed-to-seed noise and control
 distance in this corpus; the verdict needs both{_evidence_note(data.measure)}.{
     ' The dotted line is the typical movement of words this frequent in this corpus.'
@@ -1002,6 +1025,22 @@ def _change_cell(row: Any, n_slices: int, labels: Sequence[str]) -> str:
         return ""
     before, after = _boundary(labels, str(series["change_point"]))
     return f"{esc(before)} → {esc(after)}"
+
+
+def _noise_sentence(data: RunData, view: WordView) -> str:
+    """How the word page's noise question was asked, for this word."""
+    if not data.noise_paired:
+        return ("The noise question compares the log of the word's distance with control words "
+                "of the same frequency and seed-to-seed noise.")
+    row = view.row
+    if row is not None and pd.isna(row.get("own_control")):
+        return ("The noise question would compare the log of the word's distance with the log of "
+                "its own distance between the control pair's halves, but no control model has "
+                "this word (it fell under the minimum count in one half); it is compared with "
+                "the distance expected of control words of its frequency and noise, and its z "
+                "is judged by the spread of the words the control lacks.")
+    return ("The noise question compares the log of the word's distance with the log of its own "
+            "distance between the control pair's halves.")
 
 
 def _evidence_note(measure: str) -> str:
