@@ -547,9 +547,10 @@ def test_both_nulls_are_shown_where_the_run_has_them(tmp_path):
     assert "headline (the more conservative)" in numbers
 
 
-def _with_rank_params(run: Path, **params) -> None:
+def _with_rank_params(run: Path, record: dict | None = None, **params) -> None:
     manifest = json.loads(RunPaths(run).manifest.read_text())
     manifest["stages"]["rank"]["params"].update(params)
+    manifest["stages"]["rank"].update(record or {})
     RunPaths(run).manifest.write_text(json.dumps(manifest))
 
 
@@ -563,10 +564,20 @@ def test_the_noise_question_says_what_the_word_was_compared_with(tmp_path):
          "its own distance between the control pair's halves."),
         ({"own_control": None}, paired, "it is in no control model",
          "but no control model has this word"),
+        ({"own_control": None},
+         {**paired, "record": {"unpaired_class": {"words": 230, "noise_spread": 1.41}}},
+         "it is in no control model", "divided by the spread of the 230 words the control lacks "
+         "(1.41)"),
         ({"own_control": 0.2}, {**paired, "compare": "steps"},
          "more than control words of its frequency and noise moved",
          "with control words of the same frequency and seed-to-seed noise."),
     ]
+    # on a long archive the local measure's paired null can fall back to the unpaired test
+    fell_back = {"evidence": {"nulls": {"displacement": {"noise_null": {}},
+                                        "local": {"noise_null": {"not paired": "Only 15 words"}}}}}
+    cases.append(({"own_control": 0.2}, {**paired, "record": fell_back},
+                  "more than the word itself moved in the control pair; local change: more than "
+                  "control words", "For local change too few words moved less than in the control"))
     for number, (row, params, label, sentence) in enumerate(cases):
         run = edited_run(tmp_path / str(number), noise_z=3.0, noise_p=0.001, noise_q=0.01,
                          **row)

@@ -128,19 +128,29 @@ class RunData:
         return str(self.rank_params.get("measure") or "displacement")
 
     @property
-    def noise_paired(self) -> bool:
-        """Whether the noise question compared each word with its own measure in the control
-        pair: ``--compare pair`` with the paired calibration, and no null that fell back to
-        the unpaired test (``not paired`` in run.json)."""
+    def unpaired_measures(self) -> list[str]:
+        """The measures whose noise question did not compare each word with its own measure in
+        the control pair: all of them with ``--compare steps`` or an unpaired calibration, else
+        those whose paired null fell back to the unpaired test (``not paired`` in run.json,
+        when too few words moved less than in the control)."""
+        record = self.rank_record
+        per_measure = {name: entry.get("noise_null") for name, entry in
+                       ((record.get("evidence") or {}).get("nulls") or {}).items()}
+        if not per_measure:
+            per_measure = {self.measure: record.get("noise_null")}
         calibration = self.rank_params.get("calibration") or {}
         if self.rank_params.get("compare", "pair") != "pair" or not calibration.get("paired"):
-            return False
+            return list(per_measure)
+        return [name for name, null in per_measure.items()
+                if isinstance(null, dict) and "not paired" in null]
+
+    @property
+    def noise_paired(self) -> bool:
+        """Whether the noise question compared each word with its own control measure, for at
+        least one of the measures the ranking combines."""
         record = self.rank_record
-        nulls = [record.get("noise_null")] + [
-            entry.get("noise_null")
-            for entry in ((record.get("evidence") or {}).get("nulls") or {}).values()
-        ]
-        return not any(isinstance(n, dict) and "not paired" in n for n in nulls)
+        measures = list((record.get("evidence") or {}).get("nulls") or {}) or [self.measure]
+        return len(self.unpaired_measures) < len(measures)
 
     def change_range(self, word: str) -> wordviews.ChangeRange | None:
         """The word's change point with its range, when one is warranted (see
@@ -481,14 +491,39 @@ def verdict_html(data: RunData, row: pd.Series) -> str:
     )
 
 
+def _lacking_clause(data: RunData) -> str:
+    """Whether the words no control model has got a spread of their own (run.json's
+    ``unpaired_class``)."""
+    found = data.rank_record.get("unpaired_class") or {}
+    words, spread = int(found.get("words") or 0), float(found.get("noise_spread") or 1.0)
+    if spread > 1.0:
+        return (f"its z was divided by the spread of the {words:,} words the control lacks "
+                f"({spread:.2f}), which move more than the rest")
+    return (f"the {words:,} words the control lacks were too few, or no wider than the rest, "
+            "for a spread of their own")
+
+
+#: How pages name the measures whose noise question may differ.
+MEASURE_WORDS = {"displacement": "displacement", "local": "local change",
+                 "turnover": "neighbour turnover"}
+
+
+def _measure_names(names: Sequence[str]) -> str:
+    return " and ".join(MEASURE_WORDS.get(name, name) for name in names)
+
+
 def _noise_question(data: RunData, row: pd.Series) -> str:
-    """What the word's noise question compared it with (see :attr:`RunData.noise_paired`)."""
+    """What the word's noise question compared it with (see :attr:`RunData.unpaired_measures`)."""
+    like = "more than control words of its frequency and noise moved"
     if not data.noise_paired:
-        return "more than control words of its frequency and noise moved"
+        return like
     if pd.isna(row.get("own_control")):
-        return ("it is in no control model, so against control words of its frequency and "
-                "noise, with the spread of the words the control lacks")
-    return "more than the word itself moved in the control pair"
+        said = ("it is in no control model, so against control words of its frequency and "
+                f"noise; {_lacking_clause(data)}")
+    else:
+        said = "more than the word itself moved in the control pair"
+    unpaired = data.unpaired_measures
+    return f"{said}; {_measure_names(unpaired)}: {like}" if unpaired else said
 
 
 def word_summary_html(data: RunData, view: WordView) -> str:
@@ -1034,13 +1069,20 @@ def _noise_sentence(data: RunData, view: WordView) -> str:
                 "of the same frequency and seed-to-seed noise.")
     row = view.row
     if row is not None and pd.isna(row.get("own_control")):
-        return ("The noise question would compare the log of the word's distance with the log of "
-                "its own distance between the control pair's halves, but no control model has "
-                "this word (it fell under the minimum count in one half); it is compared with "
-                "the distance expected of control words of its frequency and noise, and its z "
-                "is judged by the spread of the words the control lacks.")
-    return ("The noise question compares the log of the word's distance with the log of its own "
-            "distance between the control pair's halves.")
+        said = ("The noise question would compare the log of the word's distance with the log "
+                "of its own distance between the control pair's halves, but no control model "
+                "has this word (it fell under the minimum count in one half); it is compared "
+                "with the distance expected of control words of its frequency and noise, and "
+                f"{_lacking_clause(data)}.")
+    else:
+        said = ("The noise question compares the log of the word's distance with the log of its "
+                "own distance between the control pair's halves.")
+    unpaired = data.unpaired_measures
+    if unpaired:
+        said += (f" For {_measure_names(unpaired)} too few words moved less than in the control "
+                 "pair for that comparison, so there it compares the word with control words of "
+                 "the same frequency and seed-to-seed noise.")
+    return said
 
 
 def _evidence_note(measure: str) -> str:
