@@ -517,7 +517,7 @@ def _noise_question(data: RunData, row: pd.Series) -> str:
     like = "more than control words of its frequency and noise moved"
     if not data.noise_paired:
         return like
-    if pd.isna(row.get("own_control")):
+    if pd.isna(row.get("own_control", 0.0)):
         said = ("it is in no control model, so against control words of its frequency and "
                 f"noise; {_lacking_clause(data)}")
     else:
@@ -1068,7 +1068,7 @@ def _noise_sentence(data: RunData, view: WordView) -> str:
         return ("The noise question compares the log of the word's distance with control words "
                 "of the same frequency and seed-to-seed noise.")
     row = view.row
-    if row is not None and pd.isna(row.get("own_control")):
+    if row is not None and pd.isna(row.get("own_control", 0.0)):
         said = ("The noise question would compare the log of the word's distance with the log "
                 "of its own distance between the control pair's halves, but no control model "
                 "has this word (it fell under the minimum count in one half); it is compared "
