@@ -51,14 +51,20 @@ def measures_judged(measure: str) -> tuple[str, ...]:
     return EVIDENCE_MEASURES if measure == "evidence" else (measure,)
 
 
-def measure_phrase(measure: str) -> str:
+def measure_phrase(measure: str, parts: Sequence[str] | None = None) -> str:
     """How a ranking measure is named in sentences (tables' notes, pages).
 
     >>> measure_phrase("evidence")
+    'displacement, local change and context change combined'
+    >>> measure_phrase("evidence", ["displacement", "local"])
     'displacement and local change combined'
     """
     if measure == "evidence":
-        return "displacement and local change combined"
+        named = {"displacement": "displacement", "local": "local change",
+                 "context": "context change"}
+        words = [named.get(part, part) for part in (parts or [*EVIDENCE_MEASURES, "context"])]
+        listed = words[0] if len(words) == 1 else ", ".join(words[:-1]) + " and " + words[-1]
+        return f"{listed} combined"
     return measure
 
 
@@ -605,8 +611,9 @@ class RankOptions(StageOptions):
     )
     measure: str = opt(
         "evidence",
-        "Ranking measure: evidence (displacement and local change, each calibrated, their z "
-        "combined), displacement, turnover, local or combined.",
+        "Ranking measure: evidence (displacement, local change and the context change counted "
+        "from the text, each calibrated, their z combined), displacement, turnover, local or "
+        "combined.",
         check=_choice(MEASURES, "--measure"),
     )
     k: int = opt(

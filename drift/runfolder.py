@@ -827,7 +827,8 @@ class TableSchema:
 
 SCORE_COLUMNS = (
     "word", "rank", "score", "displacement", "displacement_sd", "turnover", "turnover_sd",
-    "local", "local_sd", "count_from", "count_to", "fpm_from", "fpm_to", "log_freq_ratio",
+    "local", "local_sd", "context", "context_z", "count_from", "count_to", "fpm_from", "fpm_to",
+    "log_freq_ratio",
     "seed_noise", "own_control", "null_centre", "null_spread", "noise_z", "noise_p", "noise_q",
     "typical", "typical_spread", "drift_z", "drift_p", "drift_q",
     "z", "p", "q", "significant", "significance_note", "change_point", "change_step",

@@ -320,20 +320,23 @@ def test_evidence_combines_the_single_measure_rankings(own_geometry_run):
 
 
 def test_noise_is_paired_with_each_word_s_own_control_by_default(geometry_run):
+    """The noise question is paired; the drift null has count and seed noise only
+    (CalibrationOptions.paired_drift is off by default since 5 December 2026, README)."""
     root, scores = geometry_run
     nulls = runfolder.read_manifest(root)["stages"]["rank"]["evidence"]["nulls"]
     for measure in ("displacement", "local"):
         assert nulls[measure]["noise_null"]["scale"] == (
             "log of the measure over the word's own control measure")
-        assert "own control measure" in nulls[measure]["drift_null"]["covariates"]
+        assert "own control measure" not in nulls[measure]["drift_null"]["covariates"]
     assert scores.set_index("word").loc[MOVED, "significant"].all()
 
 
-def test_only_the_noise_question_paired_leaves_the_drift_null_without_own_control(
+def test_the_drift_question_paired_too_takes_the_own_control_as_a_covariate(
     own_geometry_run,
 ):
-    """CalibrationOptions(paired_drift=False), a benchmark candidate (README): the noise
-    question is still paired, the drift null has count and seed noise only."""
+    """CalibrationOptions(paired_drift=True), the default before 5 December 2026 and a
+    benchmark candidate (README): the noise question is paired as by default, and the drift
+    null takes the own control measure as a third covariate."""
     from drift.compare.alignment import parse_anchors
     from drift.compare.ranking import CalibrationOptions, assemble_scores, measure_run
     from drift.compare.runinputs import read_run_inputs
@@ -343,10 +346,10 @@ def test_only_the_noise_question_paired_leaves_the_drift_null_without_own_contro
     measured = measure_run(inputs, (LABELS[0], LABELS[-1]), LABELS[0], 10, parse_anchors(None),
                            quiet=True)
     scores, _, _, record = assemble_scores(inputs, measured, "displacement", 0.05,
-                                           CalibrationOptions(paired_drift=False))
+                                           CalibrationOptions(paired_drift=True))
     default, *_ = assemble_scores(inputs, measured, "displacement", 0.05, CalibrationOptions())
     assert record["noise_null"]["scale"] == "log of the measure over the word's own control measure"
-    assert "own control measure" not in record["drift_null"]["covariates"]
+    assert "own control measure" in record["drift_null"]["covariates"]
     by_word = scores.set_index("word")
     assert by_word.loc[MOVED, "significant"].all()
     np.testing.assert_allclose(by_word.loc[MOVED, "noise_z"],
@@ -415,7 +418,7 @@ def test_noise_is_asked_unpaired_when_almost_every_word_moved_more_than_in_the_c
     record = runfolder.read_manifest(root)["stages"]["rank"]
     assert "moved less than in the control pair" in record["noise_null"]["not paired"]
     assert "log of the measure" == record["noise_null"]["scale"]
-    assert "own control measure" in record["drift_null"]["covariates"]
+    assert "own control measure" not in record["drift_null"]["covariates"]
     assert scores["noise_z"].notna().all()
     assert set(scores["word"].head(len(MOVED))) == set(MOVED)
 
@@ -630,6 +633,29 @@ def test_real_text_swapped_words_stand_out(lee_run):
     swapped = scores.set_index("word").loc[["police", "fire"]]
     assert (swapped["change_point"] == "2003").all()
     assert (swapped["gained"].str.len() > 0).all()
+
+
+def test_real_text_evidence_counts_the_contexts_too(lee_run, tmp_path):
+    # The swapped words' contexts are exchanged in the last slice: counted from the text
+    # (PPMI rows, Levy, Goldberg and Dagan 2015) they lead the context measure and its own
+    # permutation z as well, and the evidence combines three measures.
+    root, scores = lee_run
+    record = runfolder.read_manifest(root)["stages"]["rank"]
+    assert record["evidence"]["measures"] == ["displacement", "local", "context"]
+    assert record["context_permutations"] == 20
+    frequent = top_rows(scores, all_rows=True, min_count=20)
+    for column in ("context", "context_z"):
+        leaders = frequent.sort_values(column, ascending=False).head(5)["word"]
+        assert {"police", "fire"} <= set(leaders), column
+    # Without the slice files the evidence is the embedding measures', with a note.
+    copy = tmp_path / "run"
+    shutil.copytree(root, copy)
+    runfolder.RunPaths(copy).slice_file(LABELS[-1]).unlink()
+    again = rank_run(copy, k=10, alpha=0.04, quiet=True)
+    redone = runfolder.read_manifest(copy)["stages"]["rank"]
+    assert redone["evidence"]["measures"] == ["displacement", "local"]
+    assert any("context change" in note for note in redone["notes"])
+    assert again["context"].isna().all() and again["context_z"].isna().all()
 
 
 def test_real_text_frequency_confound(lee_run):

@@ -50,6 +50,7 @@ from drift.compare.alignment import (
     parse_anchors,
 )
 from drift.compare.changepoint import change_points
+from drift.compare.contexts import ContextChange, context_change
 from drift.compare.measures import (
     consensus_neighbours,
     mean_and_spread,
@@ -269,6 +270,9 @@ class Measured:
     vocab_from: SliceVectors
     vocab_to: SliceVectors
     notes: list[str] = field(default_factory=list)
+    #: context change counted from the two slices' text, with each word's permutation null
+    #: (None: the slice files are gone; :mod:`drift.compare.contexts`)
+    context: ContextChange | None = None
 
 
 def measure_run(
@@ -302,7 +306,7 @@ def measure_run(
         raise DriftError(
             f"Slices {slice_from} and {slice_to} share no words; check the slicing and min count."
         )
-    steps = len(inputs.seeds) * (len(inputs.labels) + 2 * len(control_pairs(inputs)))
+    steps = len(inputs.seeds) * (len(inputs.labels) + 2 * len(control_pairs(inputs))) + 1
     results: list[SeedResult] = []
     cand_words: list[str] = []
     seed_zero: dict[str, SliceVectors] | None = None
@@ -325,7 +329,34 @@ def measure_run(
             cand_words = seed_cands
             seed_zero = models if seed_zero is None else seed_zero
             results.append(result)
-    return Measured(words, pair, reference, k, results, cand_words, vocab_from, vocab_to, notes)
+        context = measure_contexts(inputs, pair, words, vocab_from, vocab_to, notes)
+        progress.advance(task)
+    return Measured(words, pair, reference, k, results, cand_words, vocab_from, vocab_to, notes,
+                    context)
+
+
+def measure_contexts(
+    inputs: RunInputs, pair: tuple[str, str], words: list[str], vocab_from: SliceVectors,
+    vocab_to: SliceVectors, notes: list[str],
+) -> ContextChange | None:
+    """The context change of every word between the pair's slice files (None, with a note,
+    when a slice file is gone)."""
+    files = [inputs.paths.slice_file(label) for label in pair]
+    missing = [str(f) for f in files if not f.is_file()]
+    if missing:
+        notes.append(f"the slice file {missing[0]} is gone, so the evidence lacks the context "
+                     "change counted from the text; slice the archive again to restore it.")
+        return None
+    train = inputs.manifest.get("stages", {}).get("train", {}).get("params", {})
+    try:
+        return context_change(
+            files[0], files[1], words,
+            vocab_from.counts[vocab_from.rows(words)], vocab_to.counts[vocab_to.rows(words)],
+            window=int(train.get("window", 5)),
+        )
+    except DriftError as exc:
+        notes.append(f"the evidence lacks the context change counted from the text: {exc}.")
+        return None
 
 
 def _inputs_fingerprint(inputs: RunInputs, anchor_words_list: list[str] | None) -> str:
@@ -537,6 +568,9 @@ def assemble_scores(
         for column in calibration.columns:
             scores[column] = calibration[column].to_numpy()
     scores["own_control"] = own_control_measure(measured, "displacement", words)
+    context = getattr(measured, "context", None)  # measurements cached by an older drift
+    scores["context"] = context.distance if context is not None else np.nan
+    scores["context_z"] = context.z if context is not None else np.nan
     if compare == "steps":
         pass  # change_point and change_step are the word's largest calibrated step
     elif len(inputs.labels) > 2:

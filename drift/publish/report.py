@@ -118,6 +118,12 @@ class RunData:
         return self.manifest.get("stages", {}).get("rank", {}) or {}
 
     @property
+    def evidence_measures(self) -> list[str]:
+        """The measures the ``evidence`` z combined (run.json; two before the context change)."""
+        return list((self.rank_record.get("evidence") or {}).get("measures")
+                    or ["displacement", "local"])
+
+    @property
     def significance(self) -> dict[str, Any] | None:
         """``stages.rank.significance`` ({"status": "full"|"weak"|"unavailable", "reasons"})."""
         found = self.rank_record.get("significance")
@@ -505,7 +511,7 @@ def _lacking_clause(data: RunData) -> str:
 
 #: How pages name the measures whose noise question may differ.
 MEASURE_WORDS = {"displacement": "displacement", "local": "local change",
-                 "turnover": "neighbour turnover"}
+                 "turnover": "neighbour turnover", "context": "context change"}
 
 
 def _measure_names(names: Sequence[str]) -> str:
@@ -516,14 +522,18 @@ def _noise_question(data: RunData, row: pd.Series) -> str:
     """What the word's noise question compared it with (see :attr:`RunData.unpaired_measures`)."""
     like = "more than control words of its frequency and noise moved"
     if not data.noise_paired:
-        return like
-    if pd.isna(row.get("own_control", 0.0)):
+        said = like
+    elif pd.isna(row.get("own_control", 0.0)):
         said = ("it is in no control model, so against control words of its frequency and "
                 f"noise; {_lacking_clause(data)}")
     else:
         said = "more than the word itself moved in the control pair"
-    unpaired = data.unpaired_measures
-    return f"{said}; {_measure_names(unpaired)}: {like}" if unpaired else said
+    unpaired = data.unpaired_measures if data.noise_paired else []
+    said = f"{said}; {_measure_names(unpaired)}: {like}" if unpaired else said
+    if data.measure == "evidence" and "context" in data.evidence_measures:
+        said += ("; its counted contexts: more than between random halves of the two slices' "
+                 "lines")
+    return said
 
 
 def word_summary_html(data: RunData, view: WordView) -> str:
@@ -919,6 +929,10 @@ given on them, so read the order of the points more than their distances. Neighb
 averaged over {seeds} seed{'s' if seeds != 1 else ''}, on a fixed 0 to 1 scale. Dark blocks of
 similar slices before and after a boundary show a change; an even field shows a stable word.</p>
 <div class="figure">{parts["self_similarity"].html}</div>"""
+    evidence_note = _evidence_note(data.measure, data.evidence_measures)
+    paired_drift = (data.rank_params.get("calibration") or {}).get("paired_drift", True)
+    drift_covariates = (", seed-to-seed noise and control distance" if paired_drift
+                        else " and seed-to-seed noise")
     body = f"""
 {nav}
 <p class="muted">drift · {esc(data.root.name)} · word page</p>
@@ -936,8 +950,8 @@ the control pair ({esc(a)} and {esc(b)} pooled and split at random, so without r
 of control words this frequent moved less than its top edge. It is a per-slice line, not corrected
 for testing {len(data.scores):,} words at once, so a point above it is not by itself significant;
 the verdict uses q, which is corrected (Benjamini-Hochberg). {_noise_sentence(data, view)} The
-drift question compares it with words of the same frequency, seed-to-seed noise and control
-distance in this corpus; the verdict needs both{_evidence_note(data.measure)}.{
+drift question compares it with words of the same frequency{drift_covariates} in this corpus;
+the verdict needs both{evidence_note}.{
     ' The dotted line is the typical movement of words this frequent in this corpus.'
     if 'typical' in data.timeline else ''}</p>
 {change_html(data, view)}
@@ -1085,14 +1099,22 @@ def _noise_sentence(data: RunData, view: WordView) -> str:
     return said
 
 
-def _evidence_note(measure: str) -> str:
+def _evidence_note(measure: str, parts: Sequence[str] = ("displacement", "local")) -> str:
     """A sentence on how the ``evidence`` measure's z is made ('' for the other measures)."""
     if measure != "evidence":
         return ""
+    if "context" not in parts:
+        return (
+            " (z combines two measures, each calibrated the same way: the cosine displacement "
+            "and the change of the word's place among its own nearest neighbours; Stouffer's "
+            "method, corrected for the correlation between them)"
+        )
     return (
-        " (z combines two measures, each calibrated the same way: the cosine displacement and "
-        "the change of the word's place among its own nearest neighbours; Stouffer's method, "
-        "corrected for the correlation between them)"
+        " (z combines three measures: the cosine displacement and the change of the word's "
+        "place among its own nearest neighbours, each calibrated the same way, and the change "
+        "of its contexts counted from the text, whose noise question is the word's own "
+        "permutation null, the slices' lines split at random; Stouffer's method, corrected for "
+        "the correlation between them)"
     )
 
 
@@ -1279,7 +1301,7 @@ def report_page(
         "and what words of its frequency and noisiness generally moved in this corpus"
         if data.scores["z"].notna().any()
         else "by the corpus drift null's z (no control in this run)"
-    ) + _evidence_note(data.measure)
+    ) + _evidence_note(data.measure, data.evidence_measures)
     body = f"""
 <nav><a href="word-index.html">All {len(data.scores):,} measured words</a></nav>
 <p class="muted">drift · overview report</p>
