@@ -190,8 +190,11 @@ CANDIDATES = {
     "displacement, paired": ("displacement", dict()),
     "local, paired": ("local", dict()),
     "evidence, paired (default)": ("evidence", dict()),
-    "evidence, paired noise null only": ("evidence", dict(paired_drift=False)),
-    "evidence, paired, words the control lacks not a class of their own (default before)": (
+    "evidence, paired, drift null with own control": ("evidence", dict(paired_drift=True)),
+    "evidence, paired, drift null with own control, without the context change (default before)": (
+        "evidence", dict(paired_drift=True, context=False)),
+    "evidence, paired, without the context change": ("evidence", dict(context=False)),
+    "evidence, paired, words the control lacks not a class of their own": (
         "evidence", dict(separate_unpaired=False)),
     "evidence, paired, drift z not count-matched": ("evidence", dict(count_matched=False)),
     "evidence, paired, drift z count-matched on the rarer count": (
