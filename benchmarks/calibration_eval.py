@@ -194,6 +194,7 @@ CANDIDATES = {
     "evidence, paired, drift null with own control, without the context change (default before)": (
         "evidence", dict(paired_drift=True, context=False)),
     "evidence, paired, without the context change": ("evidence", dict(context=False)),
+    "evidence, paired, GLS weights": ("evidence", dict(evidence_weights="gls")),
     "evidence, paired, words the control lacks not a class of their own": (
         "evidence", dict(separate_unpaired=False)),
     "evidence, paired, drift z not count-matched": ("evidence", dict(count_matched=False)),

@@ -598,8 +598,9 @@ class RankOptions(StageOptions):
     evidence (displacement and local change, each calibrated, combined by Stouffer's method)
     had the highest average precision on the calibration benchmark, 0.365 against
     displacement's 0.288 when it was chosen, better on each of the 4 seeds
-    (benchmarks/CALIBRATION_HISTORY.md); with the current calibration 0.55 against 0.40 and
-    local change's 0.51 (README: the calibration benchmark).
+    (benchmarks/CALIBRATION_HISTORY.md); since 5 December 2026 it also takes the context
+    change counted from the text, the three z weighted by their correlations (README: the
+    calibration benchmark).
     """
 
     between: tuple[str, str] | None = _between()

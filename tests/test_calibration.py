@@ -327,6 +327,31 @@ def test_correlated_measures_are_not_counted_twice():
     assert abs(stouffer_z(pair, r).std() - 1.0) < 0.03
 
 
+def test_unequally_correlated_measures_are_weighted_and_stay_standard_normal():
+    """Three measures, two strongly correlated and one nearly independent (as displacement,
+    local change and the counted context change are): O'Brien's (1984) GLS weights give the
+    third more weight; under the null the weighted z keeps a standard deviation of 1 (numpy's
+    sample statistics as reference); with equal correlations the weights are equal and the
+    combination is Stouffer's."""
+    from drift.compare.calibration import evidence_correlation_matrix, gls_weights, weighted_z
+
+    rng = np.random.default_rng(5)
+    shared = rng.standard_normal(20000)
+    first_two = np.sqrt(0.6) * shared[:, None] + np.sqrt(0.4) * rng.standard_normal((20000, 2))
+    third = np.sqrt(0.05) * shared + np.sqrt(0.95) * rng.standard_normal(20000)
+    z = np.column_stack([first_two, third])
+    matrix = evidence_correlation_matrix(z)
+    weights = gls_weights(matrix)
+    assert weights[2] > 0.4 > weights[0] and abs(weights[0] - weights[1]) < 0.02
+    combined = weighted_z(z, weights, matrix)
+    assert abs(combined.std() - 1.0) < 0.03 and abs(combined.mean()) < 0.03
+    pair = z[:, :2]
+    r = evidence_correlation(pair)
+    np.testing.assert_allclose(weighted_z(pair, gls_weights(evidence_correlation_matrix(pair)),
+                                          evidence_correlation_matrix(pair)),
+                               stouffer_z(pair, r), rtol=1e-9)
+
+
 def test_combined_evidence_keeps_its_level_across_seeds():
     """On a complete null (two correlated measures of unchanged words) the combined headline
     flags some word in at most 4 of 20 seeds (binomial bound, as for one measure above)."""

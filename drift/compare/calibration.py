@@ -782,13 +782,33 @@ def _as_normal_z(p: np.ndarray) -> np.ndarray:
     return stats.norm.isf(np.clip(p, 1e-300, 1.0 - 1e-16))
 
 
-def evidence_correlation(z_columns: np.ndarray) -> float:
-    """Mean pairwise correlation of the measures' z over the words that did not move.
+def evidence_correlation_matrix(z_columns: np.ndarray) -> np.ndarray:
+    """The measures' z correlation matrix over the words that did not move.
 
     ``z_columns`` has one column per measure. Words with a missing z, or with ``|z|`` above
     :data:`CORRELATION_TRIM_Z` in any measure, are left out; with fewer than
-    :data:`MIN_NULL_WORDS` words left the measures are taken as perfectly correlated, the
-    cautious choice (their combination is then no stronger than their mean).
+    :data:`MIN_NULL_WORDS` words left (or a correlation that cannot be computed) the measures
+    are taken as perfectly correlated, the cautious choice (their combination is then no
+    stronger than their mean).
+    """
+    z = np.asarray(z_columns, dtype=float)
+    m = z.shape[1] if z.ndim == 2 else 1
+    cautious = np.ones((m, m))
+    if m < 2:
+        return cautious
+    calm = np.isfinite(z).all(axis=1) & (np.abs(z) <= CORRELATION_TRIM_Z).all(axis=1)
+    if calm.sum() < MIN_NULL_WORDS:
+        return cautious
+    with np.errstate(invalid="ignore", divide="ignore"):
+        matrix = np.corrcoef(z[calm], rowvar=False)
+    if not np.isfinite(matrix).all():
+        return cautious
+    return np.clip(matrix, -0.99, 1.0) + np.diag(1.0 - np.clip(np.diag(matrix), -0.99, 1.0))
+
+
+def evidence_correlation(z_columns: np.ndarray) -> float:
+    """Mean pairwise correlation of the measures' z over the words that did not move
+    (:func:`evidence_correlation_matrix`).
 
     >>> rng = np.random.default_rng(1)
     >>> shared = rng.standard_normal(4000)
@@ -797,15 +817,46 @@ def evidence_correlation(z_columns: np.ndarray) -> float:
     >>> round(evidence_correlation(z), 1)
     0.5
     """
+    matrix = evidence_correlation_matrix(z_columns)
+    if len(matrix) < 2:
+        return 1.0
+    return float(np.mean(matrix[np.triu_indices(len(matrix), k=1)]))
+
+
+def gls_weights(matrix: np.ndarray) -> np.ndarray:
+    """Weights for combining correlated z: ``inverse(matrix) @ 1`` (O'Brien's GLS test for
+    multiple endpoints, Biometrics 1984, from memory: the most powerful linear combination for
+    a shift common to all measures), negative weights set to 0, summing to 1. Equally
+    correlated measures get equal weights, which is Stouffer's combination; a measure less
+    correlated with the rest gets more, since it brings more that the others do not.
+
+    >>> gls_weights(np.array([[1.0, 0.5], [0.5, 1.0]])).round(3).tolist()
+    [0.5, 0.5]
+    >>> gls_weights(np.array([[1.0, 0.6, 0.2], [0.6, 1.0, 0.2], [0.2, 0.2, 1.0]])).round(3).tolist()
+    [0.286, 0.286, 0.429]
+    """
+    m = len(matrix)
+    equal = np.full(m, 1.0 / m)
+    try:
+        weights = np.linalg.solve(matrix, np.ones(m))
+    except np.linalg.LinAlgError:
+        return equal
+    weights = np.clip(weights, 0.0, None)
+    if not np.isfinite(weights).all() or weights.sum() <= 0:
+        return equal
+    return weights / weights.sum()
+
+
+def weighted_z(z_columns: np.ndarray, weights: np.ndarray, matrix: np.ndarray) -> np.ndarray:
+    """``z @ w / sqrt(w' R w)``: standard normal per row when each column is and ``R`` is
+    their correlation. A row with any z missing gives NaN.
+
+    >>> R = np.array([[1.0, 0.5], [0.5, 1.0]])
+    >>> weighted_z(np.array([[2.0, 2.0]]), np.array([0.5, 0.5]), R).round(3).tolist()
+    [2.309]
+    """
     z = np.asarray(z_columns, dtype=float)
-    if z.ndim != 2 or z.shape[1] < 2:
-        return 1.0
-    calm = np.isfinite(z).all(axis=1) & (np.abs(z) <= CORRELATION_TRIM_Z).all(axis=1)
-    if calm.sum() < MIN_NULL_WORDS:
-        return 1.0
-    matrix = np.corrcoef(z[calm], rowvar=False)
-    upper = matrix[np.triu_indices(z.shape[1], k=1)]
-    return float(np.clip(np.nanmean(upper), -0.99, 1.0)) if np.isfinite(upper).any() else 1.0
+    return z @ weights / np.sqrt(weights @ matrix @ weights)
 
 
 def stouffer_z(z_columns: np.ndarray, correlation: float) -> np.ndarray:
@@ -827,16 +878,21 @@ def stouffer_z(z_columns: np.ndarray, correlation: float) -> np.ndarray:
 
 
 def combine_evidence(
-    tables: dict[str, pd.DataFrame], alpha: float = 0.05
+    tables: dict[str, pd.DataFrame], alpha: float = 0.05,
+    weights_out: dict[str, list[float]] | None = None, weighting: str = "equal",
 ) -> tuple[pd.DataFrame, dict[str, float]]:
     """One calibration table from several measures' (:func:`calibrate` outputs, same words).
 
     Per null, each measure's p is turned into a normal z, and the z are combined by
-    :func:`stouffer_z` with the correlation :func:`evidence_correlation` finds between them;
+    :func:`weighted_z` over the correlation matrix the words that did not move show: with equal
+    weights (``weighting="equal"``, Stouffer's method corrected for the correlation), or with
+    :func:`gls_weights` (``"gls"``; the same for two measures, which are always equally
+    correlated);
     p is the normal upper tail of the combined z and q its Benjamini-Hochberg adjustment. The
     headline follows, as in :func:`calibrate`: ``p = max(noise_p, drift_p)``, ``z`` the smaller
     z. The centre and spread columns are those of the first measure (the ``score`` the table
-    shows). Returns the table and the correlation used per null.
+    shows). Returns the table and the mean pairwise correlation per null; ``weights_out``, when
+    given, receives the weights per null.
 
     >>> rng = np.random.default_rng(0)
     >>> counts = rng.integers(20, 2000, 400).astype(float)
@@ -858,9 +914,15 @@ def combine_evidence(
     for null in ("noise", "drift"):
         p_columns = np.column_stack([t[f"{null}_p"].to_numpy(dtype=float) for t in tables.values()])
         z_columns = _as_normal_z(p_columns)
-        r = evidence_correlation(z_columns)
-        combined = stouffer_z(z_columns, r)
-        correlation[null] = r
+        matrix = evidence_correlation_matrix(z_columns)
+        if weighting not in ("equal", "gls"):
+            raise ValueError(f"weighting must be 'equal' or 'gls', not {weighting!r}")
+        weights = gls_weights(matrix) if weighting == "gls" else np.full(len(matrix),
+                                                                         1.0 / len(matrix))
+        combined = weighted_z(z_columns, weights, matrix)
+        correlation[null] = evidence_correlation(z_columns)
+        if weights_out is not None:
+            weights_out[null] = [round(float(w), 4) for w in weights]
         out[f"{null}_z"] = combined
         out[f"{null}_p"] = stats.norm.sf(combined)
         out[f"{null}_q"] = bh_qvalues(out[f"{null}_p"].to_numpy())

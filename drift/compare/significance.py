@@ -85,6 +85,12 @@ class CalibrationOptions:
     #: the evidence also takes the context change counted from the slices' text, judged
     #: against each word's own permutation null (:mod:`drift.compare.contexts`)
     context: bool = True
+    #: how the evidence weighs its measures' z: 'equal' (Stouffer's method, corrected for their
+    #: correlation) or 'gls' (O'Brien's GLS weights from their correlation matrix, which give
+    #: the less correlated context change more weight: higher average precision on the
+    #: calibration benchmark, 0.76 against 0.71, but on slices of about 260,000 tokens a target
+    #: whose count rose eightfold fell below the untouched words' top decile; README)
+    evidence_weights: str = "equal"
 
 
 def matching_count(count_from: np.ndarray, count_to: np.ndarray, how: str) -> np.ndarray:
@@ -253,7 +259,8 @@ def _evidence_calibration(
         tables["context"], records["context"] = _context_calibration(scores, context, alpha)
         if tables["context"][["noise_p", "drift_p"]].isna().any(axis=None):
             without = {name: table for name, table in tables.items() if name != "context"}
-    combined, correlation = combine_evidence(tables, alpha)
+    weights: dict[str, list[float]] = {}
+    combined, correlation = combine_evidence(tables, alpha, weights, options.evidence_weights)
     if without is not None:  # a word without contexts keeps the other measures' evidence
         combined = _filled_from(combined, combine_evidence(without, alpha)[0], alpha)
     reasons = list(dict.fromkeys(
@@ -279,6 +286,7 @@ def _evidence_calibration(
     record["evidence"] = {
         "measures": list(tables),
         "correlation": correlation,
+        "weights": weights,
         "nulls": {name: {key: rec[key] for key in ("noise_null", "drift_null") if key in rec}
                   for name, rec in records.items()},
     }
