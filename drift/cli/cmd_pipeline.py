@@ -22,7 +22,8 @@ def _show_result(result, view: ViewOptions, out: Path | None = None) -> None:
     from drift.cli.cmd_rank import shown_rows
 
     rows = shown_rows(result.run, result.scores, view)
-    params = record.get("params", {})
+    params = {**record.get("params", {}),
+              "evidence_measures": (record.get("evidence") or {}).get("measures")}
     calibrated = record.get("control_flagged") is not None
     print_rows(
         rows, view.output_format, lambda width: scores_table(rows, params, calibrated, width), out

@@ -36,7 +36,8 @@ def rank_command(
     rows = shown_rows(run, scores, view)
     record = rank_record(run)
     calibrated = record.get("control_flagged") is not None
-    params = record.get("params", {})
+    params = {**record.get("params", {}),
+              "evidence_measures": (record.get("evidence") or {}).get("measures")}
     print_rows(
         rows, view.output_format, lambda width: scores_table(rows, params, calibrated, width), out
     )

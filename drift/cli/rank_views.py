@@ -181,8 +181,9 @@ def scores_table(
     order = tuple(key for key in DROP_ORDER if key not in judged and key != measure)
     kept, dropped = _fit(columns, width, order) if width else (columns, [])
     shown = {c.key for c in kept}
+    phrase = measure_phrase(measure, params.get("evidence_measures"))
     notes = [
-        f"z, q: the headline of two questions, both needed: did {measure_phrase(measure)} "
+        f"z, q: the headline of two questions, both needed: did {phrase} "
         "move beyond noise, more than it moved between the control pair's random halves "
         "(noise_z, noise_q), and more than words of its frequency and noisiness "
         "moved here (drift null: drift_z, drift_q)? z is the smaller z, q the "
@@ -210,7 +211,7 @@ def scores_table(
         notes.append(f"Not shown at this width: {', '.join(dropped)} ({_WIDER}).")
     title = (
         f"Words that changed most from {first} to {last} "
-        f"(ranked by z: {measure_phrase(measure)} beyond noise and beyond the archive's drift)"
+        f"(ranked by z: {phrase} beyond noise and beyond the archive's drift)"
         if calibrated
         else f"Words that changed most from {first} to {last} (ranked by {measure})"
     )
