@@ -51,6 +51,11 @@ def measures_judged(measure: str) -> tuple[str, ...]:
     return EVIDENCE_MEASURES if measure == "evidence" else (measure,)
 
 
+#: How sentences (tables' notes, pages) name each measure.
+MEASURE_WORDS = {"displacement": "displacement", "local": "local change",
+                 "turnover": "neighbour turnover", "context": "context change"}
+
+
 def measure_phrase(measure: str, parts: Sequence[str] | None = None) -> str:
     """How a ranking measure is named in sentences (tables' notes, pages).
 
@@ -60,9 +65,8 @@ def measure_phrase(measure: str, parts: Sequence[str] | None = None) -> str:
     'displacement and local change combined'
     """
     if measure == "evidence":
-        named = {"displacement": "displacement", "local": "local change",
-                 "context": "context change"}
-        words = [named.get(part, part) for part in (parts or [*EVIDENCE_MEASURES, "context"])]
+        words = [MEASURE_WORDS.get(part, part)
+                 for part in (parts or [*EVIDENCE_MEASURES, "context"])]
         listed = words[0] if len(words) == 1 else ", ".join(words[:-1]) + " and " + words[-1]
         return f"{listed} combined"
     return measure

@@ -15,15 +15,14 @@ from drift.options import RankOptions, ReportOptions, SliceOptions, TrainOptions
 
 def _show_result(result, view: ViewOptions, out: Path | None = None) -> None:
     """Print the top words (as ``drift rank`` prints them), then where the report is."""
-    from drift.cli.rank_views import print_rows, scores_table
+    from drift.cli.rank_views import print_rows, scores_table, table_params
     from drift.compare.ranking import rank_record
 
     record = rank_record(result.run)
     from drift.cli.cmd_rank import shown_rows
 
     rows = shown_rows(result.run, result.scores, view)
-    params = {**record.get("params", {}),
-              "evidence_measures": (record.get("evidence") or {}).get("measures")}
+    params = table_params(record)
     calibrated = record.get("control_flagged") is not None
     print_rows(
         rows, view.output_format, lambda width: scores_table(rows, params, calibrated, width), out

@@ -29,15 +29,14 @@ def rank_command(
     view: ViewOptions = ViewOptions(),
 ) -> None:
     """Rank the words of RUN by how much their meaning moved; write scores, timeline and terms."""
-    from drift.cli.rank_views import print_rows, scores_table
+    from drift.cli.rank_views import print_rows, scores_table, table_params
     from drift.compare.ranking import rank_record, rank_run
 
     scores = rank_run(run, quiet=quiet, **options.kwargs())
     rows = shown_rows(run, scores, view)
     record = rank_record(run)
     calibrated = record.get("control_flagged") is not None
-    params = {**record.get("params", {}),
-              "evidence_measures": (record.get("evidence") or {}).get("measures")}
+    params = table_params(record)
     print_rows(
         rows, view.output_format, lambda width: scores_table(rows, params, calibrated, width), out
     )

@@ -139,6 +139,13 @@ def _first_words(value: Any) -> Text:
 # ---------------------------------------------------------------------------- scores
 
 
+def table_params(record: dict[str, Any]) -> dict[str, Any]:
+    """What :func:`scores_table` reads from ``stages.rank`` of run.json: its params and the
+    measures the evidence combined."""
+    return {**record.get("params", {}),
+            "evidence_measures": (record.get("evidence") or {}).get("measures")}
+
+
 def scores_table(
     rows: pd.DataFrame, params: dict[str, Any], calibrated: bool, width: int | None = 160
 ) -> Table:

@@ -817,10 +817,11 @@ def evidence_correlation(z_columns: np.ndarray) -> float:
     >>> round(evidence_correlation(z), 1)
     0.5
     """
-    matrix = evidence_correlation_matrix(z_columns)
-    if len(matrix) < 2:
-        return 1.0
-    return float(np.mean(matrix[np.triu_indices(len(matrix), k=1)]))
+    return _mean_off_diagonal(evidence_correlation_matrix(z_columns))
+
+
+def _mean_off_diagonal(matrix: np.ndarray) -> float:
+    return float(np.mean(matrix[np.triu_indices(len(matrix), k=1)])) if len(matrix) > 1 else 1.0
 
 
 def gls_weights(matrix: np.ndarray) -> np.ndarray:
@@ -908,6 +909,8 @@ def combine_evidence(
     (True, True)
     """
     alpha = check_alpha(alpha)
+    if weighting not in ("equal", "gls"):
+        raise ValueError(f"weighting must be 'equal' or 'gls', not {weighting!r}")
     first = next(iter(tables.values()))
     out = first.copy()
     correlation: dict[str, float] = {}
@@ -915,12 +918,13 @@ def combine_evidence(
         p_columns = np.column_stack([t[f"{null}_p"].to_numpy(dtype=float) for t in tables.values()])
         z_columns = _as_normal_z(p_columns)
         matrix = evidence_correlation_matrix(z_columns)
-        if weighting not in ("equal", "gls"):
-            raise ValueError(f"weighting must be 'equal' or 'gls', not {weighting!r}")
-        weights = gls_weights(matrix) if weighting == "gls" else np.full(len(matrix),
-                                                                         1.0 / len(matrix))
-        combined = weighted_z(z_columns, weights, matrix)
-        correlation[null] = evidence_correlation(z_columns)
+        correlation[null] = _mean_off_diagonal(matrix)
+        if weighting == "gls":
+            weights = gls_weights(matrix)
+            combined = weighted_z(z_columns, weights, matrix)
+        else:
+            weights = np.full(len(matrix), 1.0 / len(matrix))
+            combined = stouffer_z(z_columns, correlation[null])
         if weights_out is not None:
             weights_out[null] = [round(float(w), 4) for w in weights]
         out[f"{null}_z"] = combined

@@ -100,26 +100,28 @@ def moderated_spread(spread: np.ndarray, splits: int, covariate: np.ndarray) -> 
 class CountedPairs:
     """Co-occurrences of the measured words in a pooled pair of slices.
 
-    Each pair of positions is one entry of ``keys`` (which distinct word pair it is, an index
-    into ``rows``/``cols``, sorted by row then column), ``weights`` and ``lines`` (the pooled
-    line it came from, the first slice's lines first); a split's matrix is then one weighted
-    ``bincount`` over the positions, with no sorting.
+    Each pair of positions is one entry of ``keys`` (which distinct word pair it is: an entry of
+    the CSR structure ``indptr``/``cols``, sorted by row then column), ``weights`` and ``lines``
+    (the pooled line it came from, the first slice's lines first); a split's matrix is then one
+    weighted ``bincount`` over the positions, with no sorting.
     """
 
     keys: np.ndarray  # int32 per position pair
     weights: np.ndarray  # float32 per position pair
     lines: np.ndarray  # int32 per position pair
-    rows: np.ndarray  # int32 per distinct word pair
+    indptr: np.ndarray  # CSR row pointers of the distinct word pairs
     cols: np.ndarray  # int32 per distinct word pair
     n_words: int
 
     def matrix(self, keep_lines: np.ndarray | None = None) -> sp.csr_matrix:
         """The symmetric co-occurrence matrix of the lines marked in ``keep_lines`` (all)."""
         weights = self.weights if keep_lines is None else self.weights * keep_lines[self.lines]
-        data = np.bincount(self.keys, weights=weights, minlength=len(self.rows))
-        indptr = np.concatenate([[0], np.cumsum(np.bincount(self.rows, minlength=self.n_words))])
-        counted = sp.csr_matrix((data, self.cols, indptr), shape=(self.n_words, self.n_words))
-        return (counted + counted.T).tocsr()
+        data = np.bincount(self.keys, weights=weights, minlength=len(self.cols))
+        counted = sp.csr_matrix((data, self.cols, self.indptr),
+                                shape=(self.n_words, self.n_words))
+        symmetric = (counted + counted.T).tocsr()
+        symmetric.eliminate_zeros()  # pairs seen only in lines left out
+        return symmetric
 
 
 def slice_token_ids(
@@ -152,8 +154,9 @@ def count_pairs(ids: np.ndarray, lengths: np.ndarray, n_words: int, window: int)
         owners.append(line_of[:-gap][keep])
         weights.append(np.full(int(keep.sum()), (window - gap + 1) / window, dtype=np.float32))
     distinct, keys = np.unique(np.concatenate(codes), return_inverse=True)
+    per_row = np.bincount(distinct // n_words, minlength=n_words)
     return CountedPairs(keys.astype(np.int32).ravel(), np.concatenate(weights),
-                        np.concatenate(owners), (distinct // n_words).astype(np.int32),
+                        np.concatenate(owners), np.concatenate([[0], np.cumsum(per_row)]),
                         (distinct % n_words).astype(np.int32), n_words)
 
 
@@ -167,11 +170,9 @@ def ppmi(counts: sp.csr_matrix, smoothing: float = CONTEXT_SMOOTHING) -> sp.csr_
     col = np.asarray(counts.sum(axis=0)).ravel() ** smoothing
     col = col / col.sum()
     coo = counts.tocoo()
-    present = coo.data > 0  # a split's matrix keeps the pooled pattern, zeros included
-    data, rows, cols = coo.data[present], coo.row[present], coo.col[present]
-    pmi = np.log(data / total) - np.log(row[rows]) - np.log(col[cols])
+    pmi = np.log(coo.data / total) - np.log(row[coo.row]) - np.log(col[coo.col])
     keep = pmi > 0
-    return sp.csr_matrix((pmi[keep], (rows[keep], cols[keep])), shape=counts.shape)
+    return sp.csr_matrix((pmi[keep], (coo.row[keep], coo.col[keep])), shape=counts.shape)
 
 
 def shared_basis(pooled: sp.csr_matrix, dim: int = BASIS_DIM) -> np.ndarray:

@@ -33,7 +33,7 @@ from drift import runfolder
 from drift.compare import neighbours, ranking
 from drift.compare.changepoint import change_warranted, is_significant
 from drift.errors import DriftError, unknown_word_error
-from drift.options import ReportOptions, score_column_of
+from drift.options import MEASURE_WORDS, ReportOptions, score_column_of
 from drift.publish import charts, evidence, wordviews
 from drift.runfolder import RunPaths
 
@@ -509,9 +509,6 @@ def _lacking_clause(data: RunData) -> str:
             "for a spread of their own")
 
 
-#: How pages name the measures whose noise question may differ.
-MEASURE_WORDS = {"displacement": "displacement", "local": "local change",
-                 "turnover": "neighbour turnover", "context": "context change"}
 
 
 def _measure_names(names: Sequence[str]) -> str:
