@@ -1110,8 +1110,8 @@ def _evidence_note(measure: str, parts: Sequence[str] = ("displacement", "local"
         " (z combines three measures: the cosine displacement and the change of the word's "
         "place among its own nearest neighbours, each calibrated the same way, and the change "
         "of its contexts counted from the text, whose noise question is the word's own "
-        "permutation null, the slices' lines split at random; weighted by how little each "
-        "correlates with the others, so that shared noise is not counted twice)"
+        "permutation null, the slices' lines split at random; Stouffer's method, corrected for "
+        "the correlation between them, so that shared noise is not counted twice)"
     )
 
 
