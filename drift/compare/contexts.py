@@ -10,21 +10,22 @@ PPMI matrix (truncated SVD of PPMI, as in Levy et al. 2015 and Hamilton, Leskove
 2016), so they share their axes and need no alignment; the change is the cosine distance of
 the two projected rows.
 
-Its null is the word's own (a permutation test): the pooled lines of the two slices are split
-at random into two halves of the slices' sizes, ``splits`` times, and the word's log distance
-between the halves gives its own mean and spread. The pooled basis is the same for every split,
-so the null differs from the real pair only in which lines fall where. The splits are drawn
-with a fixed seed: the measure does not depend on training, and the same two slices give the
-same null whatever seeds the models were trained with. A word whose count
-differs between the slices is expected to move further than between random halves, where its
-occurrences fall in proportion to the halves' sizes (sampling variances add as one over the
-count): its null mean is raised by the log of ``(1/n_from + 1/n_to) / (1/(N s) + 1/(N (1 -
-s)))``, with ``N = n_from + n_to`` and ``s`` the first slice's share of the counted tokens (for
-halves of equal size, ``N^2 / (4 n_from n_to)``).
+Its null is the word's own (a permutation test): the word's occurrences in the pooled lines of
+the two slices are dealt at random into two halves in the proportion the slices hold them
+(whole lines at a time: a line's occurrences of the word stay together), ``splits`` times, and
+the word's log distance between the halves gives its own mean and spread. So a word seen 100
+times in one slice and 800 in the other is compared with random halves of 100 and 800 of its own
+occurrences, and the noise of its rarer side is measured, not modelled. The context
+distribution of each half (the PPMI's column weights) comes from a random split of the pooled
+lines at the slices' sizes. The pooled basis is the same for every split, so the null differs
+from the real pair only in which occurrences fall where. The splits are drawn with a fixed
+seed: the measure does not depend on training, and the same two slices give the same null
+whatever seeds the models were trained with.
 """
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -59,14 +60,13 @@ class ContextChange:
     distance: np.ndarray
     null_mean: np.ndarray  # mean log distance between random halves
     null_spread: np.ndarray  # standard deviation of that log distance, moderated
-    imbalance: np.ndarray  # log of the count-imbalance factor
     splits: int
 
     @property
     def z(self) -> np.ndarray:
         """The word's log distance against its own permutation null, in null spreads."""
         with np.errstate(invalid="ignore", divide="ignore"):
-            excess = np.log(np.maximum(self.distance, FLOOR)) - self.null_mean - self.imbalance
+            excess = np.log(np.maximum(self.distance, FLOOR)) - self.null_mean
             return excess / (np.maximum(self.null_spread, FLOOR) * np.sqrt(1 + 1 / self.splits))
 
 
@@ -100,28 +100,51 @@ def moderated_spread(spread: np.ndarray, splits: int, covariate: np.ndarray) -> 
 class CountedPairs:
     """Co-occurrences of the measured words in a pooled pair of slices.
 
-    Each pair of positions is one entry of ``keys`` (which distinct word pair it is: an entry of
-    the CSR structure ``indptr``/``cols``, sorted by row then column), ``weights`` and ``lines``
-    (the pooled line it came from, the first slice's lines first); a split's matrix is then one
-    weighted ``bincount`` over the positions, with no sorting.
+    Each pair of positions is kept twice, once from each end (``words``: whose context it is),
+    as one entry of ``keys`` (which distinct word pair it is: an entry of the CSR structure
+    ``indptr``/``cols``, sorted by row then column), ``weights`` and ``lines`` (the pooled line
+    it came from, the first slice's lines first); a half's symmetric matrix is then one weighted
+    ``bincount`` over the positions, with no sorting. ``by_line`` holds each line's weight of
+    every word's contexts (lines x words), from which a half's context distribution is summed.
     """
 
-    keys: np.ndarray  # int32 per position pair
-    weights: np.ndarray  # float32 per position pair
-    lines: np.ndarray  # int32 per position pair
+    keys: np.ndarray  # int32 per position pair and end
+    weights: np.ndarray  # float64 per position pair and end
+    lines: np.ndarray  # int32 per position pair and end
+    words: np.ndarray  # int32 per position pair and end: the row it counts in
     indptr: np.ndarray  # CSR row pointers of the distinct word pairs
     cols: np.ndarray  # int32 per distinct word pair
-    n_words: int
+    totals: np.ndarray  # float64 per distinct word pair: its weight over all lines
+    by_line: sp.csr_matrix
 
-    def matrix(self, keep_lines: np.ndarray | None = None) -> sp.csr_matrix:
-        """The symmetric co-occurrence matrix of the lines marked in ``keep_lines`` (all)."""
-        weights = self.weights if keep_lines is None else self.weights * keep_lines[self.lines]
-        data = np.bincount(self.keys, weights=weights, minlength=len(self.cols))
-        counted = sp.csr_matrix((data, self.cols, self.indptr),
-                                shape=(self.n_words, self.n_words))
-        symmetric = (counted + counted.T).tocsr()
-        symmetric.eliminate_zeros()  # pairs seen only in lines left out
-        return symmetric
+    @property
+    def n_words(self) -> int:
+        return len(self.indptr) - 1
+
+    def matrix(self, kept: np.ndarray | None = None) -> sp.csr_matrix:
+        """The symmetric co-occurrence matrix of the position pairs marked in ``kept`` (all)."""
+        if kept is None:
+            return self._csr(self.totals.copy())
+        return self._csr(np.bincount(self.keys, weights=self.weights * kept,
+                                     minlength=len(self.cols)))
+
+    def split(self, kept: np.ndarray) -> tuple[sp.csr_matrix, sp.csr_matrix]:
+        """The matrices of the position pairs marked in ``kept`` and of the others."""
+        data = np.bincount(self.keys, weights=self.weights * kept, minlength=len(self.cols))
+        return self._csr(data), self._csr(np.maximum(self.totals - data, 0.0))
+
+    def _csr(self, data: np.ndarray) -> sp.csr_matrix:
+        # Pairs seen only in positions left out stay as stored zeros (``ppmi`` drops them):
+        # eliminating them here would rewrite the shared ``cols`` and ``indptr`` in place.
+        return sp.csr_matrix((data, self.cols, self.indptr), shape=(self.n_words, self.n_words))
+
+    def in_lines(self, keep_lines: np.ndarray) -> sp.csr_matrix:
+        """The co-occurrence matrix of the lines marked in ``keep_lines``."""
+        return self.matrix(keep_lines[self.lines])
+
+    def context_totals(self, keep_lines: np.ndarray) -> np.ndarray:
+        """Each word's total weight as a context in the lines marked in ``keep_lines``."""
+        return np.asarray(self.by_line.T @ keep_lines.astype(np.float64)).ravel()
 
 
 def slice_token_ids(
@@ -146,32 +169,52 @@ def count_pairs(ids: np.ndarray, lengths: np.ndarray, n_words: int, window: int)
     """Every pair of measured words at most ``window`` apart within a line, weighted as
     word2vec's shrinking window weighs it ((window - gap + 1) / window)."""
     line_of = np.repeat(np.arange(len(lengths), dtype=np.int32), lengths)
-    codes, weights, owners = [], [], []
+    firsts, seconds, weights, owners = [], [], [], []
     for gap in range(1, window + 1):
         a, b = ids[:-gap], ids[gap:]
         keep = (a >= 0) & (b >= 0) & (line_of[:-gap] == line_of[gap:])
-        codes.append(a[keep].astype(np.int64) * n_words + b[keep])
+        firsts.append(a[keep])
+        seconds.append(b[keep])
         owners.append(line_of[:-gap][keep])
-        weights.append(np.full(int(keep.sum()), (window - gap + 1) / window, dtype=np.float32))
-    distinct, keys = np.unique(np.concatenate(codes), return_inverse=True)
-    per_row = np.bincount(distinct // n_words, minlength=n_words)
-    return CountedPairs(keys.astype(np.int32).ravel(), np.concatenate(weights),
-                        np.concatenate(owners), np.concatenate([[0], np.cumsum(per_row)]),
-                        (distinct % n_words).astype(np.int32), n_words)
+        weights.append(np.full(int(keep.sum()), (window - gap + 1) / window))
+    # Sort the pairs once, in one direction; the distinct pairs (far fewer) give both.
+    firsts, seconds = np.concatenate(firsts), np.concatenate(seconds)
+    distinct, which = np.unique(firsts.astype(np.int64) * n_words + seconds, return_inverse=True)
+    reverse = (distinct % n_words) * n_words + distinct // n_words
+    both = np.union1d(distinct, reverse)  # the symmetric structure's pairs, sorted
+    which = which.ravel()
+    keys = np.concatenate([np.searchsorted(both, distinct)[which],
+                           np.searchsorted(both, reverse)[which]]).astype(np.int32)
+    rows = np.concatenate([firsts, seconds]).astype(np.int32)  # both ends of every pair
+    weights = np.concatenate(weights + weights)
+    lines = np.concatenate(owners + owners)
+    per_row = np.bincount(both // n_words, minlength=n_words)
+    by_line = sp.csr_matrix((weights, (lines, rows)),
+                            shape=(len(lengths), n_words))  # duplicates are summed
+    totals = np.bincount(keys, weights=weights, minlength=len(both))
+    return CountedPairs(keys, weights, lines, rows, np.concatenate([[0], np.cumsum(per_row)]),
+                        (both % n_words).astype(np.int32), totals, by_line)
 
 
-def ppmi(counts: sp.csr_matrix, smoothing: float = CONTEXT_SMOOTHING) -> sp.csr_matrix:
-    """Positive PMI of a co-occurrence matrix, the context distribution raised to
-    ``smoothing``."""
-    total = float(counts.sum())
-    if total <= 0:
+def ppmi(
+    counts: sp.csr_matrix,
+    context_totals: np.ndarray | None = None,
+    smoothing: float = CONTEXT_SMOOTHING,
+) -> sp.csr_matrix:
+    """Positive PMI of a co-occurrence matrix, the context distribution (the matrix's column
+    sums unless ``context_totals`` are given) raised to ``smoothing``. PMI is
+    ``log(count / (row total * P(context)))``: the grand total cancels."""
+    if float(counts.sum()) <= 0:
         return sp.csr_matrix(counts.shape)
-    row = np.asarray(counts.sum(axis=1)).ravel() / total
-    col = np.asarray(counts.sum(axis=0)).ravel() ** smoothing
+    if context_totals is None:
+        context_totals = np.asarray(counts.sum(axis=0)).ravel()
+    col = np.asarray(context_totals, dtype=float) ** smoothing
     col = col / col.sum()
+    row = np.asarray(counts.sum(axis=1)).ravel()
     coo = counts.tocoo()
-    pmi = np.log(coo.data / total) - np.log(row[coo.row]) - np.log(col[coo.col])
-    keep = pmi > 0
+    with np.errstate(divide="ignore", invalid="ignore"):  # stored zeros: dropped below
+        pmi = np.log(coo.data) - np.log(row[coo.row]) - np.log(col[coo.col])
+    keep = np.isfinite(pmi) & (pmi > 0)  # a context absent from the given totals: no PMI
     return sp.csr_matrix((pmi[keep], (coo.row[keep], coo.col[keep])), shape=counts.shape)
 
 
@@ -182,9 +225,11 @@ def shared_basis(pooled: sp.csr_matrix, dim: int = BASIS_DIM) -> np.ndarray:
     return np.ascontiguousarray(vt.T)
 
 
-def projected_rows(counts: sp.csr_matrix, basis: np.ndarray) -> np.ndarray:
+def projected_rows(
+    counts: sp.csr_matrix, basis: np.ndarray, context_totals: np.ndarray | None = None
+) -> np.ndarray:
     """Each word's PPMI row in ``basis`` coordinates, unit length (zero rows stay zero)."""
-    rows = ppmi(counts) @ basis
+    rows = ppmi(counts, context_totals) @ basis
     norms = np.linalg.norm(rows, axis=1, keepdims=True)
     return rows / np.where(norms > 0, norms, 1.0)
 
@@ -222,36 +267,48 @@ def context_change(
     in_from = np.zeros(len(lengths_from) + len(lengths_to), dtype=bool)
     in_from[: len(lengths_from)] = True
     basis = shared_basis(ppmi(counted.matrix()))
-    distance = row_distance(projected_rows(counted.matrix(in_from), basis),
-                            projected_rows(counted.matrix(~in_from), basis))
+    distance = row_distance(projected_rows(counted.in_lines(in_from), basis),
+                            projected_rows(counted.in_lines(~in_from), basis))
+    occurrences_from = np.bincount(ids_from[ids_from >= 0], minlength=len(index))
+    occurrences_to = np.bincount(ids_to[ids_to >= 0], minlength=len(index))
+    share = occurrences_from / np.maximum(occurrences_from + occurrences_to, 1)
     rng = np.random.default_rng(seed)
     logs = np.empty((splits, len(index)))
     for split in range(splits):
-        half = np.zeros_like(in_from)
-        half[rng.permutation(len(in_from))[: len(lengths_from)]] = True
-        between = row_distance(projected_rows(counted.matrix(half), basis),
-                               projected_rows(counted.matrix(~half), basis))
-        logs[split] = np.log(np.maximum(between, FLOOR))
-    tokens_from, tokens_to = int(lengths_from.sum()), int(lengths_to.sum())
-    share = tokens_from / max(tokens_from + tokens_to, 1)
+        between = own_share_distance(counted, basis, share, in_from, rng)
+        with np.errstate(invalid="ignore"):
+            logs[split] = np.log(np.maximum(between, FLOOR))
     pooled = np.log(np.maximum(np.asarray(count_from, float) + np.asarray(count_to, float), 1))
-    spread = moderated_spread(logs.std(axis=0, ddof=1), splits, pooled)
-    return ContextChange(distance, logs.mean(axis=0), spread,
-                         count_imbalance(count_from, count_to, share), splits)
+    # A word found in only a few lines can have all of them dealt to one half: that split says
+    # nothing about it, and a word left without most of its splits has no null (NaN).
+    usable = np.isfinite(logs).sum(axis=0) >= splits / 2
+    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN columns of unusable words
+        mean = np.where(usable, np.nanmean(logs, axis=0), np.nan)
+        raw_spread = np.where(usable, np.nanstd(logs, axis=0, ddof=1), np.nan)
+    spread = moderated_spread(raw_spread, splits, pooled)
+    return ContextChange(distance, mean, spread, splits)
 
 
-def count_imbalance(count_from: np.ndarray, count_to: np.ndarray, share: float) -> np.ndarray:
-    """Log of how much more sampling noise the word's counts in the two slices carry than
-    random halves of shares ``share`` and ``1 - share`` of the pooled lines would give it.
-
-    >>> float(count_imbalance(np.array([100.0]), np.array([100.0]), 0.5)[0])
-    0.0
-    >>> round(float(count_imbalance(np.array([200.0]), np.array([100.0]), 0.5)[0]), 4)
-    0.1178
-    """
-    a = np.maximum(np.asarray(count_from, dtype=float), 1.0)
-    b = np.maximum(np.asarray(count_to, dtype=float), 1.0)
-    pooled = a + b
-    share = min(max(share, 1e-6), 1 - 1e-6)
-    halves = 1 / (pooled * share) + 1 / (pooled * (1 - share))
-    return np.log((1 / a + 1 / b) / halves)
+def own_share_distance(
+    counted: CountedPairs,
+    basis: np.ndarray,
+    share: np.ndarray,
+    in_from: np.ndarray,
+    rng: np.random.Generator,
+) -> np.ndarray:
+    """One random split for every word's own null: each word's row takes each line with
+    probability ``share`` (its share of occurrences in the first slice), the context
+    distributions come from the lines split at random at the slices' sizes (``in_from``)."""
+    n_lines = len(in_from)
+    half = np.zeros(n_lines, dtype=bool)
+    half[rng.permutation(n_lines)[: int(in_from.sum())]] = True
+    # A uniform draw per (line, word): line draws plus word offsets, wrapping at 2**32, are
+    # independent between the lines of any one word.
+    line_draw = rng.integers(0, 2**32, size=n_lines, dtype=np.uint32)
+    word_offset = rng.integers(0, 2**32, size=counted.n_words, dtype=np.uint32)
+    bar = np.minimum(np.floor(share * 2.0**32), 2**32 - 1).astype(np.uint32)
+    first = (line_draw[counted.lines] + word_offset[counted.words]) < bar[counted.words]
+    counts_first, counts_second = counted.split(first)
+    return row_distance(projected_rows(counts_first, basis, counted.context_totals(half)),
+                        projected_rows(counts_second, basis, counted.context_totals(~half)))

@@ -319,7 +319,7 @@ def _context_calibration(
 
     count_from = scores["count_from"].to_numpy(dtype=float)
     count_to = scores["count_to"].to_numpy(dtype=float)
-    own = np.exp(context.null_mean + context.imbalance)
+    own = np.exp(context.null_mean)
     record: dict[str, Any] = {"control_flagged": None, "permutations": context.splits}
     reasons: list[str] = []
     try:
