@@ -194,7 +194,8 @@ CANDIDATES = {
     "evidence, paired, drift null with own control, without the context change (default before)": (
         "evidence", dict(paired_drift=True, context=False)),
     "evidence, paired, without the context change": ("evidence", dict(context=False)),
-    "evidence, paired, GLS weights": ("evidence", dict(evidence_weights="gls")),
+    "evidence, paired, equal weights (Stouffer, default before)": (
+        "evidence", dict(evidence_weights="equal")),
     "evidence, paired, words the control lacks not a class of their own": (
         "evidence", dict(separate_unpaired=False)),
     "evidence, paired, drift z not count-matched": ("evidence", dict(count_matched=False)),
@@ -205,6 +206,10 @@ CANDIDATES = {
     "evidence, paired, first two control splits": ("evidence", dict(control_splits=2)),
 }
 DEFAULT_CANDIDATE = "evidence, paired (default)"
+#: Raised whenever what ``measure_run`` computes changes, so that cached measurements of an
+#: older drift are not scored as if they were current (3: the context change's null deals
+#: each word's own occurrences in the slices' proportion).
+MEASUREMENTS_VERSION = 3
 
 BASELINE_CODE = """
 import sys
@@ -266,7 +271,8 @@ def candidate_scores(run: Path, trims: list[float]) -> dict[str, pd.DataFrame]:
         if all(f.exists() for f in files.values()):
             out.update({names[n]: pd.read_parquet(f) for n, f in files.items()})
             continue
-        kept = cache / f"measured-trim{trim}.pickle"  # a cache of this benchmark's own making
+        # a cache of this benchmark's own making, named by the version of the measurements
+        kept = cache / f"measured-{MEASUREMENTS_VERSION}-trim{trim}.pickle"
         if kept.exists():
             with kept.open("rb") as handle:
                 measured = pickle.load(handle)

@@ -124,6 +124,12 @@ class RunData:
                     or ["displacement", "local"])
 
     @property
+    def evidence_weighting(self) -> str:
+        """How the ``evidence`` z weighed its measures: 'gls' or 'equal' (run.json; 'equal'
+        for runs made before the weighting was recorded)."""
+        return str((self.rank_record.get("evidence") or {}).get("weighting") or "equal")
+
+    @property
     def significance(self) -> dict[str, Any] | None:
         """``stages.rank.significance`` ({"status": "full"|"weak"|"unavailable", "reasons"})."""
         found = self.rank_record.get("significance")
@@ -528,8 +534,8 @@ def _noise_question(data: RunData, row: pd.Series) -> str:
     unpaired = data.unpaired_measures if data.noise_paired else []
     said = f"{said}; {_measure_names(unpaired)}: {like}" if unpaired else said
     if data.measure == "evidence" and "context" in data.evidence_measures:
-        said += ("; its counted contexts: more than between random halves of the two slices' "
-                 "lines")
+        said += ("; its counted contexts: more than between random halves of its own "
+                 "occurrences, dealt in the proportion the two slices hold them")
     return said
 
 
@@ -926,7 +932,7 @@ given on them, so read the order of the points more than their distances. Neighb
 averaged over {seeds} seed{'s' if seeds != 1 else ''}, on a fixed 0 to 1 scale. Dark blocks of
 similar slices before and after a boundary show a change; an even field shows a stable word.</p>
 <div class="figure">{parts["self_similarity"].html}</div>"""
-    evidence_note = _evidence_note(data.measure, data.evidence_measures)
+    evidence_note = _evidence_note(data.measure, data.evidence_measures, data.evidence_weighting)
     paired_drift = (data.rank_params.get("calibration") or {}).get("paired_drift", True)
     drift_covariates = (", seed-to-seed noise and control distance" if paired_drift
                         else " and seed-to-seed noise")
@@ -1096,7 +1102,9 @@ def _noise_sentence(data: RunData, view: WordView) -> str:
     return said
 
 
-def _evidence_note(measure: str, parts: Sequence[str] = ("displacement", "local")) -> str:
+def _evidence_note(
+    measure: str, parts: Sequence[str] = ("displacement", "local"), weighting: str = "equal"
+) -> str:
     """A sentence on how the ``evidence`` measure's z is made ('' for the other measures)."""
     if measure != "evidence":
         return ""
@@ -1106,12 +1114,17 @@ def _evidence_note(measure: str, parts: Sequence[str] = ("displacement", "local"
             "and the change of the word's place among its own nearest neighbours; Stouffer's "
             "method, corrected for the correlation between them)"
         )
+    how = ("weighted by their correlation (O'Brien's GLS combination), so that shared noise "
+           "is not counted twice and the least correlated measure counts most"
+           if weighting == "gls" else
+           "Stouffer's method, corrected for the correlation between them, so that shared noise "
+           "is not counted twice")
     return (
         " (z combines three measures: the cosine displacement and the change of the word's "
         "place among its own nearest neighbours, each calibrated the same way, and the change "
         "of its contexts counted from the text, whose noise question is the word's own "
-        "permutation null, the slices' lines split at random; Stouffer's method, corrected for "
-        "the correlation between them, so that shared noise is not counted twice)"
+        "permutation null, its occurrences dealt at random between the two slices in the "
+        f"proportion they hold them; {how})"
     )
 
 
@@ -1298,7 +1311,7 @@ def report_page(
         "and what words of its frequency and noisiness generally moved in this corpus"
         if data.scores["z"].notna().any()
         else "by the corpus drift null's z (no control in this run)"
-    ) + _evidence_note(data.measure, data.evidence_measures)
+    ) + _evidence_note(data.measure, data.evidence_measures, data.evidence_weighting)
     body = f"""
 <nav><a href="word-index.html">All {len(data.scores):,} measured words</a></nav>
 <p class="muted">drift · overview report</p>
