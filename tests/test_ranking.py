@@ -705,6 +705,8 @@ def test_whole_timeline_finds_the_step_where_words_moved(geometry_run, tmp_path)
     assert stable["significant"].sum() <= 2
     record = runfolder.read_manifest(copy)["stages"]["rank"]
     assert record["params"]["compare"] == "steps"
+    # steps judge displacement only: the first and last slices' context change is not counted
+    assert scores["context_z"].isna().all() and "context_permutations" not in record
     assert record["drift_null_count_matched"] is True  # each step's drift z, as the pair's
     # each step's drift z is centred within count bins (count_matched_z), so the chosen
     # step's drift z shows no trend along the counts: its median is the same in every third of

@@ -22,10 +22,11 @@ How a run is scored (per seed, then averaged over seeds with the spread kept in 
 3. The control pair (control-a vs control-b, the compared slices pooled and split at random) is
    measured exactly like the compared pair; its measures, as a function of frequency, are the
    null for z, p and q (:mod:`drift.compare.calibration`).
-4. The default measure, ``evidence``, calibrates displacement and local change separately
-   against both nulls and combines each null's two z by Stouffer's method, corrected for the
-   correlation between them (:func:`drift.compare.calibration.combine_evidence`); its ``score``
-   column is the displacement. The older ``combined`` measure is the mean of displacement and
+4. The default measure, ``evidence``, calibrates displacement, local change and the context
+   change counted from the text (:mod:`drift.compare.contexts`) separately against both nulls
+   and combines each null's z with weights from their correlation matrix (O'Brien's GLS;
+   :func:`drift.compare.calibration.combine_evidence`); its ``score`` column is the
+   displacement. The older ``combined`` measure is the mean of displacement and
    turnover, per seed, calibrated as one measure.
 
 ``gained`` and ``lost`` come from consensus neighbour lists: the k best candidates by similarity
@@ -283,8 +284,10 @@ def measure_run(
     anchors: AnchorSpec,
     trim: float = DEFAULT_ANCHOR_TRIM,
     quiet: bool = False,
+    contexts: bool = True,
 ) -> Measured:
-    """Measure every seed of a run (the expensive part of ranking; no calibration yet)."""
+    """Measure every seed of a run (the expensive part of ranking; no calibration yet) and,
+    with ``contexts``, the context change between the pair's slice files."""
     slice_from, slice_to = pair
     notes: list[str] = []
     if inputs.control is None:
@@ -329,7 +332,8 @@ def measure_run(
             cand_words = seed_cands
             seed_zero = models if seed_zero is None else seed_zero
             results.append(result)
-        context = measure_contexts(inputs, pair, words, vocab_from, vocab_to, notes)
+        context = (measure_contexts(inputs, pair, words, vocab_from, vocab_to, notes)
+                   if contexts else None)
         progress.advance(task)
     return Measured(words, pair, reference, k, results, cand_words, vocab_from, vocab_to, notes,
                     context)
@@ -485,8 +489,10 @@ def rank_run(
         return read_scores(root)
 
     with runfolder.run_lock(root):
+        # --compare steps calibrates displacement between adjacent slices: the context change
+        # of the first and last slice would be counted for nothing
         measured = measure_run(inputs, (slice_from, slice_to), ref, int(k), anchor_spec,
-                               float(anchor_trim), quiet)
+                               float(anchor_trim), quiet, contexts=compare != "steps")
         scores, timeline, terms, extra = assemble_scores(
             inputs, measured, measure, float(alpha), compare=compare,
             term_rule=check_term_rule(term_count, term_ratio),
