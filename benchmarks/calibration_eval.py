@@ -194,8 +194,8 @@ CANDIDATES = {
     "evidence, paired, drift null with own control, without the context change (default before)": (
         "evidence", dict(paired_drift=True, context=False)),
     "evidence, paired, without the context change": ("evidence", dict(context=False)),
-    "evidence, paired, equal weights (Stouffer, default before)": (
-        "evidence", dict(evidence_weights="equal")),
+    "evidence, paired, GLS weights (default before)": ("evidence", dict(evidence_weights="gls")),
+    "evidence, paired, equal weights (Stouffer)": ("evidence", dict(evidence_weights="equal")),
     "evidence, paired, words the control lacks not a class of their own": (
         "evidence", dict(separate_unpaired=False)),
     "evidence, paired, drift z not count-matched": ("evidence", dict(count_matched=False)),

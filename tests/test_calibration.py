@@ -352,6 +352,39 @@ def test_unequally_correlated_measures_are_weighted_and_stay_standard_normal():
                                stouffer_z(pair, r), rtol=1e-9)
 
 
+def test_weights_by_kind_keep_the_combined_z_standard_normal():
+    """The default weighting: half to the counted context change, a quarter to each trained
+    measure, whatever their correlation; the weighted sum over its standard deviation (from the
+    correlation matrix) stays standard normal under the null (numpy's sample statistics as
+    reference), and with the context change missing the two trained measures weigh equally."""
+    from drift.compare.calibration import (
+        combine_evidence,
+        evidence_correlation_matrix,
+        kind_weights,
+        weighted_z,
+    )
+
+    rng = np.random.default_rng(6)
+    shared = rng.standard_normal(20000)
+    first_two = np.sqrt(0.6) * shared[:, None] + np.sqrt(0.4) * rng.standard_normal((20000, 2))
+    third = np.sqrt(0.05) * shared + np.sqrt(0.95) * rng.standard_normal(20000)
+    z = np.column_stack([first_two, third])
+    names = ["displacement", "local", "context"]
+    np.testing.assert_allclose(kind_weights(names), [0.25, 0.25, 0.5])
+    np.testing.assert_allclose(kind_weights(names[:2]), [0.5, 0.5])
+    combined = weighted_z(z, kind_weights(names), evidence_correlation_matrix(z))
+    assert abs(combined.std() - 1.0) < 0.03 and abs(combined.mean()) < 0.03
+    tables = {name: pd.DataFrame({"noise_p": stats.norm.sf(z[:, i]),
+                                  "drift_p": stats.norm.sf(z[:, i])})
+              for i, name in enumerate(names)}
+    weights: dict[str, list[float]] = {}
+    table, _ = combine_evidence(tables, weights_out=weights, weighting="kinds")
+    assert weights["noise"] == [0.25, 0.25, 0.5]
+    assert abs(table["noise_z"].std() - 1.0) < 0.03
+    with pytest.raises(ValueError, match="weighting must be one of"):
+        combine_evidence(tables, weighting="best")
+
+
 def test_combined_evidence_keeps_its_level_across_seeds():
     """On a complete null (two correlated measures of unchanged words) the combined headline
     flags some word in at most 4 of 20 seeds (binomial bound, as for one measure above)."""

@@ -759,3 +759,15 @@ def test_is_significant_treats_missing_as_not(value, expected):
 
     value = pd.NA if value == "NA" else value
     assert report.is_significant(value) is expected  # bool(nan) would say True
+
+
+def test_evidence_note_says_how_the_measures_were_weighted():
+    """The report's sentence on the evidence names the weighting run.json recorded: by kind
+    (the default), O'Brien's GLS weights, or Stouffer's equal weights."""
+    from drift.publish.report import _evidence_note
+
+    parts = ("displacement", "local", "context")
+    assert "half the weight to the counted contexts" in _evidence_note("evidence", parts, "kinds")
+    assert "O'Brien's GLS" in _evidence_note("evidence", parts, "gls")
+    assert "Stouffer's method" in _evidence_note("evidence", parts, "equal")
+    assert _evidence_note("displacement", parts, "kinds") == ""

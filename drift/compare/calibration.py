@@ -848,6 +848,28 @@ def gls_weights(matrix: np.ndarray) -> np.ndarray:
     return weights / weights.sum()
 
 
+#: The measure counted from the text, which :func:`kind_weights` sets against the trained ones.
+COUNTED_MEASURE = "context"
+
+
+def kind_weights(names: Sequence[str]) -> np.ndarray:
+    """Half the weight to the measure counted from the text (:data:`COUNTED_MEASURE`), half
+    shared equally by the measures read off trained models; equal weights when only one kind
+    is present. Two kinds of evidence, each with its own noise (sampling of the text's
+    occurrences; that and the optimisation of two trainings and an alignment), count equally,
+    however many measures each kind has (a design choice, no published source).
+
+    >>> kind_weights(["displacement", "local", "context"]).tolist()
+    [0.25, 0.25, 0.5]
+    >>> kind_weights(["displacement", "local"]).tolist()
+    [0.5, 0.5]
+    """
+    counted = np.array([name == COUNTED_MEASURE for name in names])
+    if counted.all() or not counted.any():
+        return np.full(len(names), 1.0 / len(names))
+    return np.where(counted, 0.5 / counted.sum(), 0.5 / (~counted).sum())
+
+
 def weighted_z(z_columns: np.ndarray, weights: np.ndarray, matrix: np.ndarray) -> np.ndarray:
     """``z @ w / sqrt(w' R w)``: standard normal per row when each column is and ``R`` is
     their correlation. A row with any z missing gives NaN.
@@ -878,6 +900,10 @@ def stouffer_z(z_columns: np.ndarray, correlation: float) -> np.ndarray:
     return z.sum(axis=1) / np.sqrt(m + m * (m - 1) * correlation)
 
 
+#: How :func:`combine_evidence` may weigh its measures.
+WEIGHTINGS = ("kinds", "gls", "equal")
+
+
 def combine_evidence(
     tables: dict[str, pd.DataFrame], alpha: float = 0.05,
     weights_out: dict[str, list[float]] | None = None, weighting: str = "equal",
@@ -886,9 +912,10 @@ def combine_evidence(
 
     Per null, each measure's p is turned into a normal z, and the z are combined by
     :func:`weighted_z` over the correlation matrix the words that did not move show: with equal
-    weights (``weighting="equal"``, Stouffer's method corrected for the correlation), or with
-    :func:`gls_weights` (``"gls"``; the same for two measures, which are always equally
-    correlated);
+    weights (``weighting="equal"``, Stouffer's method corrected for the correlation), with
+    :func:`kind_weights` (``"kinds"``: half to the context change counted from the text, half to
+    the trained measures; equal without it), or with :func:`gls_weights` (``"gls"``; the same
+    for two measures, which are always equally correlated);
     p is the normal upper tail of the combined z and q its Benjamini-Hochberg adjustment. The
     headline follows, as in :func:`calibrate`: ``p = max(noise_p, drift_p)``, ``z`` the smaller
     z. The centre and spread columns are those of the first measure (the ``score`` the table
@@ -909,8 +936,8 @@ def combine_evidence(
     (True, True)
     """
     alpha = check_alpha(alpha)
-    if weighting not in ("equal", "gls"):
-        raise ValueError(f"weighting must be 'equal' or 'gls', not {weighting!r}")
+    if weighting not in WEIGHTINGS:
+        raise ValueError(f"weighting must be one of {', '.join(WEIGHTINGS)}, not {weighting!r}")
     first = next(iter(tables.values()))
     out = first.copy()
     correlation: dict[str, float] = {}
@@ -919,8 +946,9 @@ def combine_evidence(
         z_columns = _as_normal_z(p_columns)
         matrix = evidence_correlation_matrix(z_columns)
         correlation[null] = _mean_off_diagonal(matrix)
-        if weighting == "gls":
-            weights = gls_weights(matrix)
+        if weighting in ("gls", "kinds"):
+            weights = (gls_weights(matrix) if weighting == "gls"
+                       else kind_weights(list(tables)))
             combined = weighted_z(z_columns, weights, matrix)
         else:
             weights = np.full(len(matrix), 1.0 / len(matrix))

@@ -24,8 +24,9 @@ How a run is scored (per seed, then averaged over seeds with the spread kept in 
    null for z, p and q (:mod:`drift.compare.calibration`).
 4. The default measure, ``evidence``, calibrates displacement, local change and the context
    change counted from the text (:mod:`drift.compare.contexts`) separately against both nulls
-   and combines each null's z with weights from their correlation matrix (O'Brien's GLS;
-   :func:`drift.compare.calibration.combine_evidence`); its ``score`` column is the
+   and combines each null's z, half the weight to the context change and a quarter to each
+   trained measure, the sum standardised by their correlation matrix
+   (:func:`drift.compare.calibration.combine_evidence`); its ``score`` column is the
    displacement. The older ``combined`` measure is the mean of displacement and
    turnover, per seed, calibrated as one measure.
 

@@ -125,8 +125,8 @@ class RunData:
 
     @property
     def evidence_weighting(self) -> str:
-        """How the ``evidence`` z weighed its measures: 'gls' or 'equal' (run.json; 'equal'
-        for runs made before the weighting was recorded)."""
+        """How the ``evidence`` z weighed its measures: 'kinds', 'gls' or 'equal' (run.json;
+        'equal' for runs made before the weighting was recorded)."""
         return str((self.rank_record.get("evidence") or {}).get("weighting") or "equal")
 
     @property
@@ -1114,11 +1114,14 @@ def _evidence_note(
             "and the change of the word's place among its own nearest neighbours; Stouffer's "
             "method, corrected for the correlation between them)"
         )
-    how = ("weighted by their correlation (O'Brien's GLS combination), so that shared noise "
-           "is not counted twice and the least correlated measure counts most"
-           if weighting == "gls" else
-           "Stouffer's method, corrected for the correlation between them, so that shared noise "
-           "is not counted twice")
+    how = {
+        "kinds": "half the weight to the counted contexts and half to the two trained measures, "
+                 "the sum's spread from the correlation between them, so that shared noise is "
+                 "not counted twice",
+        "gls": "weighted by their correlation (O'Brien's GLS combination), so that shared noise "
+               "is not counted twice and the least correlated measure counts most",
+    }.get(weighting, "Stouffer's method, corrected for the correlation between them, so that "
+                     "shared noise is not counted twice")
     return (
         " (z combines three measures: the cosine displacement and the change of the word's "
         "place among its own nearest neighbours, each calibrated the same way, and the change "
