@@ -327,6 +327,16 @@ def test_correlated_measures_are_not_counted_twice():
     assert abs(stouffer_z(pair, r).std() - 1.0) < 0.03
 
 
+def three_correlated_measures(seed: int, n: int = 20000) -> np.ndarray:
+    """Standard normal z of three measures of unchanged words: the first two correlated about
+    0.6 (as displacement and local change are), the third nearly independent of them."""
+    rng = np.random.default_rng(seed)
+    shared = rng.standard_normal(n)
+    first_two = np.sqrt(0.6) * shared[:, None] + np.sqrt(0.4) * rng.standard_normal((n, 2))
+    third = np.sqrt(0.05) * shared + np.sqrt(0.95) * rng.standard_normal(n)
+    return np.column_stack([first_two, third])
+
+
 def test_unequally_correlated_measures_are_weighted_and_stay_standard_normal():
     """Three measures, two strongly correlated and one nearly independent (as displacement,
     local change and the counted context change are): O'Brien's (1984) GLS weights give the
@@ -335,11 +345,7 @@ def test_unequally_correlated_measures_are_weighted_and_stay_standard_normal():
     combination is Stouffer's."""
     from drift.compare.calibration import evidence_correlation_matrix, gls_weights, weighted_z
 
-    rng = np.random.default_rng(5)
-    shared = rng.standard_normal(20000)
-    first_two = np.sqrt(0.6) * shared[:, None] + np.sqrt(0.4) * rng.standard_normal((20000, 2))
-    third = np.sqrt(0.05) * shared + np.sqrt(0.95) * rng.standard_normal(20000)
-    z = np.column_stack([first_two, third])
+    z = three_correlated_measures(5)
     matrix = evidence_correlation_matrix(z)
     weights = gls_weights(matrix)
     assert weights[2] > 0.4 > weights[0] and abs(weights[0] - weights[1]) < 0.02
@@ -364,11 +370,7 @@ def test_weights_by_kind_keep_the_combined_z_standard_normal():
         weighted_z,
     )
 
-    rng = np.random.default_rng(6)
-    shared = rng.standard_normal(20000)
-    first_two = np.sqrt(0.6) * shared[:, None] + np.sqrt(0.4) * rng.standard_normal((20000, 2))
-    third = np.sqrt(0.05) * shared + np.sqrt(0.95) * rng.standard_normal(20000)
-    z = np.column_stack([first_two, third])
+    z = three_correlated_measures(6)
     names = ["displacement", "local", "context"]
     np.testing.assert_allclose(kind_weights(names), [0.25, 0.25, 0.5])
     np.testing.assert_allclose(kind_weights(names[:2]), [0.5, 0.5])

@@ -946,13 +946,12 @@ def combine_evidence(
         z_columns = _as_normal_z(p_columns)
         matrix = evidence_correlation_matrix(z_columns)
         correlation[null] = _mean_off_diagonal(matrix)
-        if weighting in ("gls", "kinds"):
-            weights = (gls_weights(matrix) if weighting == "gls"
-                       else kind_weights(list(tables)))
-            combined = weighted_z(z_columns, weights, matrix)
-        else:
+        if weighting == "equal":
             weights = np.full(len(matrix), 1.0 / len(matrix))
             combined = stouffer_z(z_columns, correlation[null])
+        else:
+            weights = gls_weights(matrix) if weighting == "gls" else kind_weights(list(tables))
+            combined = weighted_z(z_columns, weights, matrix)
         if weights_out is not None:
             weights_out[null] = [round(float(w), 4) for w in weights]
         out[f"{null}_z"] = combined
